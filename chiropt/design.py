@@ -1,0 +1,476 @@
+"""The Design record: one validated, immutable description of an array and its illumination.
+
+Owns: parsing and validating design files (YAML or dicts), the named continuous
+design quantities (``parameters``), and nothing physical beyond geometry checks.
+The optimizer, the store, the report and the exporter all pass Designs around.
+Must not import: solve, fields, metrics, search, store, report, cli.
+
+User-facing units: lengths and wavelengths in nm, angles in degrees.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as onp
+
+from chiropt.errors import InputError
+from chiropt.yamlio import Located, check_keys, load_yaml
+
+LATTICE_KINDS = ("square", "rectangular", "hexagonal", "oblique")
+ILLUMINATION_SIDES = ("host", "substrate")
+REGION_KINDS = ("plane", "slab")
+MAX_WAVELENGTH_POINTS = 100_000
+
+
+@dataclass(frozen=True)
+class LatticeSpec:
+    """Bravais lattice. ``periods_nm`` = (a, b) [nm]; ``angle_deg`` between a1 and a2 [deg]."""
+
+    kind: str
+    periods_nm: tuple[float, float]
+    angle_deg: float
+
+
+@dataclass(frozen=True)
+class ParticleSpec:
+    """A sphere (optionally with a core) in the unit cell.
+
+    ``radius_nm`` is the outer radius [nm]; ``material`` the outer (shell) material.
+    ``core_radius_nm`` / ``core_material`` describe an optional core.
+    ``position_nm`` is the in-plane centre (x, y) in the cell [nm].
+    """
+
+    shape: str
+    radius_nm: float
+    material: Any
+    position_nm: tuple[float, float] = (0.0, 0.0)
+    core_radius_nm: float | None = None
+    core_material: Any = None
+
+
+@dataclass(frozen=True)
+class LayerSpec:
+    """A homogeneous film on the substrate: material and thickness [nm]."""
+
+    material: Any
+    thickness_nm: float
+
+
+@dataclass(frozen=True)
+class IlluminationSpec:
+    """Plane-wave illumination: vacuum wavelengths [nm], polar and azimuth angles [deg]."""
+
+    wavelength_nm: tuple[float, ...]
+    polar_deg: float = 0.0
+    azimuth_deg: float = 0.0
+    side: str = "host"
+
+
+@dataclass(frozen=True)
+class RegionSpec:
+    """Where near-field metrics are averaged, above the particle tops.
+
+    ``kind='plane'``: at ``height_nm`` above the highest particle top.
+    ``kind='slab'``: from ``from_nm`` above the tops, ``thickness_nm`` thick.
+    """
+
+    kind: str
+    height_nm: float = 0.0
+    from_nm: float = 0.0
+    thickness_nm: float = 0.0
+
+
+@dataclass(frozen=True)
+class Design:
+    """A complete, validated design. Build with :func:`load_design` or :func:`design_from_dict`."""
+
+    lattice: LatticeSpec
+    particles: tuple[ParticleSpec, ...]
+    illumination: IlluminationSpec
+    host_index: float = 1.0
+    substrate: Any = None
+    layers: tuple[LayerSpec, ...] = ()
+    gap_nm: float = 0.0
+    region: RegionSpec | None = None
+    lmax: int = 1
+    tolerance: float = 1e-8
+    name: str = ""
+    base_dir: str = "."
+    raw: dict = field(default_factory=dict, compare=False, repr=False)
+
+    # -- named continuous quantities ------------------------------------------------
+    def parameters(self) -> dict[str, Any]:
+        """The continuous design quantities by key path, in user units (nm, deg, index).
+
+        Array-valued entries (``illumination.wavelength_nm``) are numpy arrays.
+        These are the names the goal file's ``variables:`` and ``--grad`` use.
+        """
+        p: dict[str, Any] = {}
+        lat = self.lattice
+        if lat.kind in ("square", "hexagonal"):
+            p["lattice.period_nm"] = lat.periods_nm[0]
+        else:
+            p["lattice.period_nm[0]"] = lat.periods_nm[0]
+            p["lattice.period_nm[1]"] = lat.periods_nm[1]
+        if lat.kind == "oblique":
+            p["lattice.angle_deg"] = lat.angle_deg
+        for i, part in enumerate(self.particles):
+            p[f"particles[{i}].radius_nm"] = part.radius_nm
+            if part.core_radius_nm is not None:
+                p[f"particles[{i}].core_radius_nm"] = part.core_radius_nm
+            p[f"particles[{i}].position_nm[0]"] = part.position_nm[0]
+            p[f"particles[{i}].position_nm[1]"] = part.position_nm[1]
+            for key, spec in (("material", part.material), ("core_material", part.core_material)):
+                if isinstance(spec, dict) and "n" in spec:
+                    p[f"particles[{i}].{key}.n"] = float(spec["n"])
+                    p[f"particles[{i}].{key}.k"] = float(spec.get("k", 0.0))
+        p["host_index"] = self.host_index
+        if self.substrate is not None:
+            p["gap_nm"] = self.gap_nm
+            for i, layer in enumerate(self.layers):
+                p[f"layers[{i}].thickness_nm"] = layer.thickness_nm
+        p["illumination.wavelength_nm"] = onp.asarray(self.illumination.wavelength_nm, float)
+        p["illumination.polar_deg"] = self.illumination.polar_deg
+        p["illumination.azimuth_deg"] = self.illumination.azimuth_deg
+        if self.region is not None:
+            if self.region.kind == "plane":
+                p["region.height_nm"] = self.region.height_nm
+            else:
+                p["region.from_nm"] = self.region.from_nm
+                p["region.thickness_nm"] = self.region.thickness_nm
+        return p
+
+    def with_wavelengths(self, wavelength_nm) -> Design:
+        """A copy at other wavelengths [nm]."""
+        wl = tuple(float(w) for w in onp.atleast_1d(wavelength_nm))
+        return replace(self, illumination=replace(self.illumination, wavelength_nm=wl))
+
+    def to_dict(self) -> dict:
+        """Plain data that :func:`design_from_dict` turns back into an equal Design."""
+        lat = self.lattice
+        if lat.kind in ("square", "hexagonal"):
+            ld: dict[str, Any] = {"kind": lat.kind, "period_nm": lat.periods_nm[0]}
+        else:
+            ld = {"kind": lat.kind, "period_nm": list(lat.periods_nm)}
+        if lat.kind == "oblique":
+            ld["angle_deg"] = lat.angle_deg
+        parts = []
+        for part in self.particles:
+            pd: dict[str, Any] = {"shape": part.shape, "radius_nm": part.radius_nm,
+                                  "material": part.material,
+                                  "position_nm": list(part.position_nm)}
+            if part.core_radius_nm is not None:
+                pd["core_radius_nm"] = part.core_radius_nm
+                pd["core_material"] = part.core_material
+            parts.append(pd)
+        wl = list(self.illumination.wavelength_nm)
+        out: dict[str, Any] = {
+            "lattice": ld,
+            "particles": parts,
+            "host_index": self.host_index,
+            "illumination": {"wavelength_nm": wl if len(wl) > 1 else wl[0],
+                             "polar_deg": self.illumination.polar_deg,
+                             "azimuth_deg": self.illumination.azimuth_deg,
+                             "side": self.illumination.side},
+            "model": {"lmax": self.lmax, "tolerance": self.tolerance},
+        }
+        if self.name:
+            out["name"] = self.name
+        if self.substrate is not None:
+            out["substrate"] = {"material": self.substrate}
+            out["layers"] = [{"material": la.material, "thickness_nm": la.thickness_nm}
+                             for la in self.layers]
+            out["gap_nm"] = self.gap_nm
+        if self.region is not None:
+            r = self.region
+            out["region"] = ({"kind": "plane", "height_nm": r.height_nm} if r.kind == "plane"
+                             else {"kind": "slab", "from_nm": r.from_nm,
+                                   "thickness_nm": r.thickness_nm})
+        return out
+
+
+# ---------------------------------------------------------------------------------
+# parsing helpers
+# ---------------------------------------------------------------------------------
+
+def _number(value: Any, key: str, *, low: float | None = None, high: float | None = None,
+            low_open: bool = False, unit: str = "") -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(key, f"expected a number{' in ' + unit if unit else ''}, got {value!r}")
+    v = float(value)
+    if not math.isfinite(v):
+        raise InputError(key, f"expected a finite number, got {value!r}")
+    rng = _range_text(low, high, low_open, unit)
+    if low is not None and (v < low or (low_open and v == low)):
+        raise InputError(key, f"got {v:g}, allowed {rng}")
+    if high is not None and v > high:
+        raise InputError(key, f"got {v:g}, allowed {rng}")
+    return v
+
+
+def _range_text(low, high, low_open, unit) -> str:
+    u = f" {unit}" if unit else ""
+    if low is not None and high is not None:
+        return f"{'(' if low_open else '['}{low:g}, {high:g}]{u}"
+    if low is not None:
+        return f"{'>' if low_open else '>='} {low:g}{u}"
+    return f"<= {high:g}{u}"
+
+
+def _pair(value: Any, key: str, **kw) -> tuple[float, float]:
+    if not isinstance(value, (list, tuple)) or len(value) != 2:
+        raise InputError(key, f"expected a list of two numbers [x, y], got {value!r}")
+    return (_number(value[0], f"{key}[0]", **kw), _number(value[1], f"{key}[1]", **kw))
+
+
+def _material_spec(value: Any, key: str) -> Any:
+    if isinstance(value, str) and value.strip():
+        return value.strip()
+    if isinstance(value, dict):
+        if "n" in value:
+            check_keys(value, {"n", "k"}, key)
+            n = _number(value["n"], f"{key}.n", low=0.0, low_open=True)
+            k = _number(value.get("k", 0.0), f"{key}.k", low=0.0)
+            return {"n": n, "k": k}
+        if "table" in value:
+            check_keys(value, {"table"}, key)
+            return {"table": str(value["table"])}
+    raise InputError(key, "expected a material: a short name (Si, SiO2, TiO2, GaP, Si3N4, Ag, Au"
+                          "...), a database id 'shelf/book/page', {n: 3.5, k: 0.0} or "
+                          f"{{table: file.csv}}; got {value!r}")
+
+
+def _wavelengths(value: Any, key: str) -> tuple[float, ...]:
+    kw = dict(low=1.0, high=1e6, unit="nm")
+    if isinstance(value, dict):
+        check_keys(value, {"start", "stop", "points"}, key)
+        for name in ("start", "stop", "points"):
+            if name not in value:
+                raise InputError(f"{key}.{name}", "missing; a range needs start, stop and points")
+        start = _number(value["start"], f"{key}.start", **kw)
+        stop = _number(value["stop"], f"{key}.stop", **kw)
+        pts = value["points"]
+        if isinstance(pts, bool) or not isinstance(pts, int) or not (
+                1 <= pts <= MAX_WAVELENGTH_POINTS):
+            raise InputError(f"{key}.points",
+                             f"got {pts!r}, allowed an integer in [1, {MAX_WAVELENGTH_POINTS}]")
+        if stop < start:
+            raise InputError(f"{key}.stop", f"got {stop:g} below start {start:g}")
+        return tuple(float(w) for w in onp.linspace(start, stop, pts))
+    if isinstance(value, (list, tuple)):
+        if not value:
+            raise InputError(key, "an empty list; give at least one wavelength")
+        return tuple(_number(v, f"{key}[{i}]", **kw) for i, v in enumerate(value))
+    return (_number(value, key, **kw),)
+
+
+TOP_KEYS = {"name", "description", "lattice", "particles", "host_index", "substrate", "layers",
+            "gap_nm", "illumination", "region", "model"}
+
+
+def design_from_dict(data: dict, *, base_dir: str | Path = ".", located: Located | None = None,
+                     prefix: str = "") -> Design:
+    """Validate plain data (as read from a design file) into a :class:`Design`.
+
+    Raises :class:`InputError` naming the key path (and file:line when known).
+    ``prefix`` is prepended to key paths (a goal file's ``design.``).
+    """
+    try:
+        return _design_from_dict(data, base_dir=base_dir, prefix=prefix)
+    except InputError as exc:
+        if located is not None and exc.key:
+            raise InputError(exc.key, f"{exc.message} ({located.where(exc.key)})") from None
+        raise
+
+
+def _design_from_dict(data: dict, *, base_dir, prefix: str) -> Design:
+    P = prefix
+    check_keys(data, TOP_KEYS, prefix.rstrip("."))
+    for required in ("lattice", "particles", "illumination"):
+        if required not in data:
+            raise InputError(P + required, "missing (required keys: lattice, particles, "
+                                           "illumination)")
+    lattice = _lattice(data["lattice"], P + "lattice")
+    parts_raw = data["particles"]
+    if not isinstance(parts_raw, list) or not parts_raw:
+        raise InputError(P + "particles", "expected a non-empty list of particles")
+    particles = tuple(_particle(p, f"{P}particles[{i}]") for i, p in enumerate(parts_raw))
+    host_index = _number(data.get("host_index", 1.0), P + "host_index", low=1.0, high=5.0)
+    substrate = None
+    layers: tuple[LayerSpec, ...] = ()
+    gap = 0.0
+    if data.get("substrate") is not None:
+        sub = data["substrate"]
+        check_keys(sub, {"material"}, P + "substrate")
+        substrate = _material_spec(sub.get("material"), P + "substrate.material")
+        lay = data.get("layers") or []
+        if not isinstance(lay, list):
+            raise InputError(P + "layers", "expected a list of {material, thickness_nm}")
+        layers = tuple(_layer(la, f"{P}layers[{i}]") for i, la in enumerate(lay))
+        gap = _number(data.get("gap_nm", 0.0), P + "gap_nm", low=0.0, high=1e5, unit="nm")
+    else:
+        for key in ("layers", "gap_nm"):
+            if data.get(key):
+                raise InputError(P + key, "needs a substrate: add substrate: {material: ...}")
+    illum_raw = data["illumination"]
+    check_keys(illum_raw, {"wavelength_nm", "polar_deg", "azimuth_deg", "side"},
+               P + "illumination")
+    if "wavelength_nm" not in illum_raw:
+        raise InputError(P + "illumination.wavelength_nm", "missing")
+    side = illum_raw.get("side", "host")
+    if side not in ILLUMINATION_SIDES:
+        raise InputError(P + "illumination.side", f"got {side!r}, allowed: host, substrate")
+    if side == "substrate" and substrate is None:
+        raise InputError(P + "illumination.side", "'substrate' needs a substrate in the design")
+    illum = IlluminationSpec(
+        wavelength_nm=_wavelengths(illum_raw["wavelength_nm"], P + "illumination.wavelength_nm"),
+        polar_deg=_number(illum_raw.get("polar_deg", 0.0), P + "illumination.polar_deg",
+                          low=0.0, high=89.0, unit="deg"),
+        azimuth_deg=_number(illum_raw.get("azimuth_deg", 0.0), P + "illumination.azimuth_deg",
+                            low=-360.0, high=360.0, unit="deg"),
+        side=side)
+    region = _region(data["region"], P + "region") if data.get("region") is not None else None
+    lmax, tol = 1, 1e-8
+    if data.get("model") is not None:
+        model = data["model"]
+        check_keys(model, {"lmax", "tolerance"}, P + "model")
+        lmax_raw = model.get("lmax", 1)
+        if lmax_raw != 1:
+            raise InputError(P + "model.lmax", f"got {lmax_raw!r}; this version implements the "
+                                               "electric+magnetic dipole model only (lmax: 1)")
+        tol = _number(model.get("tolerance", 1e-8), P + "model.tolerance", low=1e-14, high=1e-2)
+    design = Design(lattice=lattice, particles=particles, illumination=illum,
+                    host_index=host_index, substrate=substrate, layers=layers, gap_nm=gap,
+                    region=region, lmax=lmax, tolerance=tol,
+                    name=str(data.get("name", "")), base_dir=str(base_dir), raw=dict(data))
+    check_geometry(design, prefix=P)
+    return design
+
+
+def _lattice(raw: Any, key: str) -> LatticeSpec:
+    check_keys(raw, {"kind", "period_nm", "angle_deg"}, key)
+    kind = raw.get("kind", "square")
+    if kind not in LATTICE_KINDS:
+        raise InputError(f"{key}.kind", f"got {kind!r}, allowed: {', '.join(LATTICE_KINDS)}")
+    if "period_nm" not in raw:
+        raise InputError(f"{key}.period_nm", "missing")
+    kw = dict(low=1.0, high=1e5, low_open=True, unit="nm")
+    per = raw["period_nm"]
+    if kind in ("square", "hexagonal"):
+        a = _number(per, f"{key}.period_nm", **kw)
+        periods = (a, a)
+    else:
+        periods = _pair(per, f"{key}.period_nm", **kw)
+    angle = {"square": 90.0, "rectangular": 90.0, "hexagonal": 60.0}.get(kind)
+    if kind == "oblique":
+        if "angle_deg" not in raw:
+            raise InputError(f"{key}.angle_deg", "missing; an oblique lattice needs the angle "
+                                                 "between a1 and a2")
+        angle = _number(raw["angle_deg"], f"{key}.angle_deg", low=30.0, high=150.0, unit="deg")
+    elif "angle_deg" in raw:
+        raise InputError(f"{key}.angle_deg", f"only for kind 'oblique' (a {kind} lattice has "
+                                             "a fixed angle)")
+    return LatticeSpec(kind=kind, periods_nm=periods, angle_deg=float(angle))
+
+
+def _particle(raw: Any, key: str) -> ParticleSpec:
+    check_keys(raw, {"shape", "radius_nm", "material", "position_nm", "core_radius_nm",
+                     "core_material"}, key)
+    shape = raw.get("shape", "sphere")
+    if shape != "sphere":
+        raise InputError(f"{key}.shape", f"got {shape!r}, allowed: sphere")
+    if "radius_nm" not in raw:
+        raise InputError(f"{key}.radius_nm", "missing")
+    radius = _number(raw["radius_nm"], f"{key}.radius_nm", low=0.0, high=1e4, low_open=True,
+                     unit="nm")
+    if "material" not in raw:
+        raise InputError(f"{key}.material", "missing")
+    material = _material_spec(raw["material"], f"{key}.material")
+    pos = _pair(raw.get("position_nm", [0.0, 0.0]), f"{key}.position_nm", low=-1e5, high=1e5)
+    core_r = core_m = None
+    if "core_radius_nm" in raw or "core_material" in raw:
+        for k in ("core_radius_nm", "core_material"):
+            if k not in raw:
+                raise InputError(f"{key}.{k}", "missing; a core needs core_radius_nm and "
+                                               "core_material")
+        core_r = _number(raw["core_radius_nm"], f"{key}.core_radius_nm", low=0.0,
+                         high=radius, low_open=True, unit="nm")
+        core_m = _material_spec(raw["core_material"], f"{key}.core_material")
+    return ParticleSpec(shape=shape, radius_nm=radius, material=material, position_nm=pos,
+                        core_radius_nm=core_r, core_material=core_m)
+
+
+def _layer(raw: Any, key: str) -> LayerSpec:
+    check_keys(raw, {"material", "thickness_nm"}, key)
+    if "thickness_nm" not in raw:
+        raise InputError(f"{key}.thickness_nm", "missing")
+    return LayerSpec(material=_material_spec(raw.get("material"), f"{key}.material"),
+                     thickness_nm=_number(raw["thickness_nm"], f"{key}.thickness_nm", low=0.0,
+                                          high=1e5, unit="nm"))
+
+
+def _region(raw: Any, key: str) -> RegionSpec:
+    if not isinstance(raw, dict):
+        raise InputError(key, f"expected a mapping, got {raw!r}")
+    kind = raw.get("kind")
+    if kind not in REGION_KINDS:
+        raise InputError(f"{key}.kind", f"got {kind!r}, allowed: plane, slab")
+    if kind == "plane":
+        check_keys(raw, {"kind", "height_nm"}, key)
+        return RegionSpec(kind=kind, height_nm=_number(raw.get("height_nm", 0.0),
+                                                       f"{key}.height_nm", low=0.0, high=1e4,
+                                                       unit="nm"))
+    check_keys(raw, {"kind", "from_nm", "thickness_nm"}, key)
+    if "thickness_nm" not in raw:
+        raise InputError(f"{key}.thickness_nm", "missing")
+    return RegionSpec(kind=kind,
+                      from_nm=_number(raw.get("from_nm", 0.0), f"{key}.from_nm", low=0.0,
+                                      high=1e4, unit="nm"),
+                      thickness_nm=_number(raw["thickness_nm"], f"{key}.thickness_nm", low=0.0,
+                                           high=1e4, low_open=True, unit="nm"))
+
+
+def lattice_vectors_nm(spec: LatticeSpec) -> tuple[onp.ndarray, onp.ndarray]:
+    """Lattice vectors a1 = (a, 0), a2 = b (cos angle, sin angle) [nm]."""
+    a, b = spec.periods_nm
+    ang = math.radians(spec.angle_deg)
+    return onp.array([a, 0.0]), onp.array([b * math.cos(ang), b * math.sin(ang)])
+
+
+def check_geometry(design: Design, prefix: str = "") -> None:
+    """Fabrication-level sanity: no particle overlaps another or its own lattice images.
+
+    Raises :class:`InputError` naming the offending particle and the allowed limit.
+    """
+    a1, a2 = lattice_vectors_nm(design.lattice)
+    images = [i * a1 + j * a2 for i in range(-2, 3) for j in range(-2, 3)]
+    parts = design.particles
+    # shortest lattice vector limits a single particle's diameter
+    shortest = min(onp.hypot(*v) for v in images if onp.hypot(*v) > 0)
+    for i, p in enumerate(parts):
+        if 2 * p.radius_nm > shortest:
+            raise InputError(f"{prefix}particles[{i}].radius_nm",
+                             f"diameter {2 * p.radius_nm:g} nm exceeds the shortest lattice "
+                             f"period {shortest:g} nm (spheres would overlap their neighbours); "
+                             f"allowed radius <= {shortest / 2:g} nm")
+    for i in range(len(parts)):
+        for j in range(i + 1, len(parts)):
+            d0 = onp.subtract(parts[i].position_nm, parts[j].position_nm)
+            # bottoms aligned: centres differ in height by the radius difference
+            dz = parts[i].radius_nm - parts[j].radius_nm
+            dist = min(math.sqrt(float(onp.sum((d0 + v) ** 2)) + dz ** 2) for v in images)
+            if dist < parts[i].radius_nm + parts[j].radius_nm:
+                raise InputError(f"{prefix}particles[{j}].position_nm",
+                                 f"particle {j} overlaps particle {i} (centre distance "
+                                 f"{dist:.4g} nm < sum of radii "
+                                 f"{parts[i].radius_nm + parts[j].radius_nm:g} nm)")
+
+
+def load_design(path: str | Path) -> Design:
+    """Read and validate a design file (YAML). Errors name the key path and file:line."""
+    located = load_yaml(path)
+    return design_from_dict(located, base_dir=Path(path).resolve().parent, located=located)

@@ -1,0 +1,76 @@
+"""Far field of the array: reflectance, transmittance, absorptance per helicity.
+
+Owns: power fractions of all propagating diffraction orders, and the power the
+dipoles absorb (an independent absorptance). Must not import: search, store,
+report, cli.
+
+All fractions are normalized to the z-directed power flux of the incident wave
+(unit amplitude, in its medium of incidence).
+"""
+
+from __future__ import annotations
+
+import autograd.numpy as np
+
+from chiropt.planewaves import z_flux
+from chiropt.solve import Solution, substrate_basis
+
+
+def _host_flux(sol: Solution, amp, direction: str):
+    """Flux (units 1/(2 Z0)) of host orders with amplitudes amp (W, 2, G, 3), summed."""
+    st, o = sol.structure, sol.orders
+    kv = (o.k_up if direction == "up" else o.k_down) * (st.n_host + 0j)
+    prop = (np.real(o.kz) > 0) & (np.abs(np.imag(o.kz)) <= 1e-12 * st.k[:, None])
+    f = z_flux(amp, kv[:, None])
+    return np.sum(np.where(prop[:, None], f, 0.0), axis=-1)
+
+
+def _exit_flux(sol: Solution):
+    st, o = sol.structure, sol.orders
+    if st.has_substrate:
+        _, _, _, kvec = substrate_basis(st, o)
+        f = z_flux(sol.exit_down, kvec[:, None])
+        return np.sum(f, axis=-1)
+    return _host_flux(sol, sol.exit_down, "down")
+
+
+def incident_flux(sol: Solution):
+    """|z flux| of the unit-amplitude incident wave (units 1/(2 Z0)): n cos(theta), (W,)."""
+    st = sol.structure
+    n_in = st.n_incidence
+    kin = np.real(n_in) * st.k0
+    kpar2 = np.sum(st.k_par ** 2, axis=-1)
+    return np.real(np.sqrt(kin ** 2 - kpar2 + 0j)) / st.k0
+
+
+def power_fractions(sol: Solution) -> dict:
+    """R, T, A = 1 - R - T and the dipoles' absorbed fraction, each (W, 2) [+1, -1].
+
+    R: power into the medium of incidence; T: into the other half space (for
+    host-side illumination: the substrate, or the host below the array).
+
+    References
+    ----------
+    Absorbed power of a dipole with radiative correction:
+    W_abs = (omega/2) eps |P|^2 (-Im(1/alpha) - k^3/(6 pi)) (Draine, ApJ 333, 848 (1988);
+    FORMULAS.md §2); fluxes from the Poynting vector of each order (FORMULAS.md §3).
+    """
+    st = sol.structure
+    inc = incident_flux(sol)[:, None]
+    up = _host_flux(sol, sol.up, "up") / inc
+    down = -_exit_flux(sol) / inc
+    if st.side == "host":
+        R, T = up, down
+    else:
+        R, T = down, up
+    k = st.k
+    k3 = (k ** 3 / (6 * np.pi))[:, None]
+    P = sol.moments[..., :3]
+    M = sol.moments[..., 3:]
+    loss_e = -np.imag(1.0 / st.alpha_e) - k3  # (W, N)
+    loss_m = -np.imag(1.0 / st.alpha_m) - k3
+    absorbed = (np.sum(np.abs(P) ** 2, axis=-1) * loss_e[:, None]
+                + np.sum(np.abs(M) ** 2, axis=-1) * loss_m[:, None])  # (W, 2, N)
+    A_dip = (st.k0 * st.n_host ** 2)[:, None] * np.sum(absorbed, axis=-1) / (
+        st.lattice.area * inc)
+    return {"R": R, "T": T, "A": 1.0 - R - T, "A_dipoles": A_dip}

@@ -1,0 +1,170 @@
+"""Two-dimensional Bravais lattices in the xy plane.
+
+Owns: the ``Lattice`` record (in-plane lattice vectors, cell area, reciprocal vectors)
+and its constructors. Lengths are in metres (SI); the vectors may be autograd-traced
+values, so periods and angles can be design variables.
+Must not import: store, report, cli, search (physics never imports them), nor
+other lattice modules.
+
+Conventions: lattice points R = n1 a1 + n2 a2; reciprocal vectors b_i with
+b_i . a_j = 2 pi delta_ij; cell area A = |a1 x a2|.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import autograd.numpy as np
+from autograd.tracer import getval
+
+from chiropt.errors import InputError
+
+
+def _check_length(key, value):
+    v = np.asarray(getval(value), dtype=float)
+    if v.ndim != 0 or not np.isfinite(v) or v <= 0:
+        raise InputError(key, f"must be a positive finite length in metres; got {v!r}")
+
+
+def _as_vector(key, value):
+    """Return ``value`` as a length-2 array (keeping autograd boxes as they are)."""
+    plain = np.asarray(getval(value))
+    if plain.shape != (2,) or not np.all(np.isfinite(plain)) or np.iscomplexobj(plain):
+        raise InputError(key, f"must be a real finite vector of length 2 [m]; got {plain!r}")
+    if isinstance(value, list | tuple):
+        return np.array([value[0], value[1]])
+    return value
+
+
+@dataclass(frozen=True, eq=False)
+class Lattice:
+    """A 2D Bravais lattice in the plane z = const.
+
+    Parameters
+    ----------
+    a1 : array (2,) — first lattice vector [m]
+    a2 : array (2,) — second lattice vector [m]
+
+    Either vector may be an autograd-traced array. The cell must be non-degenerate.
+    """
+
+    a1: object
+    a2: object
+
+    def __post_init__(self):
+        object.__setattr__(self, "a1", _as_vector("lattice.a1", self.a1))
+        object.__setattr__(self, "a2", _as_vector("lattice.a2", self.a2))
+        a1, a2 = np.asarray(getval(self.a1)), np.asarray(getval(self.a2))
+        cross = a1[0] * a2[1] - a1[1] * a2[0]
+        scale = np.linalg.norm(a1) * np.linalg.norm(a2)
+        if not scale > 0 or abs(cross) <= 1e-9 * scale:
+            raise InputError(
+                "lattice",
+                f"lattice vectors a1={a1!r}, a2={a2!r} [m] are (nearly) parallel or zero; "
+                "they must span a cell of non-zero area",
+            )
+
+    # -- constructors ----------------------------------------------------------------
+    @classmethod
+    def square(cls, period):
+        """Square lattice, a1 = (a, 0), a2 = (0, a).
+
+        Parameters
+        ----------
+        period : float — lattice constant a [m]
+        """
+        _check_length("lattice.period", period)
+        zero = 0.0 * period
+        return cls(np.stack([period, zero]), np.stack([zero, period]))
+
+    @classmethod
+    def rectangular(cls, px, py):
+        """Rectangular lattice, a1 = (px, 0), a2 = (0, py).
+
+        Parameters
+        ----------
+        px : float — period along x [m]
+        py : float — period along y [m]
+        """
+        _check_length("lattice.period_x", px)
+        _check_length("lattice.period_y", py)
+        return cls(np.stack([px, 0.0 * px]), np.stack([0.0 * py, py]))
+
+    @classmethod
+    def hexagonal(cls, period):
+        """Hexagonal lattice, a1 = (a, 0), a2 = (a/2, a sqrt(3)/2).
+
+        Parameters
+        ----------
+        period : float — nearest-neighbour distance a [m]
+        """
+        _check_length("lattice.period", period)
+        return cls(np.stack([period, 0.0 * period]),
+                   np.stack([0.5 * period, 0.5 * np.sqrt(3.0) * period]))
+
+    @classmethod
+    def oblique(cls, a, b, angle_rad):
+        """Oblique lattice, a1 = (a, 0), a2 = b (cos angle, sin angle).
+
+        Parameters
+        ----------
+        a : float — length of a1 [m]
+        b : float — length of a2 [m]
+        angle_rad : float — angle from a1 to a2, in (0, pi) [rad]
+        """
+        _check_length("lattice.a", a)
+        _check_length("lattice.b", b)
+        ang = float(np.asarray(getval(angle_rad)))
+        if not (0.0 < ang < np.pi):
+            raise InputError("lattice.angle", f"must lie in (0, pi) rad; got {ang!r}")
+        return cls(np.stack([a, 0.0 * a]),
+                   np.stack([b * np.cos(angle_rad), b * np.sin(angle_rad)]))
+
+    # -- derived quantities ------------------------------------------------------------
+    @property
+    def _cross(self):
+        return self.a1[0] * self.a2[1] - self.a1[1] * self.a2[0]
+
+    @property
+    def area(self):
+        """Unit-cell area A = |a1 x a2| [m^2] (traced if the vectors are)."""
+        return np.abs(self._cross)
+
+    def reciprocal(self):
+        """Reciprocal vectors (b1, b2) with b_i . a_j = 2 pi delta_ij [1/m].
+
+        Returns
+        -------
+        (b1, b2) : two arrays (2,) [1/m], traced if the lattice vectors are.
+        """
+        s = 2.0 * np.pi / self._cross
+        b1 = s * np.stack([self.a2[1], -self.a2[0]])
+        b2 = s * np.stack([-self.a1[1], self.a1[0]])
+        return b1, b2
+
+    def points(self, nm):
+        """Lattice points R = n1 a1 + n2 a2 [m] for integer pairs ``nm`` (N, 2)."""
+        nm = np.asarray(nm, dtype=float)
+        return nm[:, 0:1] * self.a1[None, :] + nm[:, 1:2] * self.a2[None, :]
+
+    def plain(self):
+        """The same lattice with untraced (plain float) vectors."""
+        return Lattice(np.array(getval(self.a1), dtype=float),
+                       np.array(getval(self.a2), dtype=float))
+
+
+def integer_pairs_within(basis1, basis2, dual1, dual2, radius):
+    """All integer pairs (m, n) with |m basis1 + n basis2| <= radius (plain values).
+
+    ``dual_i`` must satisfy dual_i . basis_j = 2 pi delta_ij; then |m| <= radius |dual1| / 2 pi
+    bounds the search exactly. Returns an int array (N, 2), unsorted.
+    """
+    basis1, basis2 = np.asarray(basis1, float), np.asarray(basis2, float)
+    m_max = int(np.floor(radius * np.linalg.norm(dual1) / (2 * np.pi) + 1e-9))
+    n_max = int(np.floor(radius * np.linalg.norm(dual2) / (2 * np.pi) + 1e-9))
+    m, n = np.meshgrid(np.arange(-m_max, m_max + 1), np.arange(-n_max, n_max + 1),
+                       indexing="ij")
+    mn = np.stack([m.ravel(), n.ravel()], axis=1)
+    vec = mn[:, 0:1] * basis1[None, :] + mn[:, 1:2] * basis2[None, :]
+    keep = np.sqrt(np.sum(vec**2, axis=1)) <= radius * (1 + 1e-12)
+    return mn[keep]

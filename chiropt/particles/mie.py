@@ -1,0 +1,442 @@
+"""Mie coefficients of spheres and coated spheres; dipole polarizabilities.
+
+Owns: the Lorenz-Mie external coefficients ``a_n``, ``b_n`` of a homogeneous
+sphere and of a coated (core-shell) sphere, the efficiencies derived from them,
+and the conversion of ``a_1``, ``b_1`` to the electric and magnetic dipole
+polarizabilities used by the lattice model.
+Must not import: store, report, cli, search, goals (physics never does); only
+``chiropt.errors`` and ``chiropt.particles._riccati`` from chiropt.
+
+Conventions
+-----------
+- Bohren & Huffman (1983) coefficients, time factor ``exp(-i omega t)``: a
+  small lossless sphere has ``a_1 ~ -i (2 x^3 / 3)(m^2 - 1)/(m^2 + 2)`` and
+  every lossless coefficient satisfies ``Re a_n = |a_n|^2``.
+- ``x = k_host * radius`` (real, > 0) and ``m = n_particle / n_host`` (complex,
+  ``Im m >= 0`` for passive particles). Libraries that take ``m = n - i k``
+  (Wiscombe's MIEV0, miepython) need the conjugate index.
+- Arrays: ``x`` and ``m`` broadcast together (leading axes: wavelength,
+  particle...); the multipole order is the last axis, index 0 = order 1.
+- Everything is written with ``autograd.numpy``; the coefficients are
+  differentiable in ``x`` and in the real and imaginary parts of ``m``.
+- Dipole normalization (FORMULAS.md §2): ``P = p / (eps0 eps_host) = alpha_e
+  E_loc`` and ``Z m = alpha_m Z H_loc``, both polarizabilities in m^3.
+"""
+
+from __future__ import annotations
+
+import math
+import operator
+from typing import NamedTuple
+
+import autograd.numpy as np
+from autograd.tracer import getval
+
+from chiropt.errors import InputError
+from chiropt.particles._riccati import downward_start, ratio_g, riccati_psi_chi
+
+__all__ = [
+    "MieEfficiencies",
+    "coreshell_mie_coefficients",
+    "dipole_polarizabilities",
+    "mie_coefficients",
+    "mie_efficiencies",
+    "wiscombe_n_max",
+]
+
+
+class MieEfficiencies(NamedTuple):
+    """Efficiencies of a sphere (cross sections divided by ``pi radius^2``).
+
+    Attributes
+    ----------
+    qext, qsca, qabs, qback : array
+        Extinction, scattering, absorption and backscattering efficiencies
+        [dimensionless].
+    g : array
+        Asymmetry parameter ``<cos theta>`` [dimensionless].
+    """
+
+    qext: object
+    qsca: object
+    qabs: object
+    qback: object
+    g: object
+
+
+# ---------------------------------------------------------------- validation
+
+
+def _check_n_max(n_max) -> int:
+    try:
+        n = operator.index(n_max)
+    except TypeError:
+        raise InputError(
+            "n_max", f"must be an integer >= 1, got {n_max!r} ({type(n_max).__name__})"
+        ) from None
+    if isinstance(n_max, bool) or n < 1:
+        raise InputError("n_max", f"must be an integer >= 1, got {n_max!r}")
+    return n
+
+
+def _check_size(key: str, x, allow_zero: bool = False) -> np.ndarray:
+    value = np.asarray(getval(x))
+    if np.iscomplexobj(value):
+        raise InputError(key, f"size parameter must be real, got complex values {value!r}")
+    if not np.all(np.isfinite(value)):
+        raise InputError(key, f"size parameter must be finite, got {value!r}")
+    bad = value < 0 if allow_zero else value <= 0
+    if np.any(bad):
+        bound = ">= 0" if allow_zero else "> 0"
+        raise InputError(
+            key, f"size parameter k_host*radius must be {bound}, got min {value.min()!r}"
+        )
+    return value
+
+
+def _check_index(key: str, m) -> np.ndarray:
+    value = np.asarray(getval(m))
+    if not np.all(np.isfinite(value)):
+        raise InputError(key, f"relative refractive index must be finite, got {value!r}")
+    if np.any(np.imag(value) < 0):
+        raise InputError(
+            key,
+            "relative refractive index must have Im(m) >= 0 (passive medium, exp(-i omega t));"
+            f" got min Im(m) = {np.imag(value).min()!r}. Data given as n - ik needs conj().",
+        )
+    return value
+
+
+def _as_complex(m):
+    """``m`` as a complex array (traced values stay traced)."""
+    if np.iscomplexobj(getval(m)):
+        return m
+    return m + 0j
+
+
+def _broadcast_shape(*values) -> tuple:
+    return np.broadcast_shapes(*(np.shape(getval(v)) for v in values))
+
+
+# ---------------------------------------------------------------- kernel
+
+
+def _coefficients_from_g(x, m, big_g_a: list, big_g_b: list, n_max: int):
+    """``a_n``, ``b_n`` from the ratio functions of the outermost medium.
+
+    ``big_g_a[n-1]`` and ``big_g_b[n-1]`` stand for ``z D_n(z) - (n+1)`` with
+    ``z = m x``, ``D_n`` the logarithmic derivative of Bohren & Huffman eq. 4.88
+    (for a coated sphere, the effective one of the shell field; for a
+    homogeneous sphere the two lists are the same). See :func:`mie_coefficients`.
+    """
+    g_x = ratio_g(x * x, n_max + 1, downward_start(n_max + 1, float(np.max(getval(x)))))
+    psi, chi = riccati_psi_chi(x, g_x, n_max + 1)  # index k holds order k-1
+    m_sq = m * m
+    a_list = []
+    b_list = []
+    for n in range(1, n_max + 1):
+        psi_n, psi_n1 = psi[n + 1], psi[n + 2]
+        chi_n, chi_nm1 = chi[n + 1], chi[n]
+        ga = big_g_a[n - 1]
+        gb = big_g_b[n - 1]
+        # numerators (times x m^2 and x) written with psi_{n+1}: no cancellation at small x
+        num_a = ((n + 1.0) * (1.0 - m_sq) + ga) * psi_n + m_sq * x * psi_n1
+        p_a = (n + 1.0 + ga + n * m_sq) * chi_n - m_sq * x * chi_nm1
+        num_b = gb * psi_n + x * psi_n1
+        p_b = (2.0 * n + 1.0 + gb) * chi_n - x * chi_nm1
+        a_list.append(num_a / (num_a - 1j * p_a))
+        b_list.append(num_b / (num_b - 1j * p_b))
+    return np.stack(a_list, axis=-1), np.stack(b_list, axis=-1)
+
+
+# ---------------------------------------------------------------- public API
+
+
+def mie_coefficients(x, m, n_max: int):
+    """External Mie coefficients ``a_n``, ``b_n`` of a homogeneous sphere.
+
+    Parameters
+    ----------
+    x : array_like (real)
+        Size parameter ``k_host * radius``, > 0 [dimensionless].
+    m : array_like (complex)
+        Relative refractive index ``n_particle / n_host``, ``Im m >= 0``
+        [dimensionless]. Broadcasts with ``x``.
+    n_max : int
+        Highest multipole order returned, >= 1 [dimensionless].
+
+    Returns
+    -------
+    a, b : complex arrays, shape ``broadcast(x, m).shape + (n_max,)``
+        Electric (``a``) and magnetic (``b``) coefficients; ``[..., 0]`` is
+        order 1 [dimensionless].
+
+    Raises
+    ------
+    InputError
+        ``x`` not real and positive, ``Im m < 0``, non-finite values, or
+        ``n_max`` not an integer >= 1.
+
+    Notes
+    -----
+    With ``G_n = z D_n(z) - (n+1) = -z j_{n+1}(z)/j_n(z)`` at ``z = m x``
+    (downward recurrence, :func:`chiropt.particles._riccati.ratio_g`),
+    Bohren & Huffman eq. 4.88 becomes, after multiplying numerator and
+    denominator by ``x m^2`` (for ``a_n``) or ``x`` (for ``b_n``) and using
+    ``x psi_{n-1} = (2n+1) psi_n - x psi_{n+1}``,
+
+        ``a_n = N_a / (N_a - i P_a)``,
+        ``N_a = [(n+1)(1 - m^2) + G_n] psi_n + m^2 x psi_{n+1}``,
+        ``P_a = (n + 1 + G_n + n m^2) chi_n - m^2 x chi_{n-1}``,
+
+        ``b_n = N_b / (N_b - i P_b)``,
+        ``N_b = G_n psi_n + x psi_{n+1}``,
+        ``P_b = (2n + 1 + G_n) chi_n - x chi_{n-1}``,
+
+    all Riccati-Bessel functions at the real argument ``x``. The numerators
+    then carry the factor ``m^2 - 1`` explicitly instead of obtaining it as a
+    difference of large terms, so the relative accuracy stays near machine
+    precision down to small ``x`` (where ``b_n`` of the textbook form loses a
+    factor ``x^2``). For real ``m`` both ``N`` and ``P`` are real, so
+    ``Re a_n = |a_n|^2`` holds to rounding. ``G_n`` has poles (zeros of
+    ``j_n(mx)``, real ``m`` only) but enters linear-fractionally, so the
+    coefficients stay well conditioned there.
+
+    The range is that of double precision: ``chi_n(x) ~ (2n-1)!!/x^n`` must
+    not overflow (for ``n_max = 8`` any ``x > 1e-30`` is fine).
+
+    References
+    ----------
+    Bohren & Huffman, *Absorption and Scattering of Light by Small Particles*
+    (Wiley, 1983), eqs. 4.53 (coefficients), 4.88 (logarithmic-derivative
+    form), 4.89 (downward recurrence); Wiscombe, Appl. Opt. 19, 1505 (1980).
+    """
+    n_max = _check_n_max(n_max)
+    _check_size("x", x)
+    _check_index("m", m)
+    shape = _broadcast_shape(x, m)
+    ones = np.ones(shape)
+    x = x * ones
+    m = _as_complex(m) * ones
+    z_sq = (m * x) ** 2
+    abs_z = float(np.max(np.abs(getval(m) * getval(x))))
+    big_g = ratio_g(z_sq, n_max, downward_start(n_max, abs_z))
+    return _coefficients_from_g(x, m, big_g, big_g, n_max)
+
+
+def coreshell_mie_coefficients(x_core, x_shell, m_core, m_shell, n_max: int):
+    """External Mie coefficients ``a_n``, ``b_n`` of a coated sphere.
+
+    Parameters
+    ----------
+    x_core : array_like (real)
+        ``k_host * core_radius``, > 0 [dimensionless].
+    x_shell : array_like (real)
+        ``k_host * outer_radius``, ``>= x_core`` [dimensionless].
+    m_core : array_like (complex)
+        Core index relative to the host, ``Im >= 0`` [dimensionless].
+    m_shell : array_like (complex)
+        Shell index relative to the host, ``Im >= 0`` [dimensionless].
+    n_max : int
+        Highest multipole order returned, >= 1 [dimensionless].
+
+    Returns
+    -------
+    a, b : complex arrays, shape ``broadcast(all inputs).shape + (n_max,)``
+        ``[..., 0]`` is order 1 [dimensionless].
+
+    Raises
+    ------
+    InputError
+        Sizes not real and positive, ``x_core > x_shell``, ``Im m < 0``,
+        non-finite values, or ``n_max`` not an integer >= 1.
+
+    Notes
+    -----
+    Bohren & Huffman eq. 8.2 (``x = x_core``, ``y = x_shell``, ``m1 = m_core``,
+    ``m2 = m_shell``) is the homogeneous-sphere formula at ``y`` with
+    ``D_n(m2 y)`` replaced by the logarithmic derivative of the shell field
+    ``u_n = psi_n(m2 r) - A_n chi_n(m2 r)`` (``B_n`` for ``b_n``). This routine
+    uses that form: ``G~_n = -w u_{n+1}(w)/u_n(w)`` at ``w = m2 y`` feeds the
+    same kernel as :func:`mie_coefficients`, with
+
+        ``A_n = [psi_n(z2)((n+1)(m2^2 - m1^2) + m2^2 G1) + m1^2 z2 psi_{n+1}(z2)]
+        / [chi_n(z2)(m2^2 (n+1+G1) - m1^2 (n+1)) + m1^2 z2 chi_{n+1}(z2)]``,
+
+        ``B_n = [z2 psi_{n+1}(z2) + G1 psi_n(z2)] / [z2 chi_{n+1}(z2) + G1 chi_n(z2)]``,
+
+    ``z1 = m1 x``, ``z2 = m2 x``, ``G1 = z1 D_n(z1) - (n+1)``. These are B&H's
+    ``A_n``, ``B_n`` rewritten with ``psi_n G_n = -z psi_{n+1}`` so that the
+    factor ``m2^2 - m1^2`` appears explicitly (equal materials give
+    ``A_n = B_n = 0`` to rounding) and ``G1`` enters linear-fractionally (no
+    trouble at its poles). The functions of complex argument are scaled by
+    ``exp(-Im z)``, which cancels in every ratio, so thick absorbing shells do
+    not overflow; the formulation is not the Toon & Ackerman algorithm, and
+    for shells much thicker than the skin depth at large size parameters it
+    has not been tested.
+
+    References
+    ----------
+    Bohren & Huffman (1983), §8.1, eq. 8.2 (coated sphere); Aden & Kerker,
+    J. Appl. Phys. 22, 1242 (1951).
+    """
+    n_max = _check_n_max(n_max)
+    xc = _check_size("x_core", x_core)
+    xs = _check_size("x_shell", x_shell)
+    _check_index("m_core", m_core)
+    _check_index("m_shell", m_shell)
+    if np.any(xc > xs):
+        raise InputError(
+            "x_core",
+            f"core size parameter must not exceed the shell's (x_core <= x_shell); "
+            f"got x_core = {xc!r}, x_shell = {xs!r}. Did you swap them?",
+        )
+    shape = _broadcast_shape(x_core, x_shell, m_core, m_shell)
+    ones = np.ones(shape)
+    x = x_core * ones
+    y = x_shell * ones
+    m1 = _as_complex(m_core) * ones
+    m2 = _as_complex(m_shell) * ones
+    z1 = m1 * x
+    z2 = m2 * x
+    w = m2 * y
+
+    def big_g_of(z, n_hi):
+        abs_z = float(np.max(np.abs(getval(z))))
+        return ratio_g(z * z, n_hi, downward_start(n_hi, abs_z))
+
+    g1 = big_g_of(z1, n_max)
+    psi2, chi2 = riccati_psi_chi(z2, big_g_of(z2, n_max + 1), n_max + 1)
+    psi_w, chi_w = riccati_psi_chi(w, big_g_of(w, n_max + 1), n_max + 1)
+    m1_sq = m1 * m1
+    m2_sq = m2 * m2
+    ga_list = []
+    gb_list = []
+    for n in range(1, n_max + 1):
+        p2, p2n = psi2[n + 1], psi2[n + 2]
+        c2, c2n = chi2[n + 1], chi2[n + 2]
+        big_a = (p2 * ((n + 1.0) * (m2_sq - m1_sq) + m2_sq * g1[n - 1]) + m1_sq * z2 * p2n) / (
+            c2 * (m2_sq * (n + 1.0 + g1[n - 1]) - m1_sq * (n + 1.0)) + m1_sq * z2 * c2n
+        )
+        big_b = (z2 * p2n + g1[n - 1] * p2) / (z2 * c2n + g1[n - 1] * c2)
+        pw, pwn = psi_w[n + 1], psi_w[n + 2]
+        cw, cwn = chi_w[n + 1], chi_w[n + 2]
+        ga_list.append(-w * (pwn - big_a * cwn) / (pw - big_a * cw))
+        gb_list.append(-w * (pwn - big_b * cwn) / (pw - big_b * cw))
+    return _coefficients_from_g(y, m2, ga_list, gb_list, n_max)
+
+
+def wiscombe_n_max(x) -> int:
+    """Number of multipole orders for converged efficiencies.
+
+    Parameters
+    ----------
+    x : array_like
+        Size parameter(s) [dimensionless]; the largest one sets the count.
+
+    Returns
+    -------
+    int
+        ``floor(x + 4 x^{1/3} + 2)`` at the largest ``x`` (at least 1).
+
+    References
+    ----------
+    Wiscombe, Appl. Opt. 19, 1505 (1980), eq. for ``N_stop`` (§III).
+    """
+    x_max = float(np.max(np.asarray(getval(x))))
+    return max(1, int(x_max + 4.0 * x_max ** (1.0 / 3.0) + 2.0))
+
+
+def mie_efficiencies(x, m, n_max: int | None = None) -> MieEfficiencies:
+    """Extinction, scattering, absorption, backscattering efficiencies; asymmetry.
+
+    Parameters
+    ----------
+    x : array_like (real)
+        Size parameter ``k_host * radius``, > 0 [dimensionless].
+    m : array_like (complex)
+        Relative refractive index, ``Im m >= 0`` [dimensionless].
+    n_max : int, optional
+        Number of orders summed; default :func:`wiscombe_n_max` of ``x``.
+
+    Returns
+    -------
+    MieEfficiencies
+        ``qext``, ``qsca``, ``qabs``, ``qback`` [dimensionless, per geometric
+        cross section ``pi radius^2``] and ``g`` [dimensionless], each of shape
+        ``broadcast(x, m).shape``.
+
+    Notes
+    -----
+    ``qext = (2/x^2) sum (2n+1) Re(a_n + b_n)``,
+    ``qsca = (2/x^2) sum (2n+1)(|a_n|^2 + |b_n|^2)``, ``qabs = qext - qsca``,
+    ``qback = (1/x^2) |sum (2n+1)(-1)^n (a_n - b_n)|^2``,
+    ``g qsca = (4/x^2) [sum n(n+2)/(n+1) Re(a_n a*_{n+1} + b_n b*_{n+1})
+    + sum (2n+1)/(n(n+1)) Re(a_n b*_n)]`` (the ``n+1`` terms beyond ``n_max``
+    taken as zero).
+
+    References
+    ----------
+    Bohren & Huffman (1983), eqs. 4.61 (qsca), 4.62 (qext), §4.5 (asymmetry
+    parameter); backscattering from the amplitude ``S_1(180 deg)`` of eq. 4.74
+    [equation numbers of §4.5 not re-checked]; Wiscombe, Appl. Opt. 19, 1505
+    (1980).
+    """
+    if n_max is None:
+        _check_size("x", x)
+        n_max = wiscombe_n_max(x)
+    a, b = mie_coefficients(x, m, n_max)
+    x = x * np.ones(np.shape(getval(a))[:-1])
+    n = np.arange(1, n_max + 1, dtype=float)
+    two_n1 = 2.0 * n + 1.0
+    inv_x2 = 1.0 / (x * x)
+    qext = 2.0 * inv_x2 * np.sum(two_n1 * np.real(a + b), axis=-1)
+    qsca = 2.0 * inv_x2 * np.sum(two_n1 * (np.abs(a) ** 2 + np.abs(b) ** 2), axis=-1)
+    sign = np.where(n % 2 == 0, 1.0, -1.0)
+    qback = inv_x2 * np.abs(np.sum(two_n1 * sign * (a - b), axis=-1)) ** 2
+    cross = np.sum(two_n1 / (n * (n + 1.0)) * np.real(a * np.conj(b)), axis=-1)
+    if n_max > 1:
+        nn = n[:-1]
+        pairs = np.real(a[..., :-1] * np.conj(a[..., 1:]) + b[..., :-1] * np.conj(b[..., 1:]))
+        cross = cross + np.sum(nn * (nn + 2.0) / (nn + 1.0) * pairs, axis=-1)
+    g = 4.0 * inv_x2 * cross / qsca
+    return MieEfficiencies(qext=qext, qsca=qsca, qabs=qext - qsca, qback=qback, g=g)
+
+
+def dipole_polarizabilities(a1, b1, k):
+    """Electric and magnetic dipole polarizabilities from ``a_1``, ``b_1``.
+
+    Parameters
+    ----------
+    a1 : array_like (complex)
+        Electric dipole Mie coefficient ``a_1`` [dimensionless].
+    b1 : array_like (complex)
+        Magnetic dipole Mie coefficient ``b_1`` [dimensionless].
+    k : array_like (real)
+        Host wavenumber ``2 pi n_host / lambda``, > 0 [1/m]. Broadcasts with
+        ``a1`` and ``b1``.
+
+    Returns
+    -------
+    alpha_e, alpha_m : complex arrays
+        ``alpha_e = 6 pi i a_1 / k^3`` and ``alpha_m = 6 pi i b_1 / k^3`` [m^3],
+        normalized as ``P = p / (eps0 eps_host) = alpha_e E_loc`` and
+        ``Z m = alpha_m Z H_loc`` (``Z`` the host impedance).
+
+    Notes
+    -----
+    These include the radiative reaction exactly: for a lossless sphere
+    ``Im(1/alpha) = -k^3/(6 pi)``; for ``x -> 0``,
+    ``alpha_e -> 4 pi R^3 (m^2 - 1)/(m^2 + 2)`` (Clausius-Mossotti).
+
+    References
+    ----------
+    Evlyukhin et al., Phys. Rev. B 82, 045404 (2010), eq. for the Mie dipole
+    polarizabilities; García de Abajo, Rev. Mod. Phys. 79, 1267 (2007);
+    FORMULAS.md §2.
+    """
+    k_val = np.asarray(getval(k))
+    if np.iscomplexobj(k_val) or not np.all(np.isfinite(k_val)) or np.any(k_val <= 0):
+        raise InputError("k", f"host wavenumber must be real, finite and > 0 [1/m], got {k_val!r}")
+    scale = 6.0 * math.pi * 1j / k**3
+    return scale * a1, scale * b1

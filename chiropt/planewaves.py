@@ -1,0 +1,110 @@
+"""Plane waves of the diffraction orders: wavevectors, polarization basis, helicity vectors.
+
+Owns: the (p, s, k) basis of every order (FORMULAS.md §3), the kz branch, the
+circular (helicity) polarization vectors, and the z-directed power flux of a plane
+wave. Pure array functions, autograd-differentiable.
+Must not import: solve, fields, metrics, search, store, report, cli.
+
+Conventions (PHYSICS.md §1, §3): ``s = z x q_hat`` (``q_hat`` = the incidence azimuth
+direction when q = 0), ``p± = s x k_hat±`` with ``k_hat± = (q, ±kz)/k``, so that
+(p, s, k_hat) is right-handed; ``kz = sqrt(k^2 - |q|^2)`` with ``Im kz >= 0`` and
+``kz > 0`` when real. A helicity-``h`` wave has the polarization ``(p + i h s)/sqrt(2)``:
+``h = +1`` gives positive optical chirality (checked by a test).
+"""
+
+from __future__ import annotations
+
+import autograd.numpy as np
+
+
+def kz_branch(k, qq):
+    """Normal wavenumber ``sqrt(k^2 - qq)`` with ``Im >= 0`` (``> 0`` real part when propagating).
+
+    Parameters
+    ----------
+    k : array — wavenumber of the medium (real, or complex with Im >= 0) [1/m]
+    qq : array — squared in-plane wavenumber |q|^2 [1/m^2], broadcast against k
+
+    Notes
+    -----
+    The principal square root has ``Re >= 0``; its argument ``k^2 - qq`` has
+    ``Im >= 0`` for passive media (``+0j`` for lossless ones), so the principal
+    branch is the physical one (PHYSICS.md §3).
+    """
+    arg = k ** 2 - qq + 0j
+    return np.sqrt(arg)
+
+
+def order_basis(q, kz, k, azimuth):
+    """Unit vectors of plane waves with in-plane wavevectors ``q``.
+
+    Parameters
+    ----------
+    q : (..., 2) in-plane wavevectors [1/m]
+    kz : (...) normal wavenumbers from :func:`kz_branch` [1/m]
+    k : (...) medium wavenumber [1/m] (broadcast against kz)
+    azimuth : scalar — direction [rad] used for ``q_hat`` where ``q = 0``
+
+    Returns
+    -------
+    s, p_up, p_down, k_up, k_down : (..., 3) complex vectors. ``k_up = (q, kz)/k``;
+        p vectors are complex for evanescent waves; dot products with them are
+        bilinear (no conjugation), FORMULAS.md §3.
+    """
+    qq = q[..., 0] ** 2 + q[..., 1] ** 2
+    nonzero = qq > 0
+    safe = np.sqrt(np.where(nonzero, qq, 1.0))
+    qx = np.where(nonzero, q[..., 0] / safe, np.cos(azimuth))
+    qy = np.where(nonzero, q[..., 1] / safe, np.sin(azimuth))
+    zero = np.zeros_like(qx)
+    s = np.stack([-qy, qx, zero], axis=-1) + 0j
+    k = k + 0j * kz
+    k_up = np.stack([q[..., 0] / k, q[..., 1] / k, kz / k], axis=-1)
+    k_down = np.stack([q[..., 0] / k, q[..., 1] / k, -kz / k], axis=-1)
+    p_up = cross(s, k_up)
+    p_down = cross(s, k_down)
+    return s, p_up, p_down, k_up, k_down
+
+
+def cross(a, b):
+    """Cross product over the last axis (length 3), autograd-friendly."""
+    return np.stack([a[..., 1] * b[..., 2] - a[..., 2] * b[..., 1],
+                     a[..., 2] * b[..., 0] - a[..., 0] * b[..., 2],
+                     a[..., 0] * b[..., 1] - a[..., 1] * b[..., 0]], axis=-1)
+
+
+def cross_matrix(c):
+    """Matrix ``[c x]`` of the cross product, shape (..., 3, 3): ``[c x] v = c x v``."""
+    z = np.zeros_like(c[..., 0])
+    return np.stack([np.stack([z, -c[..., 2], c[..., 1]], axis=-1),
+                     np.stack([c[..., 2], z, -c[..., 0]], axis=-1),
+                     np.stack([-c[..., 1], c[..., 0], z], axis=-1)], axis=-2)
+
+
+def helicity_vectors(s, p):
+    """Circular polarization vectors ``(p + i h s)/sqrt(2)`` for h = +1, -1.
+
+    Returns an array of shape (..., 2, 3), helicity order [+1, -1].
+    """
+    return np.stack([(p + 1j * s) / np.sqrt(2.0), (p - 1j * s) / np.sqrt(2.0)], axis=-2)
+
+
+def z_flux(E, kvec_over_k0):
+    """z component of the time-averaged Poynting vector, in units of 1/(2 Z0).
+
+    Parameters
+    ----------
+    E : (..., 3) complex field amplitude [V/m]
+    kvec_over_k0 : (..., 3) complex wavevector divided by the vacuum wavenumber
+        (so that ``Z0 H = kvec/k0 x E``, Maxwell-Faraday for exp(-i omega t), mu = 1)
+
+    Returns
+    -------
+    Re[(E x conj(Z0 H))_z] [V^2/m^2]; multiply by 1/(2 Z0) for W/m^2.
+
+    References
+    ----------
+    Jackson, Classical Electrodynamics, 3rd ed., eq. (6.132) (complex Poynting vector).
+    """
+    H = cross(kvec_over_k0, E)
+    return np.real(E[..., 0] * np.conj(H[..., 1]) - E[..., 1] * np.conj(H[..., 0]))
