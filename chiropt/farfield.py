@@ -13,25 +13,30 @@ from __future__ import annotations
 import autograd.numpy as np
 
 from chiropt.planewaves import z_flux
-from chiropt.solve import Solution, substrate_basis
+from chiropt.solve import Solution, _slice_orders, substrate_basis
 
 
-def _host_flux(sol: Solution, amp, direction: str):
-    """Flux (units 1/(2 Z0)) of host orders with amplitudes amp (W, 2, G, 3), summed."""
-    st, o = sol.structure, sol.orders
-    kv = (o.k_up if direction == "up" else o.k_down) * (st.n_host + 0j)
-    prop = (np.real(o.kz) > 0) & (np.abs(np.imag(o.kz)) <= 1e-12 * st.k[:, None])
-    f = z_flux(amp, kv[:, None])
+def _host_flux(sol: Solution):
+    """Upward flux (units 1/(2 Z0)) of the propagating host orders, summed, (W, 2)."""
+    st, o, n = sol.structure, sol.orders, sol.n_far
+    kv = o.k_up[:, :n] * (st.n_host + 0j)
+    kz = o.kz[:, :n]
+    prop = (np.real(kz) > 0) & (np.abs(np.imag(kz)) <= 1e-12 * st.k[:, None])
+    f = z_flux(sol.up_vectors(n), kv[:, None])
     return np.sum(np.where(prop[:, None], f, 0.0), axis=-1)
 
 
 def _exit_flux(sol: Solution):
-    st, o = sol.structure, sol.orders
+    """Downward flux (negative, units 1/(2 Z0)) below the stack, summed over orders, (W, 2)."""
+    st, o, n = sol.structure, sol.orders, sol.n_far
     if st.has_substrate:
-        _, _, _, kvec = substrate_basis(st, o)
-        f = z_flux(sol.exit_down, kvec[:, None])
-        return np.sum(f, axis=-1)
-    return _host_flux(sol, sol.exit_down, "down")
+        _, _, _, kvec = substrate_basis(st, _slice_orders(o, n))
+        return np.sum(z_flux(sol.exit_vectors(n), kvec[:, None]), axis=-1)
+    kv = o.k_down[:, :n] * (st.n_host + 0j)
+    kz = o.kz[:, :n]
+    prop = (np.real(kz) > 0) & (np.abs(np.imag(kz)) <= 1e-12 * st.k[:, None])
+    f = z_flux(sol.exit_vectors(n), kv[:, None])
+    return np.sum(np.where(prop[:, None], f, 0.0), axis=-1)
 
 
 def incident_flux(sol: Solution):
@@ -57,7 +62,7 @@ def power_fractions(sol: Solution) -> dict:
     """
     st = sol.structure
     inc = incident_flux(sol)[:, None]
-    up = _host_flux(sol, sol.up, "up") / inc
+    up = _host_flux(sol) / inc
     down = -_exit_flux(sol) / inc
     if st.side == "host":
         R, T = up, down

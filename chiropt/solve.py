@@ -25,7 +25,7 @@ from autograd.tracer import getval
 
 from chiropt.lattice import lattice_green_dyadics, order_indices, order_wavevectors
 from chiropt.lattice.orders import KZ_FLOOR
-from chiropt.planewaves import cross, cross_matrix, helicity_vectors, kz_branch, order_basis
+from chiropt.planewaves import cross_matrix, kz_branch, order_basis
 from chiropt.stack import stack_coefficients
 from chiropt.structure import Structure
 
@@ -61,28 +61,52 @@ class OrderSet:
 class Solution:
     """Induced moments and order amplitudes for both incident helicities [+1, -1].
 
+    Plane-wave amplitudes are components on (s, p) of each order, referenced at z_top:
+
     moments : (W, 2, N, 6) [P, M] per particle [V m]
-    up : (W, 2, G, 3) upward amplitude in the host at z_top, all sources (incident
+    up_sp : (W, 2, G, 2) upward wave in the host above all particles (incident
         specular/transmitted part, direct emission, stack-reflected emission) [V/m]
-    down_scat : (W, 2, G, 3) downward amplitude emitted by the particles at z_top [V/m]
-    exit_down : (W, 2, G, 3) downward amplitude just below the stack (z = 0-, in the
-        substrate), or in the host at z_top without substrate [V/m]
-    incident_down : (W, 2, 3) downward incident amplitude in the host at z_top
-        (zero for substrate-side illumination) [V/m]
+    down_sp : (W, 2, G, 2) downward wave emitted by the particles [V/m]
+    exit_sp : (W, 2, G, 2) downward wave just below the stack (z = 0-, in the substrate,
+        basis (s, p_down) of the substrate), or in the host without substrate [V/m]
+    incident_sp : (W, 2, 2) downward incident wave in the host at z_top (zero for
+        substrate-side illumination) [V/m]
+    local_E, local_H : (W, 2, N, 3) exciting fields E and Z H at the particles [V/m]
     rayleigh : (W,) smallest |kz|/k over host (and substrate) orders
+    n_far : number of leading orders that can propagate in the host or substrate
     """
 
     structure: Structure
     orders: OrderSet
     moments: Any
-    up: Any
-    down_scat: Any
-    exit_down: Any
-    incident_down: Any
+    up_sp: Any
+    down_sp: Any
+    exit_sp: Any
+    incident_sp: Any
     local_E: Any
     local_H: Any
     rayleigh: Any
     eps_exit: Any
+    n_far: int
+
+    def up_vectors(self, count: int | None = None):
+        """Upward amplitude vectors (W, 2, G', 3) of the first ``count`` orders."""
+        o, n = self.orders, count or len(self.orders.mn)
+        return _vectors(self.up_sp[:, :, :n], o.s[:, :n], o.p_up[:, :n])
+
+    def exit_vectors(self, count: int | None = None):
+        """Downward amplitude vectors below the stack (W, 2, G', 3), first ``count`` orders."""
+        o, n = self.orders, count or len(self.orders.mn)
+        if self.structure.has_substrate:
+            _, _, pd, _ = substrate_basis(self.structure, _slice_orders(o, n))
+        else:
+            pd = o.p_down[:, :n]
+        return _vectors(self.exit_sp[:, :, :n], o.s[:, :n], pd)
+
+    def incident_vector(self):
+        """Downward incident amplitude vector in the host at z_top, (W, 2, 3)."""
+        o = self.orders
+        return _vectors(self.incident_sp[:, :, None, :], o.s[:, :1], o.p_down[:, :1])[:, :, 0]
 
 
 def make_orders(structure: Structure, g_max: float) -> OrderSet:
@@ -122,30 +146,25 @@ def orders_radius(structure: Structure) -> float:
     return g * 1.0000001
 
 
-def _emission(orders: OrderSet, k, area):
-    """Plane-wave emission operators (W, G, 3, 6) of a dipole sheet, up and down.
+def _sp_vectors(orders: OrderSet):
+    """6-vectors sigma± = (s, -p±) and pi± = (p±, s), each (W, G, 6).
 
-    ``E_g = (i k^2 / (2 A kz)) [(I - k k) P - k x M]`` (FORMULAS.md §3, Weyl expansion).
+    A plane wave with components (a_s, a_p) on (s, p±) has the 6-field
+    (E, Z H) = a_s sigma± + a_p pi± (since k± x s = -p±, k± x p± = s), and a dipole
+    sheet (P, M) radiates into it a_s = pref sigma±.x, a_p = pref pi±.x with
+    pref = i k^2/(2 A kz) (FORMULAS.md §3: E_g = pref [(I - k k) P - k x M]).
     """
-    pref = 1j * k[:, None] ** 2 / (2.0 * area * orders.kz)
-    out = []
-    for kv in (orders.k_up, orders.k_down):
-        proj = np.eye(3) - kv[..., :, None] * kv[..., None, :]
-        op = np.concatenate([proj, -cross_matrix(kv)], axis=-1)
-        out.append(pref[..., None, None] * op)
+    out = {}
+    for name, p in (("up", orders.p_up), ("down", orders.p_down)):
+        out["sigma_" + name] = np.concatenate([orders.s, -p], axis=-1)
+        out["pi_" + name] = np.concatenate([p, orders.s], axis=-1)
     return out
 
 
-def _phases(orders: OrderSet, centres, z_top):
-    """exp(-i q.rho_j) exp(-/+ i kz h_j) for upward/downward emission from particle j.
-
-    Returns (up, down), each (W, G, N).
-    """
-    rho = centres[:, :2]
-    h = centres[:, 2] - z_top
-    qr = np.einsum("wgc,nc->wgn", orders.q, rho)
-    kzh = orders.kz[..., None] * h[None, None, :]
-    return np.exp(-1j * qr - 1j * kzh), np.exp(-1j * qr + 1j * kzh)
+def _flatten_particles(vec6, phase):
+    """(W, G, 6) x (W, G, N) -> (W, G, 6N), index j*6 + a."""
+    W, G = phase.shape[:2]
+    return (phase[..., :, None] * vec6[..., None, :]).reshape(W, G, -1)
 
 
 def _stack(structure: Structure, orders: OrderSet, side: str):
@@ -154,15 +173,8 @@ def _stack(structure: Structure, orders: OrderSet, side: str):
                               structure.thicknesses, structure.eps_substrate, from_side=side)
 
 
-def _reflect(coef, orders: OrderSet, D):
-    """Upward amplitude r_s (s.D) s + r_p (p_down.D) p_up for downward amplitudes D (.., G, 3)."""
-    a_s = np.sum(orders.s * D, axis=-1)
-    a_p = np.sum(orders.p_down * D, axis=-1)
-    return (coef.r_s * a_s)[..., None] * orders.s + (coef.r_p * a_p)[..., None] * orders.p_up
-
-
 def substrate_basis(structure: Structure, orders: OrderSet):
-    """Wavevectors/k0 (down) and p vectors (up, down) of the orders in the substrate."""
+    """kz, p vectors (up, down) and wavevector/k0 (down) of the orders in the substrate."""
     k2 = np.sqrt(structure.eps_substrate)[:, None] * structure.k0[:, None]
     kz2 = kz_branch(k2, orders.qn ** 2)
     s, pu, pd, ku, kd = order_basis(orders.q, kz2, k2, structure.azimuth)
@@ -170,24 +182,31 @@ def substrate_basis(structure: Structure, orders: OrderSet):
     return kz2, pu, pd, kvec_down
 
 
-def _transmit(coef, orders: OrderSet, sub_p_down, D):
-    """Downward amplitude in the substrate at z = 0 for downward host amplitudes D at z_top."""
-    a_s = np.sum(orders.s * D, axis=-1)
-    a_p = np.sum(orders.p_down * D, axis=-1)
-    return (coef.t_s * a_s)[..., None] * orders.s + (coef.t_p * a_p)[..., None] * sub_p_down
+def _vectors(comp, s, p):
+    """Amplitude vectors a_s s + a_p p: comp (W, 2, G, 2), s, p (W, G, 3) -> (W, 2, G, 3)."""
+    return comp[..., 0:1] * s[:, None] + comp[..., 1:2] * p[:, None]
 
 
-def solve(structure: Structure, *, warn: bool = True) -> Solution:
+def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None) -> Solution:
     """Solve the coupled dipole equations for both incident helicities.
 
     Parameters
     ----------
     structure : Structure (SI arrays; may be autograd-traced)
     warn : bool — emit :class:`RayleighAnomalyWarning` near a grazing order
+    g_max : float, optional — keep at least the orders with |G| <= g_max [1/m]
+        (near fields need evanescent orders; the far field and the stack pick their own)
 
     Returns
     -------
     Solution
+
+    Notes
+    -----
+    The stack-reflected interaction is a sum over orders of rank-2 operators
+    (s and p channels), assembled as one batched matrix product
+    (W, 6N, G) @ (W, G, 6N) per channel. The sum over all orders contains each
+    particle's own image (FORMULAS.md §3).
 
     References
     ----------
@@ -198,106 +217,93 @@ def solve(structure: Structure, *, warn: bool = True) -> Solution:
     W = len(getval(st.k0))
     N = len(getval(st.radii))
     k = st.k
-    area = st.lattice.area
-    orders = make_orders(st, orders_radius(st))
+    orders = make_orders(st, max(orders_radius(st), float(g_max or 0.0)))
     G = len(orders.mn)
     centres = st.centres
     h = centres[:, 2] - st.z_top
+    rho = centres[:, :2]
 
     # -- lattice interaction (Ewald) ------------------------------------------------
     d = (centres[:, None, :] - centres[None, :, :]).reshape(N * N, 3)
     S, c = lattice_green_dyadics(k, st.k_par, st.lattice, d, tol=st.tolerance)
     S = S.reshape(W, N, N, 3, 3)
     Cm = cross_matrix(c.reshape(W, N, N, 3))
-    k2 = (k ** 2)[:, None, None, None, None]
     top = np.concatenate([S, 1j * Cm], axis=-1)
     bottom = np.concatenate([-1j * Cm, S], axis=-1)
-    Wmat = k2 * np.concatenate([top, bottom], axis=-2)  # (W, N, N, 6, 6)
+    Wmat = (k ** 2)[:, None, None, None, None] * np.concatenate([top, bottom], axis=-2)
+    Wflat = np.transpose(Wmat, (0, 1, 3, 2, 4)).reshape(W, 6 * N, 6 * N)
 
-    em_up, em_down = _emission(orders, k, area)
-    ph_up, ph_down = _phases(orders, centres, st.z_top)
-    # receive an upward amplitude V at z_top: E = V e^{i q.rho_i + i kz h_i}, ZH = k_up x E
-    recv = np.exp(1j * np.einsum("wgc,nc->wgn", orders.q, centres[:, :2])
-                  + 1j * orders.kz[..., None] * h[None, None, :])  # (W, G, N)
-    receive_op = np.concatenate([np.broadcast_to(np.eye(3), cross_matrix(orders.k_up).shape),
-                                 cross_matrix(orders.k_up)], axis=-2)  # (W, G, 6, 3)
+    # -- plane-wave channels of every order ------------------------------------------
+    vec = _sp_vectors(orders)
+    pref = 1j * k[:, None] ** 2 / (2.0 * st.lattice.area * orders.kz)  # (W, G)
+    qr = np.einsum("wgc,nc->wgn", orders.q, rho)
+    kzh = orders.kz[..., None] * h[None, None, :]
+    ph_up = pref[..., None] * np.exp(-1j * qr - 1j * kzh)    # emission, upward
+    ph_down = pref[..., None] * np.exp(-1j * qr + 1j * kzh)  # emission, downward
+    recv_up = np.exp(1j * qr + 1j * kzh)                      # receive an upward wave
+    emit = {ch + "_" + dr: _flatten_particles(vec[ch + "_" + dr], ph)
+            for ch in ("sigma", "pi") for dr, ph in (("up", ph_up), ("down", ph_down))}
 
     if st.has_substrate:
         coef = _stack(st, orders, "host")
-        s_, pu_, pd_ = orders.s, orders.p_up, orders.p_down
-        Rf = (coef.r_s[..., None, None] * s_[..., :, None] * s_[..., None, :]
-              + coef.r_p[..., None, None] * pu_[..., :, None] * pd_[..., None, :])
-        K = np.einsum("wgab,wgbc,wgcd->wgad", receive_op, Rf, em_down)  # (W, G, 6, 6)
-        Wref = np.einsum("wgi,wgj,wgab->wijab", recv, ph_down, K)
-        Wmat = Wmat + Wref
-    Wflat = np.transpose(Wmat, (0, 1, 3, 2, 4)).reshape(W, 6 * N, 6 * N)
+        for ch, r in (("sigma", coef.r_s), ("pi", coef.r_p)):
+            recv = _flatten_particles(vec[ch + "_up"], recv_up * r[..., None])  # (W, G, 6N)
+            Wflat = Wflat + np.matmul(np.transpose(recv, (0, 2, 1)), emit[ch + "_down"])
 
-    # -- background field -------------------------------------------------------------
-    basis0 = tuple(v[:, 0] for v in (orders.s, orders.p_up, orders.p_down, orders.k_up,
-                                     orders.k_down))
-    s0, pu0, pd0, ku0, kd0 = basis0
+    # -- background field: (0,0)-order components on (s, p) ------------------------------
+    hel = np.array([[1j, 1.0], [-1j, 1.0]]) / np.sqrt(2.0)  # (helicity, [s, p]) of (p + i h s)
     kz0 = orders.kz[:, 0]
+    zeros = np.zeros((W, 2, 2), dtype=complex)
     if st.side == "host":
-        e_inc = helicity_vectors(s0, pd0)  # (W, 2, 3)
-        D0 = e_inc * np.exp(-1j * kz0 * st.z_top)[:, None, None]
+        D0 = hel[None] * np.exp(-1j * kz0 * st.z_top)[:, None, None]  # (W, 2, 2)
         if st.has_substrate:
-            Dg = D0[:, :, None, :]
-            o0 = _slice_order0(orders)
-            coef0 = _stack(st, o0, "host")
-            U0 = _reflect(coef0, o0, Dg)[:, :, 0, :]
-            kz2, sub_pu, sub_pd, sub_kvec = substrate_basis(st, o0)
-            X0 = _transmit(coef0, o0, sub_pd, Dg)[:, :, 0, :]
+            U0 = D0 * np.stack([coef.r_s[:, 0], coef.r_p[:, 0]], axis=-1)[:, None]
+            X0 = D0 * np.stack([coef.t_s[:, 0], coef.t_p[:, 0]], axis=-1)[:, None]
         else:
-            U0 = np.zeros_like(D0)
-            X0 = D0
+            U0, X0 = zeros, D0
     else:
-        o0 = _slice_order0(orders)
-        kz2, sub_pu, sub_pd, sub_kvec = substrate_basis(st, o0)
-        e_inc = helicity_vectors(s0, sub_pu[:, 0])  # upward in the substrate, at z = 0
-        coef_s = _stack(st, o0, "substrate")
-        a_s = np.sum(s0[:, None, :] * e_inc, axis=-1)
-        a_p = np.sum(sub_pu[:, 0][:, None, :] * e_inc, axis=-1)
-        U0 = (coef_s.t_s[:, :1] * a_s)[..., None] * s0[:, None, :] + \
-             (coef_s.t_p[:, :1] * a_p)[..., None] * pu0[:, None, :]
-        X0 = (coef_s.r_s[:, :1] * a_s)[..., None] * s0[:, None, :] + \
-             (coef_s.r_p[:, :1] * a_p)[..., None] * sub_pd[:, 0][:, None, :]
-        D0 = np.zeros_like(U0)
-    rho = centres[:, :2]
+        coef_s = _stack(st, _slice_order0(orders), "substrate")
+        U0 = hel[None] * np.stack([coef_s.t_s[:, 0], coef_s.t_p[:, 0]], axis=-1)[:, None]
+        X0 = hel[None] * np.stack([coef_s.r_s[:, 0], coef_s.r_p[:, 0]], axis=-1)[:, None]
+        D0 = zeros
     ph0 = np.exp(1j * np.einsum("wc,nc->wn", orders.q[:, 0], rho))  # (W, N)
-    dn = np.exp(-1j * kz0[:, None] * h[None, :]) * ph0
-    upp = np.exp(1j * kz0[:, None] * h[None, :]) * ph0
-    E_bg = D0[:, :, None, :] * dn[:, None, :, None] + U0[:, :, None, :] * upp[:, None, :, None]
-    H_bg = (cross(kd0[:, None, :], D0)[:, :, None, :] * dn[:, None, :, None]
-            + cross(ku0[:, None, :], U0)[:, :, None, :] * upp[:, None, :, None])
-    b = np.concatenate([E_bg, H_bg], axis=-1)  # (W, 2, N, 6)
+    dn = (ph0 * np.exp(-1j * kz0[:, None] * h[None, :]))[:, None, :, None]
+    upp = (ph0 * np.exp(1j * kz0[:, None] * h[None, :]))[:, None, :, None]
+    v0 = {key: v[:, 0][:, None, None, :] for key, v in vec.items()}  # (W, 1, 1, 6)
+    b = ((D0[..., 0, None, None] * v0["sigma_down"] + D0[..., 1, None, None] * v0["pi_down"])
+         * dn + (U0[..., 0, None, None] * v0["sigma_up"] + U0[..., 1, None, None] * v0["pi_up"])
+         * upp)  # (W, 2, N, 6)
 
     # -- solve (I - alpha W) x = alpha b ------------------------------------------------
     alpha = np.concatenate([np.repeat(st.alpha_e[..., None], 3, axis=-1),
-                            np.repeat(st.alpha_m[..., None], 3, axis=-1)], axis=-1)  # (W, N, 6)
+                            np.repeat(st.alpha_m[..., None], 3, axis=-1)], axis=-1)
     alpha = alpha.reshape(W, 6 * N)
     A = np.eye(6 * N)[None] - alpha[:, :, None] * Wflat
     rhs = alpha[:, :, None] * np.transpose(b.reshape(W, 2, 6 * N), (0, 2, 1))
     x = np.linalg.solve(A, rhs)  # (W, 6N, 2)
-    moments = np.transpose(x, (0, 2, 1)).reshape(W, 2, N, 6)
-
-    # local (exciting) field at each particle: x / alpha
+    xt = np.transpose(x, (0, 2, 1))  # (W, 2, 6N)
+    moments = xt.reshape(W, 2, N, 6)
     loc = moments / alpha.reshape(W, 1, N, 6)
 
-    # -- outgoing orders --------------------------------------------------------------
-    up_dir = np.einsum("wgab,wgn,wtnb->wtga", em_up, ph_up, moments)
-    down = np.einsum("wgab,wgn,wtnb->wtga", em_down, ph_down, moments)
-    zero_order = (np.arange(G) == 0)[None, None, :, None]
+    # -- outgoing orders, components on (s, p) ------------------------------------------
+    def comps(direction):
+        return np.stack([np.einsum("wgk,wtk->wtg", emit["sigma_" + direction], xt),
+                         np.einsum("wgk,wtk->wtg", emit["pi_" + direction], xt)], axis=-1)
+
+    up_c, down_c = comps("up"), comps("down")  # (W, 2, G, 2)
+    first = (np.arange(G) == 0)[None, None, :, None]
     if st.has_substrate:
-        up = up_dir + _reflect(coef, orders, down) + zero_order * U0[:, :, None, :]
-        kz2, sub_pu, sub_pd, sub_kvec = substrate_basis(st, orders)
-        exit_down = _transmit(coef, orders, sub_pd[:, None], down) + \
-            zero_order * X0[:, :, None, :]
+        rr = np.stack([coef.r_s, coef.r_p], axis=-1)[:, None]
+        tt = np.stack([coef.t_s, coef.t_p], axis=-1)[:, None]
+        up_c = up_c + rr * down_c + first * U0[:, :, None, :]
+        exit_c = tt * down_c + first * X0[:, :, None, :]
         eps_exit = st.eps_substrate
     else:
-        up = up_dir
-        exit_down = down + zero_order * X0[:, :, None, :]
+        exit_c = down_c + first * X0[:, :, None, :]
         eps_exit = st.n_host ** 2 * np.ones_like(st.k0)
-
+    # orders that can propagate in some medium (sorted by |G|, so a leading block)
+    k_prop = orders_radius_far(st)
+    n_far = int(np.sum(np.linalg.norm(_plain_G(orders, st), axis=-1) <= k_prop))
     rayleigh = np.min(np.abs(getval(orders.kz)) / getval(k)[:, None], axis=1)
     if st.has_substrate:
         k2v = np.sqrt(getval(st.eps_substrate))[:, None] * getval(st.k0)[:, None]
@@ -308,13 +314,33 @@ def solve(structure: Structure, *, warn: bool = True) -> Solution:
         warnings.warn(f"a diffraction order grazes (Rayleigh anomaly) at wavelength(s) "
                       f"{', '.join(f'{w:.6g}' for w in bad)} nm: results there are unreliable",
                       RayleighAnomalyWarning, stacklevel=2)
-    return Solution(structure=st, orders=orders, moments=moments, up=up, down_scat=down,
-                    exit_down=exit_down, incident_down=D0, local_E=loc[..., :3],
-                    local_H=loc[..., 3:], rayleigh=rayleigh, eps_exit=eps_exit)
+    return Solution(structure=st, orders=orders, moments=moments, up_sp=up_c,
+                    down_sp=down_c, exit_sp=exit_c, incident_sp=D0, local_E=loc[..., :3],
+                    local_H=loc[..., 3:], rayleigh=rayleigh, eps_exit=eps_exit, n_far=n_far)
+
+
+def _slice_orders(orders: OrderSet, n: int) -> OrderSet:
+    """The first n orders."""
+    return OrderSet(mn=orders.mn[:n], q=orders.q[:, :n], qn=orders.qn[:, :n],
+                    kz=orders.kz[:, :n], s=orders.s[:, :n], p_up=orders.p_up[:, :n],
+                    p_down=orders.p_down[:, :n], k_up=orders.k_up[:, :n],
+                    k_down=orders.k_down[:, :n])
 
 
 def _slice_order0(orders: OrderSet) -> OrderSet:
-    return OrderSet(mn=orders.mn[:1], q=orders.q[:, :1], qn=orders.qn[:, :1],
-                    kz=orders.kz[:, :1], s=orders.s[:, :1], p_up=orders.p_up[:, :1],
-                    p_down=orders.p_down[:, :1], k_up=orders.k_up[:, :1],
-                    k_down=orders.k_down[:, :1])
+    return _slice_orders(orders, 1)
+
+
+def _plain_G(orders: OrderSet, st: Structure):
+    """|G| vectors of the orders (plain values), (G, 2) [1/m]."""
+    return getval(orders.q)[0] - getval(st.k_par)[0][None, :]
+
+
+def orders_radius_far(st: Structure) -> float:
+    """|G| cut [1/m] containing every order propagating in the host or the substrate."""
+    k0 = getval(st.k0)
+    kmax = k0.max() * float(getval(st.n_host))
+    if st.has_substrate:
+        kmax = max(kmax, float(np.max(np.real(np.sqrt(getval(st.eps_substrate))) * k0)))
+    kpar = float(np.max(np.hypot(*getval(st.k_par).T)))
+    return (kmax + kpar) * 1.0000001

@@ -93,8 +93,8 @@ def test_sparse_lattice_approaches_isolated_sphere(m, x):
                       material={"n": float(np.real(m)), "k": float(np.imag(m))}, wl=(wl,))
         res = evaluate(des, keep_solution=True)
         sol = res.solution
-        e_inc = sol.incident_down[0, 0]
-        t00 = np.vdot(e_inc, sol.exit_down[0, 0, 0])  # forward zeroth-order amplitude
+        e_inc = sol.incident_vector()[0, 0]
+        t00 = np.vdot(e_inc, sol.exit_vectors(1)[0, 0, 0])  # forward zeroth-order amplitude
         sigma_lat = 2 * period ** 2 * np.real(1 - t00)
         errs.append(abs(sigma_lat / sigma - 1))
     # the lattice correction decays like 1/period with an oscillating phase

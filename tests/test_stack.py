@@ -486,11 +486,12 @@ def test_thick_film_against_airy_formula_no_overflow(n_film, d_um, from_side):
 
 
 def test_grazing_inside_a_film_is_regular():
-    """kz = 0 exactly inside a lossless film: finite, and continuous in q.
+    """kz = 0 exactly inside a lossless film: finite, continuous and differentiable in q.
 
     The coefficients are even in the film's kz (no branch point there), so a
-    relative change 1e-9 in q changes them by O(1e-9) at most.
-    (Born & Wolf §1.6.2: the characteristic matrix depends on kz^2 only.)
+    relative change 1e-9 in q changes them by O(1e-9) at most, and the q
+    derivative exists. (Born & Wolf §1.6.2: the characteristic matrix depends
+    on kz^2 only.)
     """
     k0 = np.array([1.0e7])
     eps_film = 4.0
@@ -503,6 +504,33 @@ def test_grazing_inside_a_film_is_regular():
         for step in (1e-9, -1e-9):
             near = _coeffs(stack_coefficients(q0 * (1 + step), k0, *args, from_side=side))
             np.testing.assert_allclose(at, near, rtol=0, atol=1e-7)
+
+        def f(scale, side=side):
+            res = stack_coefficients(q0 * scale, k0, *args, from_side=side)
+            return anp.sum(anp.real(res.r_p) + anp.imag(res.t_s))
+
+        g = grad(f)(1.0)
+        fd = (f(1 + 1e-6) - f(1 - 1e-6)) / 2e-6  # common practice, no source
+        assert np.isfinite(g) and abs(g - fd) <= 1e-6 * max(abs(fd), 1.0)
+
+
+@pytest.mark.parametrize("from_side", ["host", "substrate"])
+def test_continuous_across_series_switch(from_side):
+    """Film entries switch from power series to exponentials at |kz d| = 1;
+    both are exact, so the coefficients agree across the switch to 1e-14.
+    (Continuity of an entire function; common practice, no source.)"""
+    k0 = np.array([1.0e7])
+    q = np.array([[0.0, 1.5e7, 3.0e7]])  # propagating, grazing-near, evanescent in film
+    eps_film = (2.0 + 0.01j) ** 2
+    for Qi in range(3):
+        kap = abs(normal_wavenumber(q[:, Qi:Qi + 1], k0, eps_film)[0, 0]) / k0[0]
+        d_switch = 1.0 / (kap * k0[0])
+        below, above = (
+            _coeffs(stack_coefficients(q, k0, 1.0, [eps_film], [d_switch * (1 + s)], 2.25,
+                                       from_side=from_side))[:, 0, Qi]
+            for s in (-2e-15, 2e-15)
+        )
+        np.testing.assert_allclose(below, above, rtol=0, atol=1e-13)
 
 
 def test_normal_wavenumber_branch():
@@ -540,6 +568,8 @@ def _objective(param, which, Q, from_side):
     q = anp.outer(K0, Q)
     if which == "thickness":
         d = [param * NM, 90 * NM]
+    elif which == "thick_film":
+        d = [40 * NM, param * NM]
     elif which == "q":
         q = q * param
     elif which == "k0":
@@ -557,6 +587,7 @@ def _objective(param, which, Q, from_side):
 
 GRAD_POINTS = {
     "thickness": 40.0,
+    "thick_film": 700.0,
     "q": 1.0,
     "k0": 1.0,
     "eps_real": 4.08,
@@ -579,6 +610,31 @@ def test_gradient_against_finite_differences(which, regime, Q, from_side):
     f_minus = _objective(x0 - h, which, Q, from_side)
     fd = (f_plus - f_minus) / (2 * h)
     assert abs(g - fd) <= 1e-6 * max(abs(fd), 1e-3), (regime, g, fd)
+
+
+def _interface_objective(param, which, Q):
+    q = anp.outer(K0, Q)
+    eps2 = (0.3 + 3.1j) ** 2
+    if which == "q":
+        q = q * param
+    elif which == "eps_real":
+        eps2 = param + 1.9j
+    r_s, r_p, t_s, t_p = interface_coefficients(q, K0, 1.77, eps2)
+    T = power_flux_ratio(t_p, q, K0, 1.77, eps2, "p")
+    F = flux_factor(q, K0, eps2, "p") / K0[:, None]
+    kz = normal_wavenumber(q, K0, eps2) / K0[:, None]
+    return anp.sum(anp.real(r_p) + anp.imag(r_s) * anp.real(t_s) + T + F + anp.imag(kz))
+
+
+@pytest.mark.parametrize("which, x0", [("q", 1.0), ("eps_real", -9.5)])
+def test_interface_and_flux_gradients_against_finite_differences(which, x0):
+    # common practice, no source: central differences, step 1e-6 relative
+    Q = np.array([0.2, 0.9, 1.6, 4.0])
+    g = grad(_interface_objective)(x0, which, Q)
+    h = 1e-6 * abs(x0)
+    fd = (_interface_objective(x0 + h, which, Q) - _interface_objective(x0 - h, which, Q)) / (
+        2 * h)
+    assert abs(g - fd) <= 1e-6 * abs(fd)
 
 
 # ---------------------------------------------------------------------------

@@ -28,7 +28,7 @@ round-off of the anomaly). Use ``chiropt.lattice.orders.rayleigh_proximity`` to 
 from __future__ import annotations
 
 import autograd.numpy as np
-from autograd.tracer import getval
+from autograd.tracer import getval, isbox
 
 from chiropt.errors import InputError
 from chiropt.lattice.bravais import Lattice, integer_pairs_within
@@ -211,14 +211,16 @@ def _weyl(k, k_par, lattice, rho, z, mn):
 
 
 def _ewald_reach(kv, E, L, zmax):
-    """Plain truncation radii of the Ewald split: (spectral |q| cutoff, spatial |R| cutoff)."""
-    q_cut = np.max(np.sqrt(kv ** 2 + 4 * E ** 2 * (np.sqrt(L) + zmax * E) ** 2))
-    r_cut = np.max(np.sqrt(L + (kv / (2 * E)) ** 2) / E)
+    """Plain truncation radii of the Ewald split, maximized over the wavelength axis 0:
+    (spectral |q| cutoff, spatial |R| cutoff)."""
+    q_cut = np.max(np.sqrt(kv ** 2 + 4 * E ** 2 * (np.sqrt(L) + zmax * E) ** 2), axis=0)
+    r_cut = np.max(np.sqrt(L + (kv / (2 * E)) ** 2) / E, axis=0)
     return q_cut, r_cut
 
 
 def _weyl_reach(kv, L, zmin):
-    return np.max(np.sqrt(kv ** 2 + (L / zmin) ** 2))
+    """Plain |q| cutoff of the Weyl sum (evanescent decay exp(-sqrt(q^2-k^2)|z|) <= e^-L)."""
+    return np.max(np.sqrt(kv ** 2 + (L / zmin) ** 2), axis=0)
 
 
 def lattice_green_derivatives(k, k_par, lattice: Lattice, d, *, tol=1e-8, splitting=None):
@@ -256,7 +258,7 @@ def lattice_green_derivatives(k, k_par, lattice: Lattice, d, *, tol=1e-8, splitt
     """
     kv, kpv, dv, tol = _validate(k, k_par, d, tol, splitting)
     k_real = np.real(k) if np.iscomplexobj(getval(k)) else k
-    W, P = kv.size, dv.shape[0]
+    W = kv.size
     plain = lattice.plain()
     area = float(plain.area)
     E = (splitting_parameter(kv, plain) if splitting is None
@@ -268,12 +270,12 @@ def lattice_green_derivatives(k, k_par, lattice: Lattice, d, *, tol=1e-8, splitt
     # Choose Ewald or Weyl per displacement by the estimated number of terms.
     absz = np.abs(dv[:, 2])
     rho_abs = np.linalg.norm(dv[:, :2], axis=1)
-    use_weyl = np.zeros(P, dtype=bool)
-    for p in np.nonzero(absz > 1e-9 * np.sqrt(area))[0]:      # plain scalars, not physics
-        q_e, r_e = _ewald_reach(kv, E, L, absz[p])
-        cost_e = (q_e + kpar_max) ** 2 * area / (4 * np.pi) + np.pi * (r_e + rho_abs[p]) ** 2 / area
-        cost_w = (_weyl_reach(kv, L, absz[p]) + kpar_max) ** 2 * area / (4 * np.pi)
-        use_weyl[p] = cost_w <= cost_e
+    off_plane = absz > 1e-9 * np.sqrt(area)
+    q_e, r_e = _ewald_reach(kv[:, None], E[:, None], L, absz[None, :])          # (P,) each
+    cost_e = (q_e + kpar_max) ** 2 * area / (4 * np.pi) + np.pi * (r_e + rho_abs) ** 2 / area
+    z_safe = np.where(off_plane, absz, 1.0)
+    cost_w = (_weyl_reach(kv[:, None], L, z_safe[None, :]) + kpar_max) ** 2 * area / (4 * np.pi)
+    use_weyl = off_plane & (cost_w <= cost_e)
 
     parts, order = [], []
     idx_e = np.nonzero(~use_weyl)[0]
@@ -283,7 +285,10 @@ def lattice_green_derivatives(k, k_par, lattice: Lattice, d, *, tol=1e-8, splitt
         q_e, r_e = _ewald_reach(kv, E, L, zmax)
         mn = order_indices(plain, q_e + kpar_max)
         nm = integer_pairs_within(plain.a1, plain.a2, b1, b2, r_e + np.max(rho_abs[idx_e]))
-        spec = _ewald_spectral(k_real, k_par, lattice, de[:, :2], de[:, 2], E, mn, zmax == 0.0)
+        # all z = 0 and untraced: T- = T+ (halves the Faddeeva calls); a traced z keeps both
+        # so that the z-derivatives of S are right at z = 0
+        in_plane = zmax == 0.0 and not isbox(de)
+        spec = _ewald_spectral(k_real, k_par, lattice, de[:, :2], de[:, 2], E, mn, in_plane)
         spat = _ewald_spatial(k_real, k_par, lattice, de[:, :2], de[:, 2], E, nm,
                               (1e-12 ** 2) * area)
         parts.append(tuple(a + b for a, b in zip(spec, spat, strict=True)))

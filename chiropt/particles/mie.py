@@ -107,8 +107,14 @@ def _check_index(key: str, m) -> np.ndarray:
     return value
 
 
+def _as_array(v):
+    """``v`` as an array; autograd-traced values are returned unchanged."""
+    return v if getval(v) is not v else np.asarray(v)
+
+
 def _as_complex(m):
     """``m`` as a complex array (traced values stay traced)."""
+    m = _as_array(m)
     if np.iscomplexobj(getval(m)):
         return m
     return m + 0j
@@ -216,7 +222,7 @@ def mie_coefficients(x, m, n_max: int):
     _check_index("m", m)
     shape = _broadcast_shape(x, m)
     ones = np.ones(shape)
-    x = x * ones
+    x = _as_array(x) * ones
     m = _as_complex(m) * ones
     z_sq = (m * x) ** 2
     abs_z = float(np.max(np.abs(getval(m) * getval(x))))
@@ -293,8 +299,8 @@ def coreshell_mie_coefficients(x_core, x_shell, m_core, m_shell, n_max: int):
         )
     shape = _broadcast_shape(x_core, x_shell, m_core, m_shell)
     ones = np.ones(shape)
-    x = x_core * ones
-    y = x_shell * ones
+    x = _as_array(x_core) * ones
+    y = _as_array(x_shell) * ones
     m1 = _as_complex(m_core) * ones
     m2 = _as_complex(m_shell) * ones
     z1 = m1 * x
@@ -386,7 +392,7 @@ def mie_efficiencies(x, m, n_max: int | None = None) -> MieEfficiencies:
         _check_size("x", x)
         n_max = wiscombe_n_max(x)
     a, b = mie_coefficients(x, m, n_max)
-    x = x * np.ones(np.shape(getval(a))[:-1])
+    x = _as_array(x) * np.ones(np.shape(getval(a))[:-1])
     n = np.arange(1, n_max + 1, dtype=float)
     two_n1 = 2.0 * n + 1.0
     inv_x2 = 1.0 / (x * x)
@@ -438,5 +444,5 @@ def dipole_polarizabilities(a1, b1, k):
     k_val = np.asarray(getval(k))
     if np.iscomplexobj(k_val) or not np.all(np.isfinite(k_val)) or np.any(k_val <= 0):
         raise InputError("k", f"host wavenumber must be real, finite and > 0 [1/m], got {k_val!r}")
-    scale = 6.0 * math.pi * 1j / k**3
+    scale = 6.0 * math.pi * 1j / _as_array(k) ** 3
     return scale * a1, scale * b1

@@ -113,6 +113,14 @@ class SearchResult:
     i_best: int = -1
 
 
+# nlopt's own early stops (roundoff, generic failure); names differ between binding versions
+_NLOPT_STOPS = tuple(
+    c
+    for c in (getattr(nlopt, "RoundoffLimited", None), getattr(nlopt, "runtime_error", None))
+    if isinstance(c, type)
+) + (RuntimeError,)
+
+
 class _BudgetExhausted(Exception):
     """Raised inside an nlopt callback when the evaluation budget is spent."""
 
@@ -310,7 +318,7 @@ def minimize(
             if err is exc:
                 raise
             raise err from exc
-        elif isinstance(exc, nlopt.RoundoffLimited | RuntimeError):
+        elif isinstance(exc, _NLOPT_STOPS):
             code = int(opt.last_optimize_result())  # nlopt's own stop: keep what was found
         else:
             raise

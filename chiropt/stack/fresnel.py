@@ -105,7 +105,7 @@ def refractive_index(eps):
 
     References
     ----------
-    Born & Wolf, *Principles of Optics*, 7th ed. (1999), §14.1 (complex index of
+    Born & Wolf, *Principles of Optics*, 7th ed. (1999), ch. 14 (complex index of
     absorbing media).
     """
     return np.sqrt(eps + 0j)
@@ -176,7 +176,8 @@ def interface_coefficients(q, k0, eps1, eps2):
 
     References
     ----------
-    Born & Wolf, *Principles of Optics*, 7th ed. (1999), §1.5.2, eqs. (20)-(21);
+    Born & Wolf, *Principles of Optics*, 7th ed. (1999), §1.5.2 (Fresnel formulas;
+    equation numbers not checked);
     Yeh, *Optical Waves in Layered Media* (1988), §3.2; FORMULAS.md §3.
     """
     _check_wavenumbers(q, k0)
@@ -237,7 +238,7 @@ def flux_factor(q, k0, eps, pol):
     ----------
     Born & Wolf, *Principles of Optics*, 7th ed. (1999), §1.5.3 (energy in
     reflection and refraction); Byrnes, "Multilayer optical calculations",
-    arXiv:1603.02720 (2016), §4 (p-polarized flux in absorbing media).
+    arXiv:1603.02720 (2016) (p-polarized flux in absorbing media).
     """
     _check_wavenumbers(q, k0)
     _check_pol(pol)
@@ -280,7 +281,7 @@ def power_flux_ratio(t, q, k0, eps_in, eps_out, pol):
     References
     ----------
     Born & Wolf, *Principles of Optics*, 7th ed. (1999), §1.5.3; Byrnes,
-    arXiv:1603.02720 (2016), §4.
+    arXiv:1603.02720 (2016).
     """
     _check_wavenumbers(q, k0)
     _check_pol(pol)

@@ -10,13 +10,15 @@ fills ``z > z_top``. Conventions (basis, ``kz`` branch, amplitudes) are those of
 :mod:`chiropt.stack.fresnel`.
 
 Method: the tangential fields ``(E_t, Z0 H_t)`` of the order are carried through
-each film with its characteristic matrix (Born & Wolf §1.6.2), multiplied by the
-decaying factor ``exp(i kz d)``. Its entries are then
-``C = (1 + exp(2 i kz d))/2`` and ``d (exp(2 i kz d) - 1)/(2 i kz d)``, bounded for
-``Im(kz) >= 0`` (no overflow for thick films with evanescent or absorbed waves)
-and regular at ``kz -> 0`` inside a film, where the r/t recursion of Yeh (1988)
-meets 0/0. The result equals that recursion (FORMULAS.md §3) wherever the latter
-is defined; the tests check both against tmm and against the boundary conditions.
+each film with its characteristic matrix (Born & Wolf §1.6.2), whose entries
+``cos(kz d)``, ``kz sin(kz d)`` and ``sin(kz d)/kz`` are entire in ``(kz d)^2``.
+Where ``|kz d| <= 1`` they are summed as power series (no branch point at
+``kz = 0`` in a film, where the r/t recursion of Yeh (1988) meets 0/0, and finite
+derivatives there); elsewhere they are multiplied by the decaying factor
+``exp(i kz d)``, which keeps them bounded for thick films with evanescent or
+absorbed waves (no overflow). The result equals that recursion (FORMULAS.md §3)
+wherever the latter is defined; the tests check it against tmm, the Airy
+formula and a direct solve of the boundary conditions.
 
 Must not import: any chiropt module other than ``chiropt.errors`` and
 ``chiropt.stack`` (never store/report/cli).
@@ -24,6 +26,7 @@ Must not import: any chiropt module other than ``chiropt.errors`` and
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import autograd.numpy as np
@@ -41,9 +44,13 @@ from chiropt.stack.fresnel import (
 
 SIDES = ("host", "substrate")
 
-# Below this |x| the function (exp(x) - 1)/x is evaluated by its Taylor series
-# (5 terms: truncation error |x|^5/720 < 2e-18 here).
-_SERIES_LIMIT = 1e-3
+# Inside a film the entries cos(kz d) and sin(kz d)/kz are entire functions of
+# z = (kz d)^2. For |z| <= _SERIES_LIMIT they are summed as power series in z
+# (_SERIES_TERMS terms: truncation below 1/24! ~ 2e-24); beyond it, as
+# exponentials of 2 i kz d with the decaying factor exp(i kz d) taken out.
+_SERIES_LIMIT = 1.0
+_SERIES_TERMS = 12
+_FACTORIALS = [float(math.factorial(k)) for k in range(2 * _SERIES_TERMS)]
 
 
 @dataclass(frozen=True)
@@ -66,12 +73,49 @@ class StackCoefficients:
     from_side: str
 
 
-def _expm1_over_x(x):
-    """``(exp(x) - 1)/x``, entire, with value 1 at ``x = 0``; autograd-safe."""
-    small = np.abs(x) < _SERIES_LIMIT
-    x_safe = np.where(small, 1.0, x)
-    series = 1 + x * (1 / 2 + x * (1 / 6 + x * (1 / 24 + x / 120)))
-    return np.where(small, series, np.expm1(x_safe) / x_safe)
+def _film_entries(kap2, delta):
+    """Scaled characteristic-matrix entries of one film, regular at kz = 0.
+
+    Parameters
+    ----------
+    kap2 : complex array (W, N) — ``(kz/k0)^2 = eps - (q/k0)^2`` of the film [1]
+    delta : real array (W, 1) — ``k0 d``, film thickness times k0 [1]
+
+    Returns
+    -------
+    C, S, phase : complex arrays (W, N) — ``C = f cos(kz d)``,
+        ``S = f k0 sin(kz d)/kz`` and ``phase`` with ``f = exp(i phase)``:
+        ``phase = kz d`` where ``|kz d| > 1`` (then ``C = (1 + e^{2 i kz d})/2``
+        and ``S = k0 (e^{2 i kz d} - 1)/(2 i kz)`` stay bounded however large
+        ``Im(kz d)``), and ``phase = 0`` elsewhere (power series in
+        ``(kz d)^2``: no branch point at ``kz = 0``, value and derivatives regular).
+
+    References
+    ----------
+    Born & Wolf, *Principles of Optics*, 7th ed. (1999), §1.6.2 (entries of the
+    characteristic matrix); Abramowitz & Stegun, *Handbook of Mathematical
+    Functions* (1964), §4.3 (power series of cos and sin).
+    """
+    # full (W, N) shape first: autograd's vjp of np.where does not unbroadcast
+    delta = delta * np.ones(np.shape(kap2))
+    z = kap2 * delta**2
+    small = np.abs(z) <= _SERIES_LIMIT
+    # series branch (Horner in -z), fed zeros where unused
+    minus_z = -np.where(small, z, 0.0)
+    c_a, s_a = 0.0, 0.0
+    for k in range(_SERIES_TERMS - 1, -1, -1):
+        c_a = c_a * minus_z + 1.0 / _FACTORIALS[2 * k]
+        s_a = s_a * minus_z + 1.0 / _FACTORIALS[2 * k + 1]
+    s_a = s_a * delta
+    # exponential branch, fed a harmless value (kz d = 2) where unused
+    kap_b = np.sqrt(np.where(small, 4.0 + 0j, kap2))
+    kap_b = np.where(np.imag(kap_b) < 0, -kap_b, kap_b)
+    delta_b = np.where(small, 1.0, delta)
+    x = 2j * kap_b * delta_b
+    c_b = (1 + np.exp(x)) / 2
+    s_b = delta_b * np.expm1(x) / x
+    phase = np.where(small, 0j, kap_b * delta_b)
+    return np.where(small, c_a, c_b), np.where(small, s_a, s_b), phase
 
 
 def _layer_list(eps_layers, thicknesses, n_wavelengths):
@@ -146,8 +190,8 @@ def stack_coefficients(q, k0, eps_host, eps_layers, thicknesses, eps_substrate, 
     ``(E_x, Z0 H_y)`` for p, carried by the characteristic matrix
     ``[[cos, -i k0 sin/kz], [-i kz sin/k0, cos]]`` (s) and
     ``[[cos, i kz sin/(k0 eps)], [i eps k0 sin/kz, cos]]`` (p) of argument
-    ``kz d``, scaled by ``exp(i kz d)``; the host and substrate fields are then
-    split into up- and downgoing waves.
+    ``kz d`` (x along ``q_hat``; scaled by ``exp(i kz d)`` where ``|kz d| > 1``);
+    the host and substrate fields are then split into up- and downgoing waves.
 
     References
     ----------
@@ -190,14 +234,11 @@ def stack_coefficients(q, k0, eps_host, eps_layers, thicknesses, eps_substrate, 
     for eps_j, d_j in sweep:
         e_j = _column(eps_j + 0j, k0)
         kap2 = e_j - Q2
-        kap = _kz_over_k0(q, k0, eps_j)
-        delta = k0_col * d_j
-        x = 2j * kap * delta
-        C = (1 + np.exp(x)) / 2
-        S = sign * delta * _expm1_over_x(x)
+        C, S, phase_j = _film_entries(kap2, k0_col * d_j)
+        S = sign * S
         e_sv, h_sv = C * e_sv - 1j * S * h_sv, -1j * kap2 * S * e_sv + C * h_sv
         e_pv, h_pv = C * e_pv + 1j * kap2 * S / e_j * h_pv, 1j * e_j * S * e_pv + C * h_pv
-        phase = phase + kap * delta
+        phase = phase + phase_j
     decay = np.exp(1j * phase)
 
     if from_side == "host":
