@@ -124,12 +124,17 @@ def make_orders(structure: Structure, g_max: float) -> OrderSet:
                     k_up=ku, k_down=kd)
 
 
+MAX_ORDERS = 6000
+
+
 def orders_radius(structure: Structure) -> float:
     """|G| cut [1/m] covering every propagating order and, with a stack, the evanescent
     orders the reflected interaction needs to ``structure.tolerance``.
 
     Evanescent orders reflected back to particles at heights h_i, h_j above the stack
     decay as exp(-|q|(h_i + h_j)) (FORMULAS.md §3): keep |q| <= (ln(1/tol) + 3)/(2 h_min).
+    The count is capped at about ``MAX_ORDERS`` (tiny particles touching the stack would
+    need millions); the cap and its error estimate exp(-2 |q|max h_min) are warned about.
     """
     k0 = getval(structure.k0)
     kmax = k0.max() * float(getval(structure.n_host))
@@ -142,7 +147,17 @@ def orders_radius(structure: Structure) -> float:
     g = kmax + kpar
     if structure.has_substrate:
         h_min = float(np.min(getval(structure.centres)[:, 2]) - getval(structure.z_top))
-        g = max(g, (np.log(1.0 / structure.tolerance) + 3.0) / (2.0 * h_min) + kmax + kpar)
+        need = (np.log(1.0 / structure.tolerance) + 3.0) / (2.0 * h_min) + kmax + kpar
+        b1, b2 = structure.lattice.plain().reciprocal()
+        cell = abs(float(b1[0] * b2[1] - b1[1] * b2[0]))
+        cap = float(np.sqrt(MAX_ORDERS * cell / np.pi))
+        if need > max(cap, g):
+            warnings.warn(f"reflected interaction truncated at {int(MAX_ORDERS)} orders "
+                          f"(estimated relative error {np.exp(-2 * cap * h_min):.1e}); the "
+                          "particles sit very close to the stack for their period",
+                          RuntimeWarning, stacklevel=3)
+            need = max(cap, g)
+        g = max(g, need)
     return g * 1.0000001
 
 

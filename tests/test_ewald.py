@@ -19,6 +19,7 @@ from chiropt.lattice import (
     order_indices,
     order_wavevectors,
     rayleigh_proximity,
+    splitting_parameter,
 )
 
 A0 = 400e-9  # lattice constant [m]
@@ -92,6 +93,15 @@ def test_independent_of_splitting_high_frequency(lattice, kpar):
         assert np.max(block_error(S, out[0][0])) < 1e-10
     default = lattice_green_dyadics(k, kp, lat, D_EWALD, tol=1e-14)
     assert np.max(block_error(default[0], out[0][0])) < 1e-10
+
+
+def test_default_splitting_parameter():
+    # FORMULAS.md §1: E = max(sqrt(pi/A), k/(2H)); chiropt's choice H = sqrt(3)
+    lat = LATTICES["hexagonal"]()
+    k = wavenumbers(2.0, 0.3)
+    E = splitting_parameter(k, lat)
+    assert E[0] == pytest.approx(np.sqrt(np.pi / lat.area), rel=1e-15)
+    assert E[1] == pytest.approx(k[1] / (2 * np.sqrt(3)), rel=1e-15)
 
 
 # ---------------------------------------------------------------- reference: Weyl sum
@@ -387,3 +397,23 @@ def test_bad_input_raises(kwargs, match):
     extra = {key: kwargs.pop(key) for key in ("tol", "splitting") if key in kwargs}
     with pytest.raises(InputError, match=match):
         lattice_green_dyadics(**{**args, **kwargs}, **extra)
+
+
+@pytest.mark.parametrize("direction", [(0.0, 0.0, 1.0), (0.6, -0.3, 0.7)])
+def test_gradient_in_plane_displacement_includes_z(direction):
+    # d in the plane (z = 0): S_xz, S_yz and c_z change to first order in d_z;
+    # autograd vs central finite differences (no source)
+    lat = Lattice.hexagonal(A0)
+    k = wavenumbers(1.3, 0.85)
+    kp = bloch(k, 0.2, -0.1)
+    d0 = np.array([[0.25, 0.3, 0.0], [-0.1, 0.2, 0.0]]) * A0
+    step = np.array([direction, direction]) * A0
+
+    def f(d):
+        S, c = lattice_green_dyadics(k, kp, lat, d, tol=1e-14)
+        weighted = anp.sum(anp.real(WEIGHT_S[:, :2] * S)) + anp.sum(anp.imag(WEIGHT_C[:, :2] * c))
+        return weighted * A0
+
+    h = 1e-6
+    fd = (f(d0 + h * step) - f(d0 - h * step)) / (2 * h)
+    assert np.sum(grad(f)(d0) * step) == pytest.approx(fd, rel=1e-6)

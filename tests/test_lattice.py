@@ -63,6 +63,12 @@ def test_area_differentiable_in_period():
     assert g == pytest.approx(np.sqrt(3) * A0, rel=1e-13)
 
 
+def test_area_differentiable_in_angle():
+    # d(a b sin t)/dt = a b cos t (elementary calculus)
+    g = grad(lambda t: Lattice.oblique(A0, 1.3 * A0, t).area)(1.1)
+    assert g == pytest.approx(1.3 * A0**2 * np.cos(1.1), rel=1e-13)
+
+
 def test_reciprocal_differentiable_in_period():
     # |b1| of a square lattice is 2 pi / a, derivative -2 pi / a^2 (elementary calculus)
     g = grad(lambda a: Lattice.square(a).reciprocal()[0][0])(A0)

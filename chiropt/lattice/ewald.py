@@ -257,6 +257,7 @@ def lattice_green_derivatives(k, k_par, lattice: Lattice, d, *, tol=1e-8, splitt
     derivatives, regularized self term, Faddeeva form — re-derived and checked there).
     """
     kv, kpv, dv, tol = _validate(k, k_par, d, tol, splitting)
+    k, k_par, d = (x if isbox(x) else np.asarray(x) for x in (k, k_par, d))
     k_real = np.real(k) if np.iscomplexobj(getval(k)) else k
     W = kv.size
     plain = lattice.plain()
@@ -336,6 +337,7 @@ def lattice_green_dyadics(k, k_par, lattice: Lattice, d, *, tol=1e-8, splitting=
     dipole arrays); Linton, SIAM Rev. 52, 630 (2010).
     """
     G, grad, hess = lattice_green_derivatives(k, k_par, lattice, d, tol=tol, splitting=splitting)
+    k = k if isbox(k) else np.asarray(k)
     k_real = np.real(k) if np.iscomplexobj(getval(k)) else k
     S = G[:, :, None, None] * np.eye(3) + hess / (k_real ** 2)[:, None, None, None]
     c = grad / k_real[:, None, None]

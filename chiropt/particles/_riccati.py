@@ -2,8 +2,8 @@
 
 Owns: the order-by-order kernels behind the Mie coefficients of
 :mod:`chiropt.particles.mie` -- the ratio function ``g_n(z)`` by downward
-recurrence and the Riccati-Bessel functions ``psi_n(z) = z j_n(z)`` and
-``chi_n(z) = -z y_n(z)`` for real or complex ``z``.
+recurrence and the Riccati-Bessel functions ``psi_n(z) = z j_n(z)``,
+``chi_n(z) = -z y_n(z)`` and ``xi_n(z) = z h^(1)_n(z)`` for real or complex ``z``.
 Must not import: anything of chiropt outside ``chiropt.particles`` and
 ``chiropt.errors``; never store/report/cli.
 
@@ -172,3 +172,41 @@ def riccati_psi_chi(z, g_list: list, n_hi: int):
         den = np.where(use_up, 1.0, 2.0 * n + 1.0 + g_list[n - 1])
         psi.append(np.where(use_up, upward, psi[-1] * z / den))
     return psi, chi
+
+
+def riccati_xi(z, n_hi: int) -> list:
+    """Scaled Riccati-Hankel functions ``xi_n(z) exp(Im z)``, ``n = -1..n_hi``.
+
+    Parameters
+    ----------
+    z : array (complex, ``Im z >= 0``)
+        Argument [dimensionless].
+    n_hi : int
+        Highest order returned [dimensionless].
+
+    Returns
+    -------
+    list of arrays
+        ``xi[k] = xi_{k-1}(z) exp(Im z)`` for ``k = 0..n_hi+1``, with
+        ``xi_n = z h^(1)_n(z) = psi_n - i chi_n``.
+
+    Notes
+    -----
+    ``xi_{-1} = exp(iz)`` and ``xi_0 = -i exp(iz)``, so the scaled seeds are the
+    unit phases ``exp(i Re z)`` and ``-i exp(i Re z)``; then the upward
+    recurrence ``xi_n = (2n-1)/z xi_{n-1} - xi_{n-2}``, stable for
+    ``Im z >= 0`` (``xi_n`` is the dominant solution for ``n > |z|`` and the
+    recurrence is neutral below). Unlike ``chi_n``, ``xi_n`` keeps its relative
+    accuracy where ``Im z`` is large (``psi_n`` and ``i chi_n`` then agree to
+    ``exp(-2 Im z)``).
+
+    References
+    ----------
+    Bohren & Huffman (1983), §4.1 (definition of ``xi_n``); Abramowitz & Stegun
+    10.1.11-12 and 10.1.19.
+    """
+    phase = np.exp(1j * np.real(z))
+    xi = [phase, -1j * phase]
+    for n in range(1, n_hi + 1):
+        xi.append((2.0 * n - 1.0) / z * xi[-1] - xi[-2])
+    return xi

@@ -33,7 +33,7 @@ import autograd.numpy as np
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
-from chiropt.particles._riccati import downward_start, ratio_g, riccati_psi_chi
+from chiropt.particles._riccati import downward_start, ratio_g, riccati_psi_chi, riccati_xi
 
 __all__ = [
     "MieEfficiencies",
@@ -262,29 +262,38 @@ def coreshell_mie_coefficients(x_core, x_shell, m_core, m_shell, n_max: int):
     Bohren & Huffman eq. 8.2 (``x = x_core``, ``y = x_shell``, ``m1 = m_core``,
     ``m2 = m_shell``) is the homogeneous-sphere formula at ``y`` with
     ``D_n(m2 y)`` replaced by the logarithmic derivative of the shell field
-    ``u_n = psi_n(m2 r) - A_n chi_n(m2 r)`` (``B_n`` for ``b_n``). This routine
-    uses that form: ``G~_n = -w u_{n+1}(w)/u_n(w)`` at ``w = m2 y`` feeds the
-    same kernel as :func:`mie_coefficients`, with
+    ``u_n(r) = psi_n(m2 k r) - A_n chi_n(m2 k r)`` (``B_n`` for ``b_n``). This
+    routine uses that form -- ``G~_n = -w u_{n+1}(w)/u_n(w)`` at ``w = m2 y``
+    feeds the same kernel as :func:`mie_coefficients` -- with two changes:
 
-        ``A_n = [psi_n(z2)((n+1)(m2^2 - m1^2) + m2^2 G1) + m1^2 z2 psi_{n+1}(z2)]
-        / [chi_n(z2)(m2^2 (n+1+G1) - m1^2 (n+1)) + m1^2 z2 chi_{n+1}(z2)]``,
+    1. B&H's ``A_n`` and ``B_n`` are each a ratio ``L[psi]/L[chi]`` of one linear
+       inner-interface condition applied to ``psi_n`` and ``chi_n`` at
+       ``z2 = m2 x``. Rewritten with ``psi_n G_n = -z psi_{n+1}``,
 
-        ``B_n = [z2 psi_{n+1}(z2) + G1 psi_n(z2)] / [z2 chi_{n+1}(z2) + G1 chi_n(z2)]``,
+           ``L_a[f] = ((n+1)(m2^2 - m1^2) + m2^2 G1) f_n(z2) + m1^2 z2 f_{n+1}(z2)``,
+           ``L_b[f] = G1 f_n(z2) + z2 f_{n+1}(z2)``,
 
-    ``z1 = m1 x``, ``z2 = m2 x``, ``G1 = z1 D_n(z1) - (n+1)``. These are B&H's
-    ``A_n``, ``B_n`` rewritten with ``psi_n G_n = -z psi_{n+1}`` so that the
-    factor ``m2^2 - m1^2`` appears explicitly (equal materials give
-    ``A_n = B_n = 0`` to rounding) and ``G1`` enters linear-fractionally (no
-    trouble at its poles). The functions of complex argument are scaled by
-    ``exp(-Im z)``, which cancels in every ratio, so thick absorbing shells do
-    not overflow; the formulation is not the Toon & Ackerman algorithm, and
-    for shells much thicker than the skin depth at large size parameters it
-    has not been tested.
+       with ``G1 = z1 D_n(z1) - (n+1)``, ``z1 = m1 x`` (downward recurrence).
+       The factor ``m2^2 - m1^2`` is explicit (equal materials give a vanishing
+       ``L[psi]`` to rounding) and ``G1`` enters linearly (no trouble at its poles).
+    2. The shell field is written on ``(psi_n, xi_n)`` instead of
+       ``(psi_n, chi_n)``: ``u_n = psi_n - beta xi_n`` with
+       ``beta = L[psi]/L[xi]``. With ``psi`` scaled by ``exp(-Im z)`` and ``xi``
+       by ``exp(+Im z)``, ``beta xi_n(w)/psi_n(w)`` carries the explicit factor
+       ``exp(-2 Im m2 (y - x))``, so thick absorbing shells neither overflow nor
+       lose the core's contribution to cancellation (``psi_n`` and ``i chi_n``
+       coincide to ``exp(-2 Im z)`` there); this is the difficulty the Toon &
+       Ackerman (1981) algorithm addresses, handled here differently.
+
+    A lossless coated sphere satisfies ``Re a_n = |a_n|^2`` to rounding relative
+    to ``|a_n|`` (not ``|a_n|^2``, as the homogeneous sphere does), because
+    ``xi_n`` is complex.
 
     References
     ----------
     Bohren & Huffman (1983), §8.1, eq. 8.2 (coated sphere); Aden & Kerker,
-    J. Appl. Phys. 22, 1242 (1951).
+    J. Appl. Phys. 22, 1242 (1951); Toon & Ackerman, Appl. Opt. 20, 3657
+    (1981) (the large-absorbing-shell problem).
     """
     n_max = _check_n_max(n_max)
     xc = _check_size("x_core", x_core)
@@ -312,23 +321,32 @@ def coreshell_mie_coefficients(x_core, x_shell, m_core, m_shell, n_max: int):
         return ratio_g(z * z, n_hi, downward_start(n_hi, abs_z))
 
     g1 = big_g_of(z1, n_max)
-    psi2, chi2 = riccati_psi_chi(z2, big_g_of(z2, n_max + 1), n_max + 1)
-    psi_w, chi_w = riccati_psi_chi(w, big_g_of(w, n_max + 1), n_max + 1)
+    psi2, _ = riccati_psi_chi(z2, big_g_of(z2, n_max + 1), n_max + 1)
+    psi_w, _ = riccati_psi_chi(w, big_g_of(w, n_max + 1), n_max + 1)
+    xi2 = riccati_xi(z2, n_max + 1)
+    xi_w = riccati_xi(w, n_max + 1)
+    # psi above carries exp(-Im z), xi carries exp(+Im z); the shell's own factor
+    # exp(-2 Im(w - z2)) <= 1 restores their relative scale without overflow
+    damp = np.exp(-2.0 * np.imag(w - z2))
     m1_sq = m1 * m1
     m2_sq = m2 * m2
     ga_list = []
     gb_list = []
     for n in range(1, n_max + 1):
-        p2, p2n = psi2[n + 1], psi2[n + 2]
-        c2, c2n = chi2[n + 1], chi2[n + 2]
-        big_a = (p2 * ((n + 1.0) * (m2_sq - m1_sq) + m2_sq * g1[n - 1]) + m1_sq * z2 * p2n) / (
-            c2 * (m2_sq * (n + 1.0 + g1[n - 1]) - m1_sq * (n + 1.0)) + m1_sq * z2 * c2n
-        )
-        big_b = (z2 * p2n + g1[n - 1] * p2) / (z2 * c2n + g1[n - 1] * c2)
-        pw, pwn = psi_w[n + 1], psi_w[n + 2]
-        cw, cwn = chi_w[n + 1], chi_w[n + 2]
-        ga_list.append(-w * (pwn - big_a * cwn) / (pw - big_a * cw))
-        gb_list.append(-w * (pwn - big_b * cwn) / (pw - big_b * cw))
+        g1n = g1[n - 1]
+        c_a = (n + 1.0) * (m2_sq - m1_sq) + m2_sq * g1n
+
+        def cond_a(f, n=n, c_a=c_a):  # inner-interface condition of the TM (a_n) field
+            return c_a * f[n + 1] + m1_sq * z2 * f[n + 2]
+
+        def cond_b(f, n=n, g1n=g1n):  # inner-interface condition of the TE (b_n) field
+            return g1n * f[n + 1] + z2 * f[n + 2]
+
+        for cond, out in ((cond_a, ga_list), (cond_b, gb_list)):
+            beta = cond(psi2) / cond(xi2) * damp
+            out.append(
+                -w * (psi_w[n + 2] - beta * xi_w[n + 2]) / (psi_w[n + 1] - beta * xi_w[n + 1])
+            )
     return _coefficients_from_g(y, m2, ga_list, gb_list, n_max)
 
 
@@ -383,10 +401,10 @@ def mie_efficiencies(x, m, n_max: int | None = None) -> MieEfficiencies:
 
     References
     ----------
-    Bohren & Huffman (1983), eqs. 4.61 (qsca), 4.62 (qext), §4.5 (asymmetry
-    parameter); backscattering from the amplitude ``S_1(180 deg)`` of eq. 4.74
-    [equation numbers of §4.5 not re-checked]; Wiscombe, Appl. Opt. 19, 1505
-    (1980).
+    Bohren & Huffman (1983), eqs. 4.61 (qsca) and 4.62 (qext); the
+    asymmetry parameter and the backscattering efficiency (from the amplitude
+    ``S_1`` at 180 degrees) as in B&H §4.5 and Wiscombe, Appl. Opt. 19, 1505
+    (1980) [equation numbers for these two not checked against the books].
     """
     if n_max is None:
         _check_size("x", x)

@@ -137,7 +137,7 @@ class _Tracker:
         self.history: list[Trial] = []
         self._last_key: bytes | None = None
         self._last: tuple | None = None
-        self.error: BaseException | None = None
+        self.stop: BaseException | None = None  # why the callbacks asked nlopt to stop
 
     def values(self, x: np.ndarray):
         """(f, g, df, dg) presented to nlopt at ``x``."""
@@ -266,29 +266,42 @@ def minimize(
     tracker = _Tracker(problem, info.uses_gradient, int(max_evals), float(failure_value))
     w = float(penalty_weight)
 
+    # Exceptions never travel through nlopt (some algorithms keep calling after one, with
+    # the Python error still pending): the callbacks record them, ask nlopt to stop, and
+    # answer with the failure value until it does; they are re-raised below.
     def objective(x, grad):
+        if tracker.stop is not None:
+            grad[:] = 0.0
+            return float(failure_value)
         try:
             f, g, df, dg = tracker.values(x)
-            if mode == "penalty":
-                active = g > 0
-                f = f + w * float(np.sum(g[active]))
-                df = df + w * np.sum(dg[active], axis=0)
-            if grad.size:
-                grad[:] = df
-            return float(f)
         except BaseException as exc:
-            tracker.error = exc
-            raise
+            tracker.stop = exc
+            opt.force_stop()
+            grad[:] = 0.0
+            return float(failure_value)
+        if mode == "penalty":
+            active = g > 0
+            f = f + w * float(np.sum(g[active]))
+            df = df + w * np.sum(dg[active], axis=0)
+        if grad.size:
+            grad[:] = df
+        return float(f)
 
     def constraints(result, x, grad):
-        try:
-            _, g, _, dg = tracker.values(x)
-            result[:] = g
-            if grad.size:
-                grad[:] = dg
-        except BaseException as exc:
-            tracker.error = exc
-            raise
+        if tracker.stop is None:
+            try:
+                _, g, _, dg = tracker.values(x)
+                result[:] = g
+                if grad.size:
+                    grad[:] = dg
+                return
+            except BaseException as exc:
+                tracker.stop = exc
+                opt.force_stop()
+        result[:] = float(failure_value)
+        if grad.size:
+            grad[:] = 0.0
 
     if mode == "auglag":
         opt = nlopt.opt(nlopt.LD_AUGLAG if info.uses_gradient else nlopt.LN_AUGLAG, n)
@@ -310,18 +323,12 @@ def minimize(
     try:
         opt.optimize(x0)
         code = int(opt.last_optimize_result())
-    except BaseException as exc:
-        err = tracker.error
-        if isinstance(err, _BudgetExhausted):
-            code = nlopt.MAXEVAL_REACHED
-        elif err is not None:  # raised by the problem: a bug or an interruption
-            if err is exc:
-                raise
-            raise err from exc
-        elif isinstance(exc, _NLOPT_STOPS):
-            code = int(opt.last_optimize_result())  # nlopt's own stop: keep what was found
-        else:
-            raise
+    except (nlopt.ForcedStop, *_NLOPT_STOPS):  # our request, or nlopt's own early stop
+        code = int(opt.last_optimize_result())
+    if isinstance(tracker.stop, _BudgetExhausted):
+        code = nlopt.MAXEVAL_REACHED
+    elif tracker.stop is not None:  # raised by the problem: a bug or an interruption
+        raise tracker.stop
     return _result(info, x0, tracker.history, code, feasibility_tol, m)
 
 

@@ -13,7 +13,8 @@ Conventions
   the anchor optimizing objective ``k`` and ``A_j`` the other one: ``h_k`` runs from 0 at its
   own optimum to 1 at the other anchor.
 - Anchors are lexicographic: minimize ``z_k``, then minimize the other objective subject to
-  ``z_k <= z_k* + anchor_tol (|z_k*| + 1)``, so an anchor is never weakly dominated.
+  ``z_k <= z_k* + anchor_tol (|z_k*| + 1)``, so an anchor is never weakly dominated; that
+  second search accepts constraint violations only up to the same slack.
 - Epsilon-constraint point ``i`` of ``points`` (anchors are points 0 and ``points - 1``):
   minimize ``h_1`` subject to the problem's constraints and ``h_2 <= 1 - i / (points - 1)``
   (objective 2 at least as good as the matching fraction of its range).
@@ -251,8 +252,9 @@ def _trace(
     sign = np.array([-1.0 if s == "max" else 1.0 for s in senses])
     zero, one = np.zeros(2), np.ones(2)
 
-    def task(scal, start, index):
-        return _FrontTask(scal, start, algorithm, seed + index, dict(options), wrap, stage, index)
+    def task(scal, start, index, **override):
+        opts = {**options, **override}
+        return _FrontTask(scal, start, algorithm, seed + index, opts, wrap, stage, index)
 
     # anchors, stage one: each objective alone, raw (min-form) units
     first = ex.map(
@@ -269,9 +271,11 @@ def _trace(
                 f"the search for the optimum of objective {k + 1} found no successful "
                 f"evaluation ({first[k].n_failed} failed); check the model and the bounds",
             )
-        bound = zk + anchor_tol * (abs(zk) + 1.0)
-        scal = Scalarized(problem, "bounded", 1 - k, bound, zero, one)
-        second_tasks.append(task(scal, first[k].x_best, 2 + k))
+        slack = anchor_tol * (abs(zk) + 1.0)
+        scal = Scalarized(problem, "bounded", 1 - k, zk + slack, zero, one)
+        # accept only points within the slack, so the anchor keeps its optimum
+        tol = min(_tol(options), slack)
+        second_tasks.append(task(scal, first[k].x_best, 2 + k, feasibility_tol=tol))
     second = ex.map(_run_front_task, second_tasks)
     anchors = [second[k] if second[k].feasible else first[k] for k in (0, 1)]
     fa = np.array([_best_objectives(r) for r in anchors])  # (anchor, objective), raw
@@ -359,7 +363,7 @@ def epsilon_constraint(
     executor: Executor | None = None,
     wrap: Callable[[Problem, str, int], Problem] | None = None,
     stage: str = "front",
-    anchor_tol: float = 1e-6,
+    anchor_tol: float = 1e-9,
     **options: Any,
 ) -> FrontResult:
     """Trace a bi-objective front by the epsilon-constraint method.
@@ -406,7 +410,7 @@ def weighted_sum(
     executor: Executor | None = None,
     wrap: Callable[[Problem, str, int], Problem] | None = None,
     stage: str = "front",
-    anchor_tol: float = 1e-6,
+    anchor_tol: float = 1e-9,
     **options: Any,
 ) -> FrontResult:
     """Trace the convex part of a bi-objective front by weighted sums.

@@ -153,11 +153,12 @@ class StoredEvaluation:
 def _row_to_record(row) -> StoredEvaluation:
     (id_, stage, start, seq, x, f, df, g, dg, metrics, status, reason, wall, created) = row
     g_arr = np.asarray(json.loads(g), dtype=float)
+    x_arr = np.asarray(json.loads(x), dtype=float)
     ev = Evaluation(
         f=float("nan") if f is None else f,
         g=g_arr,
         df=None if df is None else np.asarray(json.loads(df), dtype=float),
-        dg=None if dg is None else np.asarray(json.loads(dg), dtype=float).reshape(g_arr.size, -1),
+        dg=None if dg is None else np.reshape(json.loads(dg), (g_arr.size, x_arr.size)),
         status=status,
         reason=reason,
         metrics=json.loads(metrics),
@@ -167,7 +168,7 @@ def _row_to_record(row) -> StoredEvaluation:
         stage=stage,
         start=int(start),
         seq=int(seq),
-        x=np.asarray(json.loads(x), dtype=float),
+        x=x_arr,
         evaluation=ev,
         wall_time_s=float(wall),
         created=created,
