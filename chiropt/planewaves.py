@@ -54,8 +54,11 @@ def order_basis(q, kz, k, azimuth):
     qq = q[..., 0] ** 2 + q[..., 1] ** 2
     nonzero = qq > 0
     safe = np.sqrt(np.where(nonzero, qq, 1.0))
-    qx = np.where(nonzero, q[..., 0] / safe, np.cos(azimuth))
-    qy = np.where(nonzero, q[..., 1] / safe, np.sin(azimuth))
+    # np.where operands broadcast to full shape: autograd's where-VJP does not reduce
+    # broadcast axes
+    full = np.ones(np.shape(qq))
+    qx = np.where(nonzero, q[..., 0] / safe, np.cos(azimuth) * full)
+    qy = np.where(nonzero, q[..., 1] / safe, np.sin(azimuth) * full)
     zero = np.zeros_like(qx)
     s = np.stack([-qy, qx, zero], axis=-1) + 0j
     k = k + 0j * kz

@@ -117,7 +117,7 @@ def make_orders(structure: Structure, g_max: float) -> OrderSet:
     kh = structure.k[:, None]
     kz = kz_branch(kh, qq)
     # exactly on a Rayleigh anomaly kz = 0: floor |kz| at the round-off level (flagged)
-    floor = KZ_FLOOR * kh
+    floor = KZ_FLOOR * kh * np.ones(np.shape(getval(qq)))
     kz = np.where(np.abs(getval(kz)) < getval(floor), 1j * floor, kz)
     s, pu, pd, ku, kd = order_basis(q, kz, kh, structure.azimuth)
     return OrderSet(mn=mn, q=q, qn=np.sqrt(qq + 1e-300), kz=kz, s=s, p_up=pu, p_down=pd,

@@ -1,0 +1,175 @@
+"""Exact derivatives of every reported quantity with respect to named design quantities.
+
+Owns: the differentiable map (design, values of named quantities) -> spectra of every
+reported quantity, its reverse-mode gradient for scalar objectives (what the gradient
+optimizers call) and its per-wavelength sensitivities (``evaluate --grad``).
+Must not import: search, store, report, cli.
+
+Names: design quantities are the key paths of ``Design.parameters()``
+(``particles[0].radius_nm``, ``lattice.period_nm``, ``gap_nm``, ``layers[0].thickness_nm``,
+``illumination.polar_deg``, ``illumination.wavelength_nm`` (shifts every wavelength),
+``region.height_nm``, ``particles[0].material.n`` ...), in user units (nm, deg).
+Quantities: ``R+1``, ``R-1``, ``T+1``, ``T-1``, ``A+1``, ``A-1`` and, with a region,
+``u``, ``c``, ``g``, ``background``, ``docp+1``, ``docp-1``, ``s0+1``, ``s0-1``.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+from collections.abc import Callable
+
+import autograd.numpy as np
+import numpy as onp
+from autograd import value_and_grad as _value_and_grad
+from autograd.differential_operators import make_jvp_reversemode
+from autograd.tracer import getval
+
+from chiropt.design import Design
+from chiropt.errors import InputError
+from chiropt.farfield import power_fractions
+from chiropt.solve import RAYLEIGH_WARN, solve
+from chiropt.structure import build_structure
+
+FAR_FIELD = ("R+1", "R-1", "T+1", "T-1", "A+1", "A-1")
+NEAR_FIELD = ("u", "c", "g", "background", "docp+1", "docp-1", "s0+1", "s0-1")
+
+
+def quantity_names(design: Design) -> tuple[str, ...]:
+    """Names of the quantities reported for ``design`` (near-field ones need a region)."""
+    return FAR_FIELD + (NEAR_FIELD if design.region is not None else ())
+
+
+def compute_quantities(design: Design, values: dict[str, Any] | None = None,
+                       *, with_flags: bool = False):
+    """Spectra (W,) of every reported quantity; differentiable in ``values``.
+
+    Parameters
+    ----------
+    design : Design
+    values : dict, optional — replacements for named design quantities (may be traced)
+    with_flags : bool — also return the (W,) Rayleigh proximity (plain floats)
+
+    Returns
+    -------
+    dict name -> (W,) array [, rayleigh (W,)]
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        st = build_structure(design, values)
+        region = design.region
+        g_max = None
+        if region is not None:
+            from chiropt.metrics import required_g_max
+
+            g_max = required_g_max(st, region, values)
+        sol = solve(st, warn=False, g_max=g_max)
+        frac = power_fractions(sol)
+    out: dict[str, Any] = {}
+    for name in ("R", "T", "A"):
+        out[name + "+1"] = frac[name][:, 0]
+        out[name + "-1"] = frac[name][:, 1]
+    if region is not None:
+        from chiropt.metrics import region_metrics
+
+        m = region_metrics(sol, region, values=values)
+        for key in ("u", "c", "g", "background"):
+            out[key] = m[key]
+        for key in ("docp", "s0"):
+            out[key + "+1"] = m[key]["+1"]
+            out[key + "-1"] = m[key]["-1"]
+    if with_flags:
+        return out, onp.asarray(getval(sol.rayleigh))
+    return out
+
+
+def _check_paths(design: Design, paths) -> dict[str, Any]:
+    params = design.parameters()
+    for path in paths:
+        if path not in params:
+            raise InputError("--grad", f"unknown design quantity '{path}'; this design has: "
+                                       f"{', '.join(params)}")
+    return params
+
+
+@dataclass
+class Sensitivity:
+    """Value and gradient of a scalar objective.
+
+    value : float; gradient : dict path -> float (or array for array-valued paths);
+    flagged : True when a wavelength sits on a Rayleigh anomaly (derivatives there are
+    not meaningful); reasons : messages.
+    """
+
+    value: float
+    gradient: dict[str, Any]
+    flagged: bool = False
+    reasons: list[str] = field(default_factory=list)
+
+
+def value_and_gradient(design: Design, objective: Callable[[dict], Any], paths,
+                       values: dict[str, Any] | None = None) -> Sensitivity:
+    """Value and exact reverse-mode gradient of ``objective(quantities)``.
+
+    Parameters
+    ----------
+    design : Design
+    objective : callable taking the dict of quantity spectra (see module docstring) and
+        returning a real scalar, written with ``autograd.numpy`` (e.g.
+        ``lambda q: np.mean(q["g"])`` for a band average)
+    paths : names of the design quantities to differentiate with respect to
+    values : current values of (some of) the named quantities, default: the design's
+
+    Returns
+    -------
+    Sensitivity (gradient in objective units per user unit of each path: per nm, per deg)
+    """
+    params = _check_paths(design, paths)
+    base = {p: (values or {}).get(p, params[p]) for p in paths}
+    fixed = {k: v for k, v in (values or {}).items() if k not in base}
+    flags: list = []
+
+    def f(x):
+        vals = dict(fixed)
+        vals.update(x)
+        q, ray = compute_quantities(design, vals, with_flags=True)
+        flags.append(ray)
+        return objective(q)
+
+    value, grad = _value_and_grad(f)(base)
+    ray = flags[-1]
+    flagged = bool(onp.any(ray < RAYLEIGH_WARN))
+    reasons = (["a diffraction order grazes (Rayleigh anomaly): derivatives are not "
+                "meaningful there"] if flagged else [])
+    grad = {k: (float(v) if onp.ndim(v) == 0 else onp.asarray(v)) for k, v in grad.items()}
+    return Sensitivity(value=float(value), gradient=grad, flagged=flagged, reasons=reasons)
+
+
+def spectrum_sensitivities(design: Design, paths) -> dict[str, dict[str, onp.ndarray]]:
+    """Per-wavelength derivatives d(quantity)/d(path) of every reported spectrum.
+
+    Uses one Jacobian-vector product per path (reverse mode applied twice), so the cost
+    does not grow with the number of wavelengths. An array-valued path
+    (``illumination.wavelength_nm``) is perturbed at every wavelength at once, which gives
+    each wavelength's own derivative because wavelengths are independent.
+
+    Returns
+    -------
+    dict quantity -> {path: (W,) array}, in quantity units per user unit of the path.
+    """
+    params = _check_paths(design, paths)
+    names = quantity_names(design)
+    out: dict[str, dict[str, onp.ndarray]] = {n: {} for n in names}
+    for path in paths:
+        x0 = onp.asarray(params[path], float)
+
+        def packed(x, path=path):
+            q = compute_quantities(design, {path: x})
+            return np.stack([np.real(q[n]) for n in names])
+
+        jvp = make_jvp_reversemode(packed)(x0)
+        col = onp.asarray(jvp(onp.ones_like(x0)))
+        for i, n in enumerate(names):
+            out[n][path] = col[i]
+    return out
