@@ -26,9 +26,18 @@ def _cmd_evaluate(args) -> int:
     for note in response.warnings:
         print(f"warning: {note}", file=sys.stderr)
     if args.json:
-        json.dump(response.spectra(), sys.stdout)
+        payload = response.spectra()
+        if args.grad:
+            from chiropt.sensitivity import spectrum_sensitivities
+
+            paths = [p.strip() for p in args.grad.split(",") if p.strip()]
+            jac = spectrum_sensitivities(design, paths)
+            payload["grad"] = {q: {p: v.tolist() for p, v in d.items()} for q, d in jac.items()}
+        json.dump(payload, sys.stdout)
         sys.stdout.write("\n")
         return EXIT_OK
+    if args.grad:
+        raise InputError("--grad", "needs --json (derivatives are reported in the JSON object)")
     from chiropt.report.spectra import plot_far_field
 
     out_dir = Path(args.out) if args.out else Path(args.design).resolve().parent
@@ -72,6 +81,9 @@ def build_parser() -> argparse.ArgumentParser:
     ev.add_argument("design", help="design file (YAML)")
     ev.add_argument("--json", action="store_true", help="print one JSON object on stdout")
     ev.add_argument("--out", help="folder for plots (default: beside the design file)")
+    ev.add_argument("--grad", metavar="PATH[,PATH...]",
+                    help="with --json: exact derivatives of every spectrum with respect to these "
+                         "design quantities, e.g. particles[0].radius_nm,lattice.period_nm")
     ev.set_defaults(func=_cmd_evaluate)
     ma = sub.add_parser("materials", help="list the short material names and their sources")
     ma.set_defaults(func=_cmd_materials)

@@ -51,37 +51,49 @@ def order_basis(q, kz, k, azimuth):
         p vectors are complex for evanescent waves; dot products with them are
         bilinear (no conjugation), FORMULAS.md §3.
     """
-    qq = q[..., 0] ** 2 + q[..., 1] ** 2
-    nonzero = qq > 0
-    safe = np.sqrt(np.where(nonzero, qq, 1.0))
+    qq = np.sum(q ** 2, axis=-1)
+    nonzero = (qq > 0)[..., None]
+    safe = np.sqrt(np.where(nonzero[..., 0], qq, 1.0))[..., None]
     # np.where operands broadcast to full shape: autograd's where-VJP does not reduce
     # broadcast axes
-    full = np.ones(np.shape(qq))
-    qx = np.where(nonzero, q[..., 0] / safe, np.cos(azimuth) * full)
-    qy = np.where(nonzero, q[..., 1] / safe, np.sin(azimuth) * full)
-    zero = np.zeros_like(qx)
-    s = np.stack([-qy, qx, zero], axis=-1) + 0j
-    k = k + 0j * kz
-    k_up = np.stack([q[..., 0] / k, q[..., 1] / k, kz / k], axis=-1)
-    k_down = np.stack([q[..., 0] / k, q[..., 1] / k, -kz / k], axis=-1)
+    default = np.ones(np.shape(q)) * np.array([np.cos(azimuth), np.sin(azimuth)])
+    qhat = np.where(nonzero * np.ones(np.shape(q), bool), q / safe, default)
+    s = np.matmul(qhat, np.array([[0.0, 1.0, 0.0], [-1.0, 0.0, 0.0]])) + 0j  # z x q_hat
+    k = (k + 0j * kz)[..., None]
+    qk = np.matmul(q, np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0]])) / k
+    zk = (kz[..., None] / k) * np.array([0.0, 0.0, 1.0])
+    k_up = qk + zk
+    k_down = qk - zk
     p_up = cross(s, k_up)
     p_down = cross(s, k_down)
     return s, p_up, p_down, k_up, k_down
 
 
+_LEVI_CIVITA = np.zeros((3, 3, 3))
+for _i, _j, _k in ((0, 1, 2), (1, 2, 0), (2, 0, 1)):
+    _LEVI_CIVITA[_i, _j, _k], _LEVI_CIVITA[_i, _k, _j] = 1.0, -1.0
+
+
 def cross(a, b):
-    """Cross product over the last axis (length 3), autograd-friendly."""
-    return np.stack([a[..., 1] * b[..., 2] - a[..., 2] * b[..., 1],
-                     a[..., 2] * b[..., 0] - a[..., 0] * b[..., 2],
-                     a[..., 0] * b[..., 1] - a[..., 1] * b[..., 0]], axis=-1)
+    """Cross product over the last axis (length 3), autograd-friendly.
+
+    Operands are broadcast to a common shape first: autograd's VJP of ``np.cross``
+    does not reduce broadcast axes.
+    """
+    shape = np.broadcast_shapes(np.shape(a), np.shape(b))
+    if np.shape(a) != shape:
+        a = a + np.zeros(shape)
+    if np.shape(b) != shape:
+        b = b + np.zeros(shape)
+    return np.cross(a, b)
 
 
 def cross_matrix(c):
-    """Matrix ``[c x]`` of the cross product, shape (..., 3, 3): ``[c x] v = c x v``."""
-    z = np.zeros_like(c[..., 0])
-    return np.stack([np.stack([z, -c[..., 2], c[..., 1]], axis=-1),
-                     np.stack([c[..., 2], z, -c[..., 0]], axis=-1),
-                     np.stack([-c[..., 1], c[..., 0], z], axis=-1)], axis=-2)
+    """Matrix ``[c x]`` of the cross product, shape (..., 3, 3): ``[c x] v = c x v``.
+
+    ``[c x]_ij = eps_ikj c_k`` (Levi-Civita), one einsum so the reverse pass stays cheap.
+    """
+    return np.einsum("ikj,...k->...ij", _LEVI_CIVITA, c)
 
 
 def helicity_vectors(s, p):

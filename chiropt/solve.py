@@ -199,7 +199,7 @@ def substrate_basis(structure: Structure, orders: OrderSet):
 
 def _vectors(comp, s, p):
     """Amplitude vectors a_s s + a_p p: comp (W, 2, G, 2), s, p (W, G, 3) -> (W, 2, G, 3)."""
-    return comp[..., 0:1] * s[:, None] + comp[..., 1:2] * p[:, None]
+    return np.einsum("wtgc,wgcd->wtgd", comp, np.stack([s, p], axis=-2))
 
 
 def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None) -> Solution:

@@ -47,3 +47,31 @@ def test_invalid_input_one_line_exit_2(tmp_path):
     assert len(lines) == 1 and "particles[0].radius_nm" in lines[0]
     assert "Traceback" not in res.stderr
     assert res.stdout == ""
+
+
+def test_evaluate_grad_contract(tmp_path):
+    # CONTRACT.md "--grad": "grad": {QUANTITY: {PATH: [...]}}, one value per wavelength;
+    # checked against a central finite difference of the JSON spectra (common practice).
+    text = ("lattice: {kind: square, period_nm: %s}\n"
+            "particles: [{radius_nm: 70, material: Si}]\n"
+            "substrate: {material: SiO2}\n"
+            "illumination: {wavelength_nm: [650, 700]}\n")
+    design = tmp_path / "d.yaml"
+    design.write_text(text % 400)
+    res = _run("evaluate", str(design), "--json", "--grad", "lattice.period_nm")
+    assert res.returncode == 0, res.stderr
+    grad = json.loads(res.stdout)["grad"]
+    assert set(grad) == {"R+1", "R-1", "T+1", "T-1", "A+1", "A-1"}
+    vals = []
+    for period in (399.99, 400.01):
+        design.write_text(text % period)
+        vals.append(json.loads(_run("evaluate", str(design), "--json").stdout)["R"]["+1"])
+    fd = [(b - a) / 0.02 for a, b in zip(*vals, strict=True)]
+    for a, b in zip(grad["R+1"]["lattice.period_nm"], fd, strict=True):
+        assert abs(a - b) < 1e-6 * max(1.0, abs(b)) + 1e-9
+
+
+def test_evaluate_grad_unknown_path(tmp_path):
+    res = _run("evaluate", "configs/quickstart-design.yaml", "--json", "--grad", "radius")
+    assert res.returncode == 2
+    assert "particles[0].radius_nm" in res.stderr
