@@ -25,8 +25,8 @@ def plot_far_field(response, path: str | Path) -> Path:
     for lam, label in rayleigh_wavelengths_nm(response.design):
         if lo <= lam <= hi:
             ax.axvline(lam, color="0.6", linewidth=0.7, linestyle=":")
-            ax.text(lam, 1.02, label, rotation=90, fontsize=6, color="0.4", ha="right",
-                    va="bottom")
+            ax.text(lam, 0.5, label, rotation=90, fontsize=6, color="0.4", ha="right",
+                    va="center")
     ax.set_xlabel("vacuum wavelength (nm)")
     ax.set_ylabel("power fraction (-)")
     ax.set_ylim(-0.02, 1.12)
