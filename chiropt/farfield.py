@@ -16,13 +16,12 @@ from chiropt.planewaves import z_flux
 from chiropt.solve import Solution, _slice_orders, substrate_basis
 
 
-def _host_flux(sol: Solution):
-    """Upward flux (units 1/(2 Z0)) of the propagating host orders, summed, (W, 2)."""
-    st, o, n = sol.structure, sol.orders, sol.n_far
-    kv = o.k_up[:, :n] * (st.n_host + 0j)
-    kz = o.kz[:, :n]
+def _propagating_host_flux(sol: Solution, vectors, k_hat):
+    """Summed z flux (units 1/(2 Z0)) of host orders, evanescent ones excluded, (W, 2)."""
+    st, n = sol.structure, sol.n_far
+    kz = sol.orders.kz[:, :n]
     prop = (np.real(kz) > 0) & (np.abs(np.imag(kz)) <= 1e-12 * st.k[:, None])
-    f = z_flux(sol.up_vectors(n), kv[:, None])
+    f = z_flux(vectors, (k_hat[:, :n] * (st.n_host + 0j))[:, None])
     return np.sum(np.where(prop[:, None], f, 0.0), axis=-1)
 
 
@@ -32,11 +31,7 @@ def _exit_flux(sol: Solution):
     if st.has_substrate:
         _, _, _, kvec = substrate_basis(st, _slice_orders(o, n))
         return np.sum(z_flux(sol.exit_vectors(n), kvec[:, None]), axis=-1)
-    kv = o.k_down[:, :n] * (st.n_host + 0j)
-    kz = o.kz[:, :n]
-    prop = (np.real(kz) > 0) & (np.abs(np.imag(kz)) <= 1e-12 * st.k[:, None])
-    f = z_flux(sol.exit_vectors(n), kv[:, None])
-    return np.sum(np.where(prop[:, None], f, 0.0), axis=-1)
+    return _propagating_host_flux(sol, sol.exit_vectors(n), o.k_down)
 
 
 def incident_flux(sol: Solution):
@@ -62,7 +57,7 @@ def power_fractions(sol: Solution) -> dict:
     """
     st = sol.structure
     inc = incident_flux(sol)[:, None]
-    up = _host_flux(sol) / inc
+    up = _propagating_host_flux(sol, sol.up_vectors(sol.n_far), sol.orders.k_up) / inc
     down = -_exit_flux(sol) / inc
     if st.side == "host":
         R, T = up, down

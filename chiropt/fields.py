@@ -172,25 +172,19 @@ class OrderContent:
         return order_basis(self.q, self.kz, self.k[:, None], self.azimuth)
 
     def shifted(self, dz):
-        """The same content at height ``z + dz`` (``dz`` [m] >= 0 or an array (Z,)).
-
-        With an array the upward amplitudes get a leading-after-W axis: (W, 2, Z, G, 2).
-        """
-        dz = np.asarray(dz) if not hasattr(dz, "_value") else dz
-        if np.ndim(getval(dz)) == 0:
-            ph = np.exp(1j * self.kz * dz)[:, None, :, None]
-            ph0 = np.exp(-1j * self.kz[:, 0] * dz)[:, None, None]
-            return OrderContent(self.mn, self.g_norm, self.q, self.kz, self.k, self.up * ph,
-                                self.down * ph0, self.z + dz, self.azimuth, self.n_host)
-        raise InputError("dz", "a scalar height step [m] is expected")
+        """The same content at height ``z + dz``; ``dz`` [m] scalar, >= 0 (may be traced)."""
+        ph = np.exp(1j * self.kz * dz)[:, None, :, None]
+        ph0 = np.exp(-1j * self.kz[:, 0] * dz)[:, None, None]
+        return OrderContent(self.mn, self.g_norm, self.q, self.kz, self.k, self.up * ph,
+                            self.down * ph0, self.z + dz, self.azimuth, self.n_host)
 
 
 def _kz_host(structure: Structure, q):
     """kz of the orders in the host, floored at the Rayleigh anomaly as the solver does."""
     kh = structure.k[:, None]
     kz = kz_branch(kh, q[..., 0] ** 2 + q[..., 1] ** 2)
-    floor = KZ_FLOOR * kh
-    return np.where(np.abs(getval(kz)) < getval(floor) * np.ones(kz.shape), 1j * floor, kz)
+    floor = KZ_FLOOR * kh * np.ones(kz.shape)
+    return np.where(np.abs(getval(kz)) < getval(floor), 1j * floor, kz)
 
 
 def _in_plane_unit(q, azimuth):
@@ -393,7 +387,7 @@ def field_maps(content: OrderContent, lattice, n: int):
     E, ZH = order_fields(content)
     F = _phase_matrix(content.mn, n)                                   # (G, P)
     rho = cell_grid(lattice, n).reshape(n * n, 2)
-    bloch = np.exp(1j * np.einsum("wc,pc->wp", content.q[:, 0] - _plain_G0(content), rho))
+    bloch = np.exp(1j * np.einsum("wc,pc->wp", content.q[:, 0], rho))  # q_00 = k_par
     W = E.shape[0]
 
     def to_grid(X):
@@ -402,11 +396,6 @@ def field_maps(content: OrderContent, lattice, n: int):
         return np.transpose(out, (0, 1, 3, 2)).reshape(W, 2, n, n, 3)
 
     return to_grid(E), to_grid(ZH)
-
-
-def _plain_G0(content: OrderContent):
-    """G of the first order (zero: the (0,0) order), shape (W, 2)."""
-    return 0.0 * content.q[:, 0]
 
 
 def write_fields_npz(path, solution: Solution, *, z_nm: float, n: int,
