@@ -22,11 +22,18 @@ def _cmd_evaluate(args) -> int:
     from chiropt.response import evaluate
 
     design = load_design(args.design)
-    response = evaluate(design)
+    if (args.at_nm is not None or args.fields) and design.region is None:
+        raise InputError("region", "--at-nm and --fields need a region in the design, e.g. "
+                                   "region: {kind: plane, height_nm: 10}")
+    response = evaluate(design, keep_solution=bool(args.fields))
     for note in response.warnings:
         print(f"warning: {note}", file=sys.stderr)
+    if args.fields:
+        _write_fields(design, response, args)
     if args.json:
         payload = response.spectra()
+        if args.at_nm is not None:
+            payload["orders"] = _orders_at(design, args.at_nm)
         if args.grad:
             from chiropt.sensitivity import spectrum_sensitivities
 
@@ -49,6 +56,33 @@ def _cmd_evaluate(args) -> int:
     return EXIT_OK
 
 
+def _orders_at(design, at_nm: float) -> list:
+    """Per-order table at the wavelength ``at_nm`` itself (CONTRACT.md)."""
+    from chiropt.metrics import order_table
+    from chiropt.sensitivity import metrics_tolerance
+    from chiropt.solve import solve
+    from chiropt.structure import build_structure
+
+    if not 1.0 <= at_nm <= 1e6:
+        raise InputError("--at-nm", f"got {at_nm:g}, allowed a wavelength in [1, 1e6] nm")
+    single = design.with_wavelengths([at_nm])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        sol = solve(build_structure(single), warn=False)
+    return order_table(sol, design.region, 0, tol=metrics_tolerance(design))
+
+
+def _write_fields(design, response, args) -> None:
+    from chiropt.fields import representative_plane_nm, write_fields_npz
+
+    if not 2 <= args.grid <= 1024:
+        raise InputError("--grid", f"got {args.grid}, allowed an integer in [2, 1024]")
+    sol = response.solution
+    z_nm = representative_plane_nm(sol.structure, design.region)
+    write_fields_npz(args.fields, sol, z_nm=z_nm, n=args.grid)
+    print(f"fields: {args.fields} (z = {z_nm:.2f} nm)", file=sys.stderr)
+
+
 def _print_table(response) -> None:
     wl = response.wavelength_nm
     step = max(1, len(wl) // 12)
@@ -62,6 +96,20 @@ def _print_table(response) -> None:
             f"{getattr(response, q)[i, h]:8.4f}" for h in (0, 1) for q in ("R", "T", "A")))
 
 
+def _cmd_inspect(args) -> int:
+    from chiropt.design import load_design
+    from chiropt.report.inspect import inspect_design
+
+    design = load_design(args.design)
+    if design.region is None:
+        raise InputError("region", "inspect needs a region in the design, e.g. "
+                                   "region: {kind: plane, height_nm: 10}")
+    out_dir = Path(args.out) if args.out else Path(args.design).resolve().parent
+    for path in inspect_design(design, args.at_nm, out_dir, grid=args.grid):
+        print(path)
+    return EXIT_OK
+
+
 def _cmd_materials(args) -> int:
     from chiropt.materials import list_short_names
 
@@ -69,6 +117,34 @@ def _cmd_materials(args) -> int:
         name, ident, rng, ref = row[:4]
         print(f"{name:8s} {ident:32s} {rng[0]:7.0f}-{rng[1]:<7.0f} nm  {ref.splitlines()[0]}")
     return EXIT_OK
+
+
+def _cmd_run(args) -> int:
+    from chiropt.run import run_goal_file
+
+    summaries = run_goal_file(args.goal, out=args.out, workers=args.workers,
+                              progress=not args.quiet)
+    for s in summaries:
+        print(f"{s.run_dir}: {s.status}; {s.n_evaluations} evaluations, front of "
+              f"{len(s.front)} designs, {len(s.candidates)} candidates")
+    return EXIT_OK if all(s.status == "complete" for s in summaries) else EXIT_FAILED
+
+
+def _cmd_goal(args) -> int:
+    if args.explain:
+        from chiropt.goals.schema import EXPLAIN
+
+        print(EXPLAIN)
+        return EXIT_OK
+    if args.check:
+        from chiropt.goals import check_goal, load_goal
+
+        for g in load_goal(args.check):
+            check_goal(g)
+            print(f"{g.run_name}: valid ({len(g.variables)} variables, "
+                  f"{len(g.objectives)} objective(s), {len(g.constraints)} constraint(s))")
+        return EXIT_OK
+    raise InputError("goal", "give --explain (the goal-file reference) or --check GOAL.yaml")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -84,9 +160,36 @@ def build_parser() -> argparse.ArgumentParser:
     ev.add_argument("--grad", metavar="PATH[,PATH...]",
                     help="with --json: exact derivatives of every spectrum with respect to these "
                          "design quantities, e.g. particles[0].radius_nm,lattice.period_nm")
+    ev.add_argument("--at-nm", type=float, metavar="L",
+                    help="with --json and a region: add the per-order table at wavelength L (nm)")
+    ev.add_argument("--fields", metavar="FILE.npz",
+                    help="write complex E and Z0 H on a grid over the cell at the region's plane "
+                         "(a slab's mid-plane)")
+    ev.add_argument("--grid", type=int, default=32, metavar="N",
+                    help="grid points per lattice vector for --fields (default 32)")
     ev.set_defaults(func=_cmd_evaluate)
+    ins = sub.add_parser("inspect", help="near-field maps, spectra and diffraction-order "
+                                         "analysis of one design at one wavelength")
+    ins.add_argument("design", help="design file (YAML) with a region")
+    ins.add_argument("--at-nm", type=float, required=True, metavar="L",
+                     help="wavelength (nm) of the maps and order analysis")
+    ins.add_argument("--out", help="folder for the figures (default: beside the design file)")
+    ins.add_argument("--grid", type=int, default=64, metavar="N",
+                     help="grid points per lattice vector of the maps (default 64)")
+    ins.set_defaults(func=_cmd_inspect)
     ma = sub.add_parser("materials", help="list the short material names and their sources")
     ma.set_defaults(func=_cmd_materials)
+    ru = sub.add_parser("run", help="optimize a goal file into a run folder (resumes)")
+    ru.add_argument("goal", help="goal file (YAML); see `chiropt goal --explain`")
+    ru.add_argument("--out", help="folder of run folders (default: runs/ at the repository root)")
+    ru.add_argument("--workers", type=int, default=None,
+                    help="worker processes (default: all cores; 0: in this process)")
+    ru.add_argument("--quiet", action="store_true", help="no progress display")
+    ru.set_defaults(func=_cmd_run)
+    go = sub.add_parser("goal", help="the goal-file reference, or check a goal file")
+    go.add_argument("--explain", action="store_true", help="print the goal-file reference")
+    go.add_argument("--check", metavar="GOAL.yaml", help="validate a goal file, run nothing")
+    go.set_defaults(func=_cmd_goal)
     return parser
 
 

@@ -53,6 +53,12 @@ def particle_top(structure: Structure):
     return np.max(structure.centres[:, 2] + structure.radii)
 
 
+def _safe_norm(qq):
+    """sqrt(qq) with a finite derivative at qq = 0 (the (0,0) order at normal incidence)."""
+    pos = qq > 0
+    return np.where(pos, np.sqrt(np.where(pos, qq, 1.0)), 0.0 * qq)
+
+
 def region_span(structure: Structure, region) -> tuple[Any, Any]:
     """Bottom and top heights (z_lo, z_hi) [m] of a region above the particle tops.
 
@@ -76,6 +82,13 @@ def region_span(structure: Structure, region) -> tuple[Any, Any]:
         z_lo = top + region.from_nm * NM
         return z_lo, z_lo + region.thickness_nm * NM
     raise InputError("region.kind", f"got {kind!r}, allowed: plane, slab")
+
+
+def representative_plane_nm(structure: Structure, region) -> float:
+    """Height [nm] of the plane that represents a region in maps and field files: the
+    plane itself, or a slab's mid-plane (plain float, measured like ``structure.centres``)."""
+    z_lo, z_hi = region_span(structure, region)
+    return float(getval(0.5 * (z_lo + z_hi))) / NM
 
 
 def decay_exponent(tol: float) -> float:
@@ -138,7 +151,8 @@ class OrderContent:
     q : (W, G, 2) — in-plane wavevectors q_g = k_par + G [1/m]
     kz : (W, G) — normal wavenumber in the host, Im >= 0 [1/m]
     k : (W,) — host wavenumber [1/m]
-    up : (W, 2, G, 2) — upward wave of every order on (s, p_up) at height z [V/m]
+    up : (W, 2, 2, G) — upward wave of every order at height z [V/m]: axes helicity
+        [+1, -1], component [s, p_up], order (components first: contiguous per order)
     down : (W, 2, 2) — downward (incident) wave of the (0,0) order on (s, p_down) at z [V/m]
         (zero for substrate-side illumination)
     z : height [m]
@@ -160,7 +174,8 @@ class OrderContent:
     @property
     def K(self):
         """|q|/k of every order, (W, G) [-]."""
-        return np.sqrt(np.sum(self.q ** 2, axis=-1)) / self.k[:, None]
+        # explicit sum: numpy reductions over a length-2 last axis are ~40x slower
+        return _safe_norm(self.q[..., 0] ** 2 + self.q[..., 1] ** 2) / self.k[:, None]
 
     @property
     def kz_over_k(self):
@@ -173,7 +188,7 @@ class OrderContent:
 
     def shifted(self, dz):
         """The same content at height ``z + dz``; ``dz`` [m] scalar, >= 0 (may be traced)."""
-        ph = np.exp(1j * self.kz * dz)[:, None, :, None]
+        ph = np.exp(1j * self.kz * dz)[:, None, None, :]
         ph0 = np.exp(-1j * self.kz[:, 0] * dz)[:, None, None]
         return OrderContent(self.mn, self.g_norm, self.q, self.kz, self.k, self.up * ph,
                             self.down * ph0, self.z + dz, self.azimuth, self.n_host)
@@ -257,48 +272,50 @@ def order_content(solution: Solution, z, *, g_max: float | None = None,
     # -- (0,0): from the solution, carried from z_top to z -----------------------------------
     kz0 = solution.orders.kz[:, 0]
     dz_top = z - st.z_top
-    up0 = solution.up_sp[:, :, 0, :] * np.exp(1j * kz0 * dz_top)[:, None, None]
+    up0 = solution.up_sp[:, :, 0, :] * np.exp(1j * kz0 * dz_top)[:, None, None]   # (W, 2, 2)
     down0 = solution.incident_sp * np.exp(-1j * kz0 * dz_top)[:, None, None]
     if mn_e.shape[0] == 0:
-        return OrderContent(mn, g_norm, q_all, kz_all, k, up0[:, :, None, :], down0, z,
+        return OrderContent(mn, g_norm, q_all, kz_all, k, up0[..., None], down0, z,
                             st.azimuth, st.n_host)
 
-    # -- evanescent/diffracted orders: emission from the moments ----------------------------
+    # -- other orders: emission from the moments ---------------------------------------------
+    # (elementwise on contiguous (W, 2, G) arrays: stacking along short last axes and
+    # reductions over them cost numpy an order of magnitude more)
     qx, qy = _in_plane_unit(q, st.azimuth)                      # (W, G)
-    qn = np.sqrt(q[..., 0] ** 2 + q[..., 1] ** 2)
+    qn = _safe_norm(q[..., 0] ** 2 + q[..., 1] ** 2)
     K = qn / k[:, None]
     c = kz / k[:, None]
-    P = solution.moments[..., :3]                               # (W, 2, N, 3)
-    M = solution.moments[..., 3:]
-
-    def proj(V):
-        """s.V, q_hat.V (in-plane), V_z as (W, 2, G, N)."""
-        vx, vy = V[..., 0][:, :, None, :], V[..., 1][:, :, None, :]
-        ax, ay = qx[:, None, :, None], qy[:, None, :, None]
-        return ax * vy - ay * vx, ax * vx + ay * vy, V[..., 2][:, :, None, :]
-
-    sP, qP, zP = proj(P)
-    sM, qM, zM = proj(M)
-    cc, KK = c[:, None, :, None], K[:, None, :, None]
+    W, N = K.shape[0], st.centres.shape[0]
     rho = st.centres[:, :2]
     zj = st.centres[:, 2]
     pref = 1j * k[:, None] ** 2 / (2.0 * st.lattice.area * kz)            # (W, G)
-    inplane = np.exp(-1j * np.einsum("wgc,nc->wgn", q, rho))              # (W, G, N)
-    direct = (pref[..., None] * inplane * np.exp(1j * kz[..., None] * (z - zj)[None, None, :]))
-    direct = direct[:, None]                                              # (W, 1, G, N)
-    up_s = np.sum(direct * (sP - cc * qM + KK * zM), axis=-1)
-    up_p = np.sum(direct * (cc * qP - KK * zP + sM), axis=-1)
+    if N == 1:
+        inplane = np.exp(-1j * (q[..., 0] * rho[0, 0] + q[..., 1] * rho[0, 1]))[..., None]
+    else:
+        inplane = np.exp(-1j * np.einsum("wgc,nc->wgn", q, rho))          # (W, G, N)
+    x = np.reshape(solution.moments, (W, 2, N, 6))
+    xt = np.reshape(np.transpose(x, (0, 1, 3, 2)), (W, 12, N))            # (W, [t, a], N)
+
+    def sums(phase):
+        """sum_j phase_j x_j, per helicity and component: list of 6 arrays (W, 2, G)."""
+        d = pref[..., None] * inplane * phase                              # (W, G, N)
+        Y = np.reshape(np.matmul(xt, np.transpose(d, (0, 2, 1))), (W, 2, 6, -1))
+        return [Y[:, :, a] for a in range(6)]
+
+    cc, ux, uy, KK = c[:, None], qx[:, None], qy[:, None], K[:, None]    # (W, 1, G)
+    Px, Py, Pz, Mx, My, Mz = sums(np.exp(1j * kz[..., None] * (z - zj)[None, None, :]))
+    up_s = ux * (Py - cc * Mx) - uy * (Px + cc * My) + KK * Mz
+    up_p = cc * (ux * Px + uy * Py) - KK * Pz + ux * My - uy * Mx
     if st.has_substrate:
         eps_h = st.n_host ** 2 * np.ones_like(st.k0)
         coef = stack_coefficients(qn, st.k0, eps_h, st.eps_layers, st.thicknesses,
                                   st.eps_substrate, from_side="host")
         path = (z - st.z_top) + (zj - st.z_top)
-        refl = pref[..., None] * inplane * np.exp(1j * kz[..., None] * path[None, None, :])
-        refl = refl[:, None]
-        up_s = up_s + coef.r_s[:, None] * np.sum(refl * (sP + cc * qM + KK * zM), axis=-1)
-        up_p = up_p + coef.r_p[:, None] * np.sum(refl * (-cc * qP - KK * zP + sM), axis=-1)
-    up_e = np.stack([up_s, up_p], axis=-1)                                # (W, 2, G-1, 2)
-    up = np.concatenate([up0[:, :, None, :], up_e], axis=2)
+        Px, Py, Pz, Mx, My, Mz = sums(np.exp(1j * kz[..., None] * path[None, None, :]))
+        up_s = up_s + coef.r_s[:, None] * (ux * (Py + cc * Mx) - uy * (Px - cc * My) + KK * Mz)
+        up_p = up_p + coef.r_p[:, None] * (-cc * (ux * Px + uy * Py) - KK * Pz + ux * My
+                                           - uy * Mx)
+    up = np.concatenate([up0[..., None], np.stack([up_s, up_p], axis=2)], axis=3)
     return OrderContent(mn, g_norm, q_all, kz_all, k, up, down0, z, st.azimuth, st.n_host)
 
 
@@ -321,12 +338,12 @@ def order_fields(content: OrderContent):
     """
     s, pu, pd, ku, kd = content.basis()
     up = content.up
-    E_up = up[..., 0:1] * s[:, None] + up[..., 1:2] * pu[:, None]        # (W, 2, G, 3)
+    E_up = up[:, :, 0, :, None] * s[:, None] + up[:, :, 1, :, None] * pu[:, None]  # (W,2,G,3)
     H_up = cross(ku[:, None] * np.ones(E_up.shape), E_up)
     d = content.down
     E_d = d[..., 0:1] * s[:, None, 0] + d[..., 1:2] * pd[:, None, 0]      # (W, 2, 3)
     H_d = cross(kd[:, None, 0] * np.ones(E_d.shape), E_d)
-    G = up.shape[2]
+    G = up.shape[3]
     first = (onp.arange(G) == 0)[None, None, :, None]
     return E_up + first * E_d[:, :, None, :], H_up + first * H_d[:, :, None, :]
 

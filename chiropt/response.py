@@ -28,6 +28,9 @@ class Response:
     Attributes
     ----------
     wavelength_nm : (W,) [nm]
+    metrics : near-field region metrics (PHYSICS.md §4) when the design has a region:
+        u, c, g, background (W,); s0, docp, area_fraction {"+1", "-1"} (W,);
+        truncation (W,) estimated relative truncation error; n_orders
     R, T, A : power fractions reflected (into the medium of incidence), transmitted,
         and absorbed (A = 1 - R - T) [-]
     A_dipoles : absorbed fraction computed from the dipoles' own losses [-]
@@ -43,6 +46,7 @@ class Response:
     A_dipoles: onp.ndarray
     rayleigh: onp.ndarray
     warnings: list[str] = field(default_factory=list)
+    metrics: dict | None = None
     solution: Solution | None = field(default=None, repr=False)
 
     def spectra(self) -> dict[str, Any]:
@@ -51,6 +55,14 @@ class Response:
         for name in ("R", "T", "A"):
             arr = getattr(self, name)
             out[name] = {"+1": arr[:, 0].tolist(), "-1": arr[:, 1].tolist()}
+        if self.metrics is not None:
+            m = self.metrics
+            out["metrics"] = {k: onp.asarray(m[k]).tolist()
+                              for k in ("u", "c", "g", "background", "truncation")}
+            for k in ("s0", "docp", "area_fraction"):
+                if k in m:
+                    out["metrics"][k] = {h: onp.asarray(v).tolist() for h, v in m[k].items()}
+            out["metrics"]["n_orders"] = int(m["n_orders"])
         return out
 
 
@@ -67,15 +79,21 @@ def evaluate(design: Design, *, keep_solution: bool = False) -> Response:
     Response
     """
     notes: list[str] = []
+    metrics = None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         st = build_structure(design)
         sol = solve(st)
         frac = power_fractions(sol)
+        if design.region is not None:
+            from chiropt.metrics import region_metrics
+            from chiropt.sensitivity import metrics_tolerance
+
+            metrics = region_metrics(sol, design.region, tol=metrics_tolerance(design))
     for w in caught:
         notes.append(str(w.message))
     return Response(design=design, wavelength_nm=onp.asarray(st.wavelength_nm, float),
                     R=onp.asarray(frac["R"]), T=onp.asarray(frac["T"]),
                     A=onp.asarray(frac["A"]), A_dipoles=onp.asarray(frac["A_dipoles"]),
-                    rayleigh=onp.asarray(sol.rayleigh), warnings=notes,
+                    rayleigh=onp.asarray(sol.rayleigh), warnings=notes, metrics=metrics,
                     solution=sol if keep_solution else None)

@@ -130,6 +130,7 @@ def build_structure(design: Design, values: dict[str, Any] | None = None) -> Str
     """
     p = design.parameters()
     if values:
+        values = {k: v for k, v in values.items() if not k.startswith("region.")}
         unknown = set(values) - set(p)
         if unknown:
             from chiropt.errors import InputError

@@ -75,3 +75,50 @@ def test_evaluate_grad_unknown_path(tmp_path):
     res = _run("evaluate", "configs/quickstart-design.yaml", "--json", "--grad", "radius")
     assert res.returncode == 2
     assert "particles[0].radius_nm" in res.stderr
+
+
+def test_evaluate_metrics_orders_fields_contract(tmp_path):
+    # CONTRACT.md: "metrics" per wavelength, "orders" at --at-nm, npz layout of --fields.
+    import numpy as np
+
+    design = tmp_path / "d.yaml"
+    design.write_text("lattice: {kind: square, period_nm: 400}\n"
+                      "particles: [{radius_nm: 70, material: Si}]\n"
+                      "substrate: {material: SiO2}\n"
+                      "region: {kind: slab, from_nm: 5, thickness_nm: 20}\n"
+                      "illumination: {wavelength_nm: [620, 700]}\n")
+    npz = tmp_path / "f.npz"
+    res = _run("evaluate", str(design), "--json", "--at-nm", "655", "--fields", str(npz),
+               "--grid", "8")
+    assert res.returncode == 0, res.stderr
+    data = json.loads(res.stdout)
+    m = data["metrics"]
+    for key in ("u", "c", "g", "background"):
+        assert len(m[key]) == 2
+    for key in ("s0", "docp"):
+        assert set(m[key]) == {"+1", "-1"}
+    # g = c/u by definition (PHYSICS.md §4)
+    assert all(abs(g - c / u) < 1e-12 for g, c, u in zip(m["g"], m["c"], m["u"], strict=True))
+    rows = data["orders"]
+    assert rows[0]["m"] == 0 and rows[0]["n"] == 0 and rows[0]["bound"] is None
+    assert abs(sum(r["share"] for r in rows) - 1.0) < 1e-6
+    for r in rows[1:]:
+        assert {"m", "n", "K", "evanescent", "share", "g", "docp", "bound"} <= set(r)
+        if r["evanescent"]:  # PHYSICS.md §5 bound
+            assert abs(r["g"]) <= r["bound"] + 1e-12
+    f = np.load(npz)
+    assert f["E"].shape == (2, 2, 8, 8, 3) and f["H"].shape == (2, 2, 8, 8, 3)
+    assert f["x_nm"].shape == (8, 8)
+
+
+def test_inspect_writes_figures(tmp_path):
+    res = _run("inspect", "configs/near-field-design.yaml", "--at-nm", "650", "--out",
+               str(tmp_path), "--grid", "24")
+    assert res.returncode == 0, res.stderr
+    pngs = sorted(tmp_path.glob("*.png"))
+    assert len(pngs) == 4 and all(p.stat().st_size > 20_000 for p in pngs)
+
+
+def test_inspect_needs_region():
+    res = _run("inspect", "configs/quickstart-design.yaml", "--at-nm", "650")
+    assert res.returncode == 2 and "region" in res.stderr

@@ -11,6 +11,7 @@ from chiropt.design import design_from_dict
 from chiropt.sensitivity import (
     FAR_FIELD,
     compute_quantities,
+    quantity_names,
     spectrum_sensitivities,
     value_and_gradient,
 )
@@ -23,6 +24,7 @@ def _substrate_design(rng):
         "substrate": {"material": "SiO2"},
         "layers": [{"material": "Si3N4", "thickness_nm": float(rng.uniform(20, 80))}],
         "gap_nm": float(rng.uniform(2, 20)),
+        "region": {"kind": "plane", "height_nm": float(rng.uniform(5, 20))},
         "illumination": {"wavelength_nm": [float(rng.uniform(600, 800))],
                          "polar_deg": float(rng.uniform(5, 30)),
                          "azimuth_deg": float(rng.uniform(0, 40))},
@@ -42,6 +44,8 @@ def _free_design(rng):
              "position_nm": [float(rng.uniform(200, 230)), float(rng.uniform(160, 190))]},
         ],
         "host_index": float(rng.uniform(1.0, 1.4)),
+        "region": {"kind": "slab", "from_nm": float(rng.uniform(2, 10)),
+                   "thickness_nm": float(rng.uniform(10, 30))},
         "illumination": {"wavelength_nm": [float(rng.uniform(700, 850))],
                          "polar_deg": float(rng.uniform(5, 25)),
                          "azimuth_deg": float(rng.uniform(0, 40))},
@@ -64,6 +68,7 @@ def _near_rayleigh(_rng):
         "lattice": {"kind": "square", "period_nm": 400.0},
         "particles": [{"radius_nm": 60.0, "material": {"n": 3.0, "k": 0.02}}],
         "substrate": {"material": {"n": 1.46}},
+        "region": {"kind": "plane", "height_nm": 5.0},
         "illumination": {"wavelength_nm": [1.46 * 400.0 * 1.002], "polar_deg": 0.0},
     })
 
@@ -72,9 +77,9 @@ BUILDERS = {"substrate": _substrate_design, "free-oblique-coreshell": _free_desi
             "near-mie": _near_mie, "near-rayleigh": _near_rayleigh}
 
 
-def _objective(weights):
+def _objective(weights, names=FAR_FIELD):
     def f(q):
-        return sum(w * anp.sum(q[name]) for name, w in zip(FAR_FIELD, weights, strict=True))
+        return sum(w * anp.sum(q[name]) for name, w in zip(names, weights, strict=True))
     return f
 
 
@@ -92,8 +97,9 @@ STEP = {"illumination.wavelength_nm": 1e-3}
 def test_every_variable_against_finite_differences(case, seed):
     rng = np.random.default_rng(seed)
     design = BUILDERS[case](rng)
-    weights = rng.normal(size=len(FAR_FIELD))
-    objective = _objective(weights)
+    names = quantity_names(design)  # far field, and near-field metrics with a region
+    weights = rng.normal(size=len(names))
+    objective = _objective(weights, names)
     paths = list(design.parameters())
     sens = value_and_gradient(design, objective, paths)
     assert not sens.flagged
@@ -105,7 +111,7 @@ def test_every_variable_against_finite_differences(case, seed):
             fds = [_fd(design, objective, path, v0, h * np.ones_like(v0)) for h in (1e-2, 1e-3)]
         else:
             scale = max(abs(float(v0)), 1.0)
-            fds = [_fd(design, objective, path, float(v0), h * scale) for h in (1e-4, 1e-5)]
+            fds = [_fd(design, objective, path, float(v0), h * scale) for h in (1e-4, 1e-5, 1e-6)]
         errors = [abs(fd - ad) for fd in fds]
         tol = 1e-6 * max(abs(ad), 1e-3 * max(abs(sens.value), 1e-12))
         # step-size study: the better of the two steps meets 1e-6 relative

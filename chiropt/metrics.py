@@ -1,0 +1,623 @@
+"""Chirality and spin metrics of the near field: maps, region averages, per-order table.
+
+Owns: the incident reference (the unit circular wave in the host), the quadratic
+field quantities (energy density, optical chirality, lab-frame Stokes S0 and S3) as
+local maps, as exact region averages over a plane or a slab above the particles
+(Parseval over diffraction orders, closed-form z integrals), and per diffraction order;
+the single-wave CD bound and the attainable (DOCP, g) region of an order (PHYSICS.md §5).
+Must not import: search, store, report, cli.
+
+Definitions (PHYSICS.md §4; FORMULAS.md §5), for an incident wave of unit amplitude:
+
+- ``|E|^2`` (energy density ``U = eps |E|^2/4``), ``C_hat = -Im(conj(E) . Z H)``
+  (optical chirality ``C = -(eps omega/2) Im(conj(E) . B)`` in units of ``k U`` of a
+  unit circular wave: ``C_hat = +-1`` for helicity +-1), lab-frame Stokes
+  ``S0 = |Ex|^2 + |Ey|^2``, ``S3 = 2 Im(conj(Ex) Ey)``.
+- ``u = <|E+|^2 + |E-|^2>/2``, ``c = <C_hat+ - C_hat->/2``, ``g = c/u``,
+  ``background = <|E+|^2 - |E-|^2>/<|E+|^2 + |E-|^2>``;
+  per helicity h: ``s0 = <S0>/S0_inc``, ``docp = (<S3>/<S0>)/(S3_inc/S0_inc)``.
+- The incident reference is the incident circular wave alone, in the host, unit
+  amplitude, at the Bloch vector of the illumination: ``S0_inc = (1 + cos^2 t)/2``,
+  ``S3_inc = -h cos t`` for host-side illumination (wave going -z; PHYSICS.md §1 worked
+  check), ``+h cos t`` for substrate-side illumination (wave going +z, t its polar angle
+  in the host). If the Bloch vector is beyond the host light line (substrate-side
+  illumination past the critical angle) no such host wave exists: the reference is then
+  the normally incident circular wave (``cos t = 1``). ``|E|^2`` and ``C_hat`` of a
+  unit circular wave do not depend on its direction, so u, c, g are unaffected.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import autograd.numpy as np
+import numpy as onp
+from autograd.tracer import getval
+
+from chiropt.errors import InputError
+from chiropt.fields import (
+    NM,
+    OrderContent,
+    cell_grid,
+    field_maps,
+    order_content,
+    order_fields,
+    region_g_max,
+    region_span,
+)
+from chiropt.planewaves import cross
+from chiropt.solve import Solution
+from chiropt.structure import Structure
+
+HELICITY_KEYS = ("+1", "-1")
+_PHI1_SERIES = 1e-2
+
+
+# ----------------------------------------------------------------------------------------
+# reference and local quantities
+# ----------------------------------------------------------------------------------------
+
+def incident_reference(structure: Structure) -> dict:
+    """Lab-frame Stokes S0 and S3 of the reference circular wave (unit amplitude, host).
+
+    Parameters
+    ----------
+    structure : Structure
+
+    Returns
+    -------
+    dict with ``cos`` (W,) cos t of the reference wave's polar angle in the host [-],
+    ``s0`` (W,) and ``s3`` (W, 2) [V^2/m^2] (helicity axis [+1, -1]), ``docp`` (W, 2)
+    = s3/s0 = +-2 cos t/(1 + cos^2 t).
+
+    Notes
+    -----
+    See the module docstring for the substrate-side convention. The polarization
+    ``(p + i h s)/sqrt(2)`` projects onto the xy plane as ``(+-cos t q_hat + i h s)/sqrt(2)``.
+
+    References
+    ----------
+    PHYSICS.md §1 (Stokes sign, worked check), §4 (DOCP normalization).
+    """
+    st = structure
+    k = st.k
+    kpar2 = np.sum(st.k_par ** 2, axis=-1)
+    arg = k ** 2 - kpar2
+    if st.side == "host":
+        cos, sigma = np.sqrt(arg) / k, -1.0
+    else:
+        ok = getval(arg) > 0
+        cos = np.where(ok, np.sqrt(np.where(ok, arg, 1.0)) / k, 1.0 * np.ones(k.shape))
+        sigma = 1.0
+    s0 = (1.0 + cos ** 2) / 2.0
+    s3 = sigma * cos[:, None] * np.array([1.0, -1.0])[None, :]
+    return {"cos": cos, "s0": s0, "s3": s3, "docp": s3 / s0[:, None]}
+
+
+def quadratic_maps(E, ZH) -> dict:
+    """Local |E|^2, C_hat, S0, S3 of fields E, Z H (..., 3) [V/m] -> arrays (...) [V^2/m^2].
+
+    References
+    ----------
+    Tang & Cohen, PRL 104, 163901 (2010) (optical chirality; FORMULAS.md §5 for the
+    time-harmonic form ``C = -(eps omega/2) Im(E* . B)``); PHYSICS.md §1 (Stokes).
+    """
+    def dot(a, b):  # explicit: numpy reductions over a length-3 last axis are slow
+        return a[..., 0] * b[..., 0] + a[..., 1] * b[..., 1] + a[..., 2] * b[..., 2]
+
+    return {"EE": np.real(dot(np.conj(E), E)),
+            "C": -np.imag(dot(np.conj(E), ZH)),
+            "S0": np.abs(E[..., 0]) ** 2 + np.abs(E[..., 1]) ** 2,
+            "S3": 2.0 * np.imag(np.conj(E[..., 0]) * E[..., 1])}
+
+
+def _metrics_from(q: dict, ref: dict) -> dict:
+    """Metrics from helicity-resolved quadratic quantities with axis 1 = helicity.
+
+    ``q[...]`` has shape (W, 2, ...); the result has shape (W, ...).
+    """
+    EE, C, S0, S3 = q["EE"], q["C"], q["S0"], q["S3"]
+    extra = (1,) * (EE.ndim - 2)
+    u = (EE[:, 0] + EE[:, 1]) / 2.0
+    c = (C[:, 0] - C[:, 1]) / 2.0
+    s0inc = ref["s0"].reshape((-1,) + extra)
+    out: dict[str, Any] = {"u": u, "c": c, "g": c / u,
+                           "background": (EE[:, 0] - EE[:, 1]) / (EE[:, 0] + EE[:, 1]),
+                           "s0": {}, "docp": {}}
+    for i, key in enumerate(HELICITY_KEYS):
+        dinc = ref["docp"][:, i].reshape((-1,) + extra)
+        out["s0"][key] = S0[:, i] / s0inc
+        out["docp"][key] = S3[:, i] / S0[:, i] / dinc
+    return out
+
+
+def local_metrics(E, ZH, structure: Structure) -> dict:
+    """Metric maps from fields of both helicities.
+
+    Parameters
+    ----------
+    E, ZH : (W, 2, ..., 3) complex — E and Z H [V/m] for incident helicities [+1, -1]
+        (e.g. from :func:`chiropt.fields.field_maps`)
+    structure : Structure
+
+    Returns
+    -------
+    dict of arrays (W, ...): ``u``, ``c``, ``g``, ``background``; ``s0`` and ``docp`` as
+    ``{"+1": ..., "-1": ...}`` (local values, definitions in the module docstring).
+
+    References
+    ----------
+    PHYSICS.md §4.
+    """
+    return _metrics_from(quadratic_maps(E, ZH), incident_reference(structure))
+
+
+# ----------------------------------------------------------------------------------------
+# region averages from orders
+# ----------------------------------------------------------------------------------------
+
+def _phi1(x):
+    """(exp(x) - 1)/x for complex x, exact at 0 (the mean of exp(x t) over t in [0, 1])."""
+    small = np.abs(getval(x)) < _PHI1_SERIES
+    xs = np.where(small, 1.0 + 0j, x)
+    series = 1.0 + x * (1 / 2 + x * (1 / 6 + x * (1 / 24 + x * (1 / 120 + x * (
+        1 / 720 + x / 5040)))))
+    return np.where(small, series, np.expm1(xs) / xs)
+
+
+def order_averages(content: OrderContent, thickness, *, side: str = "host") -> dict:
+    """Cell- and slab-averaged |E|^2, C_hat, S0, S3 of every order, (W, 2, G) each.
+
+    Parameters
+    ----------
+    content : OrderContent — amplitudes at the bottom of the region
+    thickness : float — slab thickness L >= 0 [m] (0: a plane)
+    side : ``'host'`` or ``'substrate'`` — illumination side (no incident downward wave
+        from the substrate side)
+
+    Notes
+    -----
+    Orders other than (0,0) are single upward waves; with ``a_s, a_p`` on (s, p_up),
+    ``c = kz/k``, ``K = |q|/k`` and ``|p|^2 = K^2 + |c|^2`` (2K^2 - 1 if evanescent):
+    ``|E|^2 = |a_s|^2 + |p|^2 |a_p|^2``, ``C_hat = -(1 + |p|^2) Im(conj(a_s) a_p)``,
+    ``S0 = |a_s|^2 + |c|^2 |a_p|^2``, ``S3 = 2 Im(conj(c a_p) a_s)`` (in-plane field
+    ``(c a_p, a_s)`` on the right-handed axes (q_hat, s)), times the slab mean of
+    ``exp(-2 Im(kz) z)``. The (0,0) order is the up wave plus the incident down wave;
+    each product of waves a, b is averaged with the mean of
+    ``exp(i (beta_b - conj(beta_a)) z)``, ``beta = +-kz``, over the slab: the
+    up/down cross terms oscillate as ``exp(-+2 i Re(kz) z)``.
+
+    References
+    ----------
+    PHYSICS.md §3, §5 (single-wave forms); FORMULAS.md §3, §5.
+    """
+    up = content.up
+    a_s, a_p = up[:, :, 0], up[:, :, 1]                      # (W, 2, G)
+    c = content.kz_over_k                                     # (W, G)
+    K = content.K
+    c2 = np.real(c) ** 2 + np.imag(c) ** 2
+    p2 = (K ** 2 + c2)[:, None]
+    ss = np.real(a_s) ** 2 + np.imag(a_s) ** 2
+    pp = np.real(a_p) ** 2 + np.imag(a_p) ** 2
+    sp = np.conj(a_s) * a_p
+    decay = np.real(_phi1(-2.0 * np.imag(content.kz) * thickness))[:, None]   # (W, 1, G)
+    res = {"EE": (ss + p2 * pp) * decay,
+           "C": -(1.0 + p2) * np.imag(sp) * decay,
+           "S0": (ss + c2[:, None] * pp) * decay,
+           "S3": 2.0 * np.imag(np.conj(c)[:, None] * np.conj(sp)) * decay}
+
+    # (0,0): up and down waves with interference, explicit vectors
+    o0 = OrderContent(content.mn[:1], content.g_norm[:1], content.q[:, :1], content.kz[:, :1],
+                      content.k, content.up[..., :1], content.down, content.z,
+                      content.azimuth, content.n_host)
+    s, pu, pd, ku, kd = o0.basis()
+    Eu = up[:, :, 0, 0, None] * s[:, None, 0] + up[:, :, 1, 0, None] * pu[:, None, 0]  # (W,2,3)
+    Hu = cross(ku[:, None, 0] * np.ones(Eu.shape), Eu)
+    kz0 = content.kz[:, 0]
+    if side == "host":
+        d = content.down
+        Ed = d[..., 0:1] * s[:, None, 0] + d[..., 1:2] * pd[:, None, 0]
+        Hd = cross(kd[:, None, 0] * np.ones(Ed.shape), Ed)
+        Ew, Hw = np.stack([Eu, Ed], axis=2), np.stack([Hu, Hd], axis=2)   # (W, 2, 2, 3)
+        beta = np.stack([kz0, -kz0], axis=-1)                              # (W, 2)
+    else:
+        Ew, Hw = Eu[:, :, None], Hu[:, :, None]
+        beta = kz0[:, None]
+    expo = 1j * (beta[:, None, :] - np.conj(beta)[:, :, None]) * thickness  # (W, a, b)
+    m = _phi1(expo)
+    cE = np.conj(Ew)
+    r0 = {"EE": np.real(np.einsum("wtai,wtbi,wab->wt", cE, Ew, m)),
+          "C": -np.imag(np.einsum("wtai,wtbi,wab->wt", cE, Hw, m)),
+          "S0": np.real(np.einsum("wtai,wtbi,wab->wt", cE[..., :2], Ew[..., :2], m)),
+          "S3": 2.0 * np.imag(np.einsum("wta,wtb,wab->wt", cE[..., 0], Ew[..., 1], m))}
+    G = up.shape[3]
+    first = (onp.arange(G) == 0)[None, None, :]
+    return {key: np.where(first, r0[key][..., None] * np.ones(res[key].shape), res[key])
+            for key in res}
+
+
+def region_content(solution: Solution, region, *, tol: float | None = None):
+    """Order content at the bottom of a region and the region's thickness.
+
+    Returns
+    -------
+    (content, thickness) : OrderContent at ``z_lo`` (orders chosen by
+    :func:`chiropt.fields.region_g_max` for ``tol``) and ``z_hi - z_lo`` [m].
+    """
+    st = solution.structure
+    z_lo, z_hi = region_span(st, region)
+    g_max = region_g_max(st, z_lo, tol=tol)
+    return order_content(solution, z_lo, g_max=g_max), z_hi - z_lo
+
+
+def region_averages(solution: Solution, region, *, tol: float | None = None) -> dict:
+    """Region-averaged |E|^2, C_hat, S0, S3 per helicity, (W, 2) each, plus per order.
+
+    Parameters
+    ----------
+    solution : Solution
+    region : RegionSpec-like (``kind`` plane or slab; fields in nm, may be traced)
+    tol : float, optional — order truncation target (default ``structure.tolerance``)
+
+    Returns
+    -------
+    dict: ``EE, C, S0, S3`` (W, 2) [V^2/m^2]; ``orders`` the per-order dict (W, 2, G);
+    ``content`` the OrderContent at the region bottom; ``thickness`` [m].
+
+    References
+    ----------
+    PHYSICS.md §3 (Parseval: cross terms of different orders vanish on the cell average).
+    """
+    content, L = region_content(solution, region, tol=tol)
+    per = order_averages(content, L, side=solution.structure.side)
+    out = {key: np.sum(val, axis=-1) for key, val in per.items()}
+    out.update(orders=per, content=content, thickness=L)
+    return out
+
+
+def _truncation(per: dict, content: OrderContent):
+    """Share of the outermost ring of orders kept in u (plus |c|), (W,) plain.
+
+    Ring: max|G| - |b|min < |G| <= max|G| (|b|min the shortest reciprocal vector). The
+    dropped orders beyond hold about exp(-2 |b| d)/(1 - exp(-2 |b| d)) of it (geometric
+    decay from the nearest particle at distance d), i.e. less than the ring itself once
+    |b| d > 0.35: the estimate is an upper bound in practice (measured 2-4x above the
+    true error of u and g, 4-60x, on the cases of tests/test_metrics.py).
+    """
+    EE, C = getval(per["EE"]), getval(per["C"])
+    gn = content.g_norm
+    if len(gn) < 2:
+        return onp.zeros(EE.shape[0])
+    ring = gn > gn.max() - gn[gn > 0].min()
+    u_all = onp.sum(EE, axis=(1, 2)) / 2.0
+    u_ring = onp.sum(EE[..., ring], axis=(1, 2)) / 2.0
+    c_ring = onp.abs(onp.sum(C[:, 0, ring] - C[:, 1, ring], axis=-1)) / 2.0
+    return (u_ring + c_ring) / u_all
+
+
+def region_metrics(solution: Solution, region, *, tol: float | None = None,
+                   area_grid: int = 48, area_planes: int = 4) -> dict:
+    """Metrics of PHYSICS.md §4 averaged over a plane or slab above the particles.
+
+    Parameters
+    ----------
+    solution : Solution — from :func:`chiropt.solve.solve` (no extra orders needed:
+        the evanescent orders are computed from the moments)
+    region : RegionSpec-like — ``kind='plane'`` with ``height_nm`` [nm] above the highest
+        particle top, or ``kind='slab'`` with ``from_nm`` [nm] and ``thickness_nm`` [nm];
+        numeric fields may be autograd-traced
+    tol : float, optional — relative truncation target of the orders (default
+        ``structure.tolerance``)
+    area_grid : int — grid points per lattice vector for the area fraction; 0 skips it
+    area_planes : int — z planes (midpoints) sampled in a slab for the area fraction
+
+    Returns
+    -------
+    dict: ``u, c, g, background`` (W,) [-]; ``s0, docp`` as ``{"+1": (W,), "-1": (W,)}``;
+    ``area_fraction`` ``{"+1", "-1"}`` (W,) (absent when ``area_grid=0``);
+    ``truncation`` (W,) estimated relative truncation error (plain values);
+    ``n_orders`` number of orders kept.
+
+    Notes
+    -----
+    Averages are exact sums over orders (Parseval) with closed-form z integrals; they are
+    autograd-differentiable. The area fraction (fraction of the region where the local
+    lab-frame S3 has the sign of the incident's S3_inc) is a grid count, not
+    differentiable (returned as plain values).
+
+    References
+    ----------
+    PHYSICS.md §3, §4; Tang & Cohen, PRL 104, 163901 (2010).
+    """
+    st = solution.structure
+    avg = region_averages(solution, region, tol=tol)
+    ref = incident_reference(st)
+    out = _metrics_from(avg, ref)
+    out["truncation"] = _truncation(avg["orders"], avg["content"])
+    out["n_orders"] = int(len(avg["content"].mn))
+    if area_grid:
+        frac = handedness_fraction(avg["content"], avg["thickness"], st, n=area_grid,
+                                   planes=area_planes)
+        out["area_fraction"] = {key: frac[:, i] for i, key in enumerate(HELICITY_KEYS)}
+    return out
+
+
+def handedness_fraction(content: OrderContent, thickness, structure: Structure, *,
+                        n: int = 48, planes: int = 4):
+    """Fraction of a plane or slab where the local S3 has the incident's sign, (W, 2).
+
+    Parameters
+    ----------
+    content : OrderContent — at the region bottom
+    thickness : float — slab thickness [m] (0: the plane itself)
+    structure : Structure
+    n : int — grid points per lattice vector (grid of :func:`chiropt.fields.cell_grid`)
+    planes : int — z samples (midpoints) in a slab
+
+    Notes
+    -----
+    Evaluated by inverse FFT on the n x n grid (orders aliased onto the grid exactly as
+    sampling does); plain numpy, no derivative (a step function). The sign map varies
+    on the scale of the shortest decay length and of the period; n = 48 resolves the
+    pattern of the rings that dominate above the tops (the test checks the fraction
+    against n = 96).
+    """
+    L = float(getval(thickness))
+    plain = _plain_content(content)
+    if L > 0:
+        dzs = (onp.arange(planes) + 0.5) / planes * L
+    else:
+        dzs = onp.zeros(1)
+    ref = getval(incident_reference(structure)["s3"])
+    sign = onp.sign(ref)                                                  # (W, 2)
+    idx = (plain.mn[:, 0] % n, plain.mn[:, 1] % n)
+    unique = len(set(zip(*idx, strict=True))) == len(plain.mn)
+    count = onp.zeros(sign.shape)
+    for dz in dzs:
+        E, _ = order_fields(plain.shifted(dz))
+        E = onp.asarray(E)[..., :2]                                       # (W, 2, G, 2)
+        grid = onp.zeros(E.shape[:2] + (2, n, n), dtype=complex)
+        where = (slice(None), slice(None), slice(None)) + idx
+        if unique:
+            grid[where] = onp.moveaxis(E, 2, -1)
+        else:  # orders alias onto the same grid frequency: they add, as sampling does
+            onp.add.at(grid, where, onp.moveaxis(E, 2, -1))
+        f = onp.fft.ifft2(grid, axes=(-2, -1)) * n * n                   # (W, 2, 2, n, n)
+        s3 = 2.0 * onp.imag(onp.conj(f[:, :, 0]) * f[:, :, 1])
+        count += onp.mean(s3 * sign[:, :, None, None] > 0, axis=(-2, -1))
+    return count / len(dzs)
+
+
+def _plain_content(c: OrderContent) -> OrderContent:
+    return OrderContent(c.mn, c.g_norm, *(onp.asarray(getval(x)) for x in
+                                          (c.q, c.kz, c.k, c.up, c.down, c.z, c.azimuth,
+                                           c.n_host)))
+
+
+# ----------------------------------------------------------------------------------------
+# per-order metrics and the attainable (DOCP, g) region
+# ----------------------------------------------------------------------------------------
+
+def cd_bound(K):
+    """Largest |g| of one plane wave with in-plane wavenumber K = |q|/k [-].
+
+    ``K^2/sqrt(2 K^2 - 1)`` for an evanescent wave (K > 1), 1 for a propagating one.
+
+    References
+    ----------
+    PHYSICS.md §5 (our derivation: |E|^2 = |s|^2 + (2K^2-1)|p|^2, C ~ 2K^2 Im(conj(s) p);
+    tested in tests/test_metrics.py).
+    """
+    ev = onp.asarray(getval(K)) > 1.0
+    Ks = np.where(ev, K, 2.0)
+    return np.where(ev, Ks ** 2 / np.sqrt(2.0 * Ks ** 2 - 1.0), 1.0)
+
+
+def attainable_fill(K, docp, g):
+    """Where a single wave's (DOCP, g) lies in its attainable region: radial fill [-].
+
+    Parameters
+    ----------
+    K : array — |q|/k of the wave [-]
+    docp : array — lab-frame S3/S0 of the wave (not normalized to the incident) [-]
+    g : array — C_hat/|E|^2 of the wave [-]
+
+    Returns
+    -------
+    array — ``|point| / |boundary point on the same ray from the origin|``: <= 1 inside,
+    1 on the boundary, > 1 outside (inf where a propagating wave's ray misses the region).
+
+    Notes
+    -----
+    Evanescent (K > 1): the region is the union over r = |p/s| of ellipses with semi-axes
+    ``a(r) = 2 alpha r/(1 + alpha^2 r^2)`` (DOCP), ``b(r) = 2 K^2 r/(1 + beta^2 r^2)`` (g),
+    alpha^2 = K^2 - 1, beta^2 = 2K^2 - 1. A point is inside iff
+    ``min_r (D^2/a^2 + g^2/b^2) <= 1``; with ``c1 = D^2/(4 alpha^2)``, ``c2 = g^2/(4 K^4)``
+    the minimum is ``2 sqrt((c1 + c2)(c1 alpha^4 + c2 beta^4)) + 2 (c1 alpha^2 + c2 beta^2)``,
+    homogeneous of degree 2 in (D, g): its square root is the radial fill (our derivation).
+    Propagating (K < 1, c = sqrt(1 - K^2)): DOCP and g share the factor -Im(conj(s) p):
+    ``(D, g) = u (2 c r/(1 + c^2 r^2), 2 r/(1 + r^2))``, |u| <= 1; eliminating r
+    (``r . 1/r = 1``) gives the fill ``|u| = K^2 |g D| / (2 sqrt(c (D - c g)(g - c D)))``
+    (inf outside the cone c <= g/D <= 1/c). The region pinches to the origin at the cone
+    edges (nearly pure s or p waves, r -> 0 or infinity; width ~ K^2 min(r, 1/r)^2): the
+    fill is ill-conditioned within round-off of them.
+
+    References
+    ----------
+    PHYSICS.md §5.
+    """
+    K = onp.asarray(getval(K), dtype=float)
+    D = onp.asarray(getval(docp), dtype=float)
+    g = onp.asarray(getval(g), dtype=float)
+    K, D, g = onp.broadcast_arrays(K, D, g)
+    out = onp.full(K.shape, onp.nan)
+    ev = K > 1.0
+    a2 = K[ev] ** 2 - 1.0
+    b2 = 2.0 * K[ev] ** 2 - 1.0
+    c1 = D[ev] ** 2 / (4.0 * a2)
+    c2 = g[ev] ** 2 / (4.0 * K[ev] ** 4)
+    out[ev] = onp.sqrt(2.0 * onp.sqrt((c1 + c2) * (c1 * a2 ** 2 + c2 * b2 ** 2))
+                       + 2.0 * (c1 * a2 + c2 * b2))
+    pr = ~ev
+    Kp = K[pr]
+    c = onp.sqrt(onp.clip(1.0 - Kp ** 2, 0.0, 1.0))
+    scale = onp.maximum(onp.abs(D[pr]), onp.abs(g[pr]))
+    safe = onp.where(scale > 0, scale, 1.0)
+    Dp, gp = D[pr] / safe, g[pr] / safe
+    prod = c * (Dp - c * gp) * (gp - c * Dp)
+    with onp.errstate(divide="ignore", invalid="ignore"):
+        u = Kp ** 2 * onp.abs(gp * Dp) / (2.0 * onp.sqrt(prod)) * safe
+    u = onp.where(prod < 0, onp.inf, u)
+    # near-normal waves (cone narrower than 1e-8): DOCP = g to that accuracy, fill |g|
+    u = onp.where(Kp ** 2 < 1e-8, onp.where(onp.abs(Dp - gp) < 1e-7, onp.abs(g[pr]), onp.inf), u)
+    u = onp.where(scale < 1e-12, scale, u)  # at the origin to round-off
+    out[pr] = u
+    return out
+
+
+def attainable_boundary(K: float, n: int = 721):
+    """Boundary of the attainable (DOCP, g) region of one wave, for plotting.
+
+    Parameters
+    ----------
+    K : float — |q|/k [-]
+    n : int — number of points
+
+    Returns
+    -------
+    (docp, g) : arrays (n,) [-] — a closed curve for K > 1; for K <= 1 the two loops
+    (first and third quadrant) separated by a NaN.
+
+    References
+    ----------
+    PHYSICS.md §5 (see :func:`attainable_fill`).
+    """
+    K = float(K)
+    if K > 1.0:
+        th = onp.linspace(0.0, 2.0 * onp.pi, n)
+        x, y = onp.cos(th), onp.sin(th)
+        rad = 1.0 / attainable_fill(K * onp.ones(n), x, y)
+        return rad * x, rad * y
+    c = onp.sqrt(1.0 - K ** 2)
+    half = (n - 1) // 2
+    r = onp.tan(onp.linspace(0.0, onp.pi / 2, half))
+    with onp.errstate(invalid="ignore"):
+        D = onp.where(onp.isfinite(r), 2 * c * r / (1 + c ** 2 * r ** 2), 0.0)
+        G = onp.where(onp.isfinite(r), 2 * r / (1 + r ** 2), 0.0)
+    return (onp.concatenate([D, [onp.nan], -D]), onp.concatenate([G, [onp.nan], -G]))
+
+
+def order_metrics(solution: Solution, region, *, tol: float | None = None) -> dict:
+    """Per-order metrics over a region, arrays (W, G) (differentiable ones traced).
+
+    Returns
+    -------
+    dict: ``mn`` (G, 2) int; ``K`` (W, G) |q|/k; ``evanescent`` (W, G) bool;
+    ``share`` (W, G) of the region's <|E|^2> (both helicities); ``g`` (W, G)
+    helicity-combined ``(C+ - C-)/(|E+|^2 + |E-|^2)`` of the order; ``docp``
+    ``{"+1", "-1"}`` (W, G) normalized to the incident's DOCP; ``bound`` (W, G)
+    (NaN for (0,0)); ``fill`` ``{"+1", "-1"}`` (W, G) radial fill of the order's own
+    attainable region at its per-helicity (lab DOCP, C_hat/|E|^2) (NaN for (0,0)).
+
+    References
+    ----------
+    PHYSICS.md §4 (per-order metrics), §5 (bounds).
+    """
+    st = solution.structure
+    avg = region_averages(solution, region, tol=tol)
+    per, content = avg["orders"], avg["content"]
+    ref = incident_reference(st)
+    EE, C, S0, S3 = per["EE"], per["C"], per["S0"], per["S3"]
+    tot = np.sum(EE[:, 0] + EE[:, 1], axis=-1)[:, None]
+    K = content.K
+    G = K.shape[1]
+    first = onp.arange(G) == 0
+    out: dict[str, Any] = {
+        "mn": content.mn, "K": K, "evanescent": getval(K) > 1.0,
+        "share": (EE[:, 0] + EE[:, 1]) / tot,
+        "g": (C[:, 0] - C[:, 1]) / (EE[:, 0] + EE[:, 1]),
+        "bound": onp.where(first[None, :], onp.nan, getval(cd_bound(K))),
+        "docp": {}, "fill": {}}
+    for i, key in enumerate(HELICITY_KEYS):
+        out["docp"][key] = S3[:, i] / S0[:, i] / ref["docp"][:, i][:, None]
+        fill = attainable_fill(K, getval(S3[:, i] / S0[:, i]), getval(C[:, i] / EE[:, i]))
+        out["fill"][key] = onp.where(first[None, :], onp.nan, fill)
+    return out
+
+
+def order_table(solution: Solution, region, wavelength_index: int, *,
+                tol: float | None = None, min_share: float = 0.0) -> list[dict]:
+    """JSON-ready per-order table at one wavelength (CONTRACT.md ``"orders"``).
+
+    Parameters
+    ----------
+    solution : Solution
+    region : RegionSpec-like
+    wavelength_index : int — index into the solution's wavelengths
+    tol : float, optional — order truncation target
+    min_share : float — leave out orders with a smaller share of <U> [-] (0 keeps all)
+
+    Returns
+    -------
+    list of dicts, one per order: ``m, n, K, evanescent, share, g, docp {"+1", "-1"},
+    bound`` (number for evanescent orders, 1 for propagating orders other than (0,0),
+    None for (0,0)), ``fill {"+1", "-1"}`` (None for (0,0); see :func:`attainable_fill`).
+    """
+    W = len(onp.atleast_1d(getval(solution.structure.wavelength_nm)))
+    if isinstance(wavelength_index, bool) or not isinstance(wavelength_index, (int, onp.integer)) \
+            or not -W <= wavelength_index < W:
+        raise InputError("wavelength_index", f"got {wavelength_index!r}, allowed an integer "
+                                             f"in [0, {W - 1}]")
+    om = order_metrics(solution, region, tol=tol)
+    w = int(wavelength_index)
+
+    def val(x):
+        return onp.asarray(getval(x))[w]
+
+    rows = []
+    for j, (m, n) in enumerate(om["mn"]):
+        share = float(val(om["share"])[j])
+        if share < min_share:
+            continue
+        zero = j == 0
+        rows.append({
+            "m": int(m), "n": int(n), "K": float(val(om["K"])[j]),
+            "evanescent": bool(om["evanescent"][w, j]), "share": share,
+            "g": float(val(om["g"])[j]),
+            "docp": {key: float(val(om["docp"][key])[j]) for key in HELICITY_KEYS},
+            "bound": None if zero else float(om["bound"][w, j]),
+            "fill": None if zero else {key: _json_number(om["fill"][key][w, j])
+                                       for key in HELICITY_KEYS}})
+    return rows
+
+
+def _json_number(x):
+    x = float(x)
+    return x if onp.isfinite(x) else None
+
+
+# ----------------------------------------------------------------------------------------
+# maps at a plane
+# ----------------------------------------------------------------------------------------
+
+def plane_maps(solution: Solution, z_nm: float, n: int, *, tol: float | None = None) -> dict:
+    """Local metric maps on the n x n cell grid at height ``z_nm`` [nm] above the stack origin.
+
+    Parameters
+    ----------
+    solution : Solution
+    z_nm : float — plane height [nm] (substrate top, or particle bottoms, at 0)
+    n : int — grid points per lattice vector
+    tol : float, optional — order truncation target
+
+    Returns
+    -------
+    dict of :func:`local_metrics` maps (W, n, n), plus ``x_nm``, ``y_nm`` (n, n).
+    """
+    st = solution.structure
+    content = order_content(solution, z_nm * NM, tol=tol)
+    E, ZH = field_maps(content, st.lattice, n)
+    out = local_metrics(E, ZH, st)
+    xy = cell_grid(st.lattice.plain(), n) / NM
+    out["x_nm"], out["y_nm"] = xy[..., 0], xy[..., 1]
+    return out

@@ -1,0 +1,240 @@
+"""Plots of a run: the front, the convergence of each start, fronts compared across materials.
+
+Owns: ``plot_front``, ``plot_convergence``, ``plot_comparison``. The look comes from
+``chiropt.report.style``. Must not import: cli, store writers (reads records it is given).
+
+The (DOCP, g) panel shows, when ``chiropt.metrics`` offers them, the CD bound
+``K^2/sqrt(2K^2 - 1)`` and the attainable boundary of the dominant evanescent order of the
+best-g candidate (PHYSICS.md §5); without them the panel is drawn without the overlay.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import numpy as onp
+
+from chiropt.report.style import PALETTE, new_figure, save
+
+__all__ = ["plot_comparison", "plot_convergence", "plot_front"]
+
+FRONT_COLOR = "#D55E00"
+CLOUD_COLOR = "0.78"
+START_COLORS = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
+                "#000000")
+
+
+def _axis_label(label: str) -> str:
+    name = label.split("@")[0]
+    unit = "[-]"
+    words = {"u": "intensity enhancement u", "g": "CD enhancement g", "c": "chirality c",
+             "docp": "DOCP", "s0": "spin s0"}
+    base = name.rstrip("+-1") if name[-2:] in ("+1", "-1") else name
+    nice = words.get(base, name)
+    if name != base:
+        nice += f" (helicity {name[-2:]})"
+    where = label.split("@")[1] if "@" in label else ""
+    return f"{nice} at {where} {unit}" if where else f"{nice} {unit}"
+
+
+def _metric_at(problem, rec, name, spec) -> float:
+    q = {k: onp.asarray(v) for k, v in rec.evaluation.metrics["quantities"].items()}
+    return float(problem._spec_value(q, name, spec))
+
+
+def _order_overlay(ax, problem, rec, spec) -> str:
+    """Draw the dominant evanescent order's bound and attainable boundary; return a note."""
+    try:
+        from chiropt.metrics import attainable_boundary, order_table
+        from chiropt.solve import solve
+        from chiropt.structure import build_structure
+    except ImportError:
+        return "per-order bound not drawn (chiropt.metrics lacks it)"
+    try:
+        design = problem.design_at(rec.x)
+        wl = list(design.illumination.wavelength_nm)
+        w0 = spec.wavelengths_nm[len(spec.wavelengths_nm) // 2]
+        shift = problem.wavelengths_at(rec.x)[0] - problem.wavelengths_nm[0]
+        k = int(onp.argmin(onp.abs(onp.asarray(wl) - (w0 + shift))))
+        st = build_structure(design)
+        from chiropt.metrics import required_g_max
+
+        sol = solve(st, warn=False, g_max=required_g_max(st, design.region, None))
+        rows = [r for r in order_table(sol, design.region, k) if r["evanescent"]]
+        if not rows:
+            return "no evanescent order at the best-g design"
+        top = max(rows, key=lambda r: r["share"])
+        K = top["K"]
+        d, g = attainable_boundary(K)
+        ax.plot(d, g, color="0.35", lw=0.9, ls=(0, (3, 2)),
+                label=f"attainable, order ({top['m']},{top['n']}), K = {K:.3g}")
+        ax.axhline(top["bound"], color="0.35", lw=0.8, ls=":",
+                   label=f"CD bound K²/√(2K²−1) = {top['bound']:.3g}")
+        return ""
+    except Exception as exc:  # an overlay must never stop the report
+        return f"per-order overlay skipped ({type(exc).__name__})"
+
+
+def plot_front(path, problem, records, F, feasible, chosen, picks) -> Path:
+    """The front in objective space and, with a region, in the (DOCP, g) plane coloured by u.
+
+    Parameters
+    ----------
+    path : PNG file
+    problem : GoalProblem
+    records : stored evaluations (unique designs, status ok), rows of ``F``
+    F : (N, M) objective values; feasible : (N,) bool
+    chosen : indices of the front (in ``records``); picks : front positions with a candidate
+    """
+    goal = problem.goal
+    region = goal.design.region is not None
+    M = F.shape[1] if F.size else len(goal.objectives)
+    fig, axes = new_figure(1, 2 if region else 1, width=5.2, height=4.2)
+    ax = axes[0, 0]
+    labels = [o.label() for o in goal.objectives]
+    fe = onp.asarray(feasible, bool)
+    if M == 2:
+        ax.scatter(F[~fe, 0], F[~fe, 1], s=6, marker="x", color=CLOUD_COLOR, lw=0.6,
+                   label="infeasible")
+        ax.scatter(F[fe, 0], F[fe, 1], s=7, color="0.55", label="feasible evaluations")
+        if chosen:
+            Fc = F[chosen]
+            ax.plot(Fc[:, 0], Fc[:, 1], "-o", color=FRONT_COLOR, ms=4, lw=1.2,
+                    label="non-dominated front")
+            for j in picks:
+                ax.annotate(f"c{j:03d}", Fc[j], textcoords="offset points", xytext=(4, 4),
+                            fontsize=7)
+        ax.set_xlabel(_axis_label(labels[0]))
+        ax.set_ylabel(_axis_label(labels[1]))
+        ax.set_title("objective space")
+    else:
+        idx = onp.arange(F.shape[0])
+        ax.scatter(idx[fe], F[fe, 0], s=7, color="0.55", label="feasible evaluations")
+        ax.scatter(idx[~fe], F[~fe, 0], s=6, marker="x", color=CLOUD_COLOR, label="infeasible")
+        if chosen:
+            ax.scatter(onp.asarray(chosen), F[chosen, 0], s=30, color=FRONT_COLOR,
+                       label="best of each search")
+        ax.set_xlabel("unique design (evaluation order) [-]")
+        ax.set_ylabel(_axis_label(labels[0]))
+        ax.set_title("objective")
+    ax.legend(loc="best")
+    if region:
+        ax = axes[0, 1]
+        spec = goal.objectives[0].spec
+        for o in goal.objectives:
+            if any(m in ("g", "docp", "docp+1", "docp-1") for m in o.metrics):
+                spec = o.spec
+                break
+        idx = [i for i in range(len(records)) if fe[i]] or list(range(len(records)))
+        D = onp.array([_metric_at(problem, records[i], "docp", spec) for i in idx])
+        g = onp.array([_metric_at(problem, records[i], "g", spec) for i in idx])
+        u = onp.array([_metric_at(problem, records[i], "u", spec) for i in idx])
+        sc = ax.scatter(D, g, c=u, s=8, cmap="viridis", alpha=0.55, lw=0)
+        if chosen:
+            Dc = onp.array([_metric_at(problem, records[i], "docp", spec) for i in chosen])
+            gc = onp.array([_metric_at(problem, records[i], "g", spec) for i in chosen])
+            uc = onp.array([_metric_at(problem, records[i], "u", spec) for i in chosen])
+            ax.scatter(Dc, gc, c=uc, s=36, cmap="viridis", edgecolors=FRONT_COLOR,
+                       linewidths=1.0, vmin=u.min() if u.size else None,
+                       vmax=u.max() if u.size else None, label="front designs")
+            best = chosen[int(onp.argmax(gc))]
+            note = _order_overlay(ax, problem, records[best], spec)
+            if note:
+                ax.text(0.02, 0.02, note, transform=ax.transAxes, fontsize=6, color="0.4")
+        cb = fig.colorbar(sc, ax=ax)
+        cb.set_label(f"intensity enhancement u at {spec.label()} [-]")
+        ax.set_xlabel(f"DOCP, helicity average, at {spec.label()} [-]")
+        ax.set_ylabel(f"CD enhancement g at {spec.label()} [-]")
+        ax.set_title("(DOCP, g) plane")
+        ax.legend(loc="best")
+    fig.suptitle(f"run {goal.run_name}", fontsize=10, color=PALETTE["c"])
+    path = Path(path)
+    save(fig, path)
+    return path
+
+
+def plot_convergence(path, problem, records, *, reference) -> Path:
+    """Per start: objective vs evaluation (one objective) or front hypervolume (two).
+
+    ``records`` are all stored evaluations (any status), ordered by stage, search, seq.
+    """
+    from chiropt.search.pareto import hypervolume, non_dominated
+
+    goal = problem.goal
+    M = problem.n_objectives
+    senses = problem.senses
+    fig, axes = new_figure(1, 1, width=6.0, height=3.8)
+    ax = axes[0, 0]
+    streams: dict[str, list[Any]] = {}
+    for r in records:
+        key = r.stage if r.stage.startswith("front-") else f"start-{r.start}"
+        streams.setdefault(key, []).append(r)
+    sign = 1.0 if senses[0] == "max" else -1.0
+    for n, (key, recs) in enumerate(sorted(streams.items(), key=lambda kv: int(
+            kv[0].split("-")[1]))):
+        color = START_COLORS[n % len(START_COLORS)]
+        ys, best_y = [], []
+        front = onp.zeros((0, M))
+        best = onp.nan
+        for r in recs:
+            ev = r.evaluation
+            f = ev.metrics.get("objectives")
+            g = onp.asarray(ev.metrics.get("constraints", []), float)
+            ok = ev.status == "ok" and f is not None
+            feas = ok and bool(onp.all(g <= 1e-6))
+            if M == 1:
+                ys.append(f[0] if ok else onp.nan)
+                if feas and (onp.isnan(best) or sign * f[0] > sign * best):
+                    best = f[0]
+                best_y.append(best)
+            else:
+                if feas:
+                    F = onp.vstack([front, onp.asarray(f, float)[None]])
+                    front = F[non_dominated(F, senses)]
+                hv = hypervolume(front, senses, reference) if (len(front) and reference) else 0.0
+                best_y.append(hv)
+        x = onp.arange(1, len(recs) + 1)
+        if M == 1:
+            ax.plot(x, ys, ".", color=color, ms=2.5, alpha=0.5)
+        ax.plot(x, best_y, "-", color=color, lw=1.3, label=f"start {key.split('-')[1]}")
+    if M == 1:
+        ax.set_ylabel(f"{_axis_label(goal.objectives[0].label())}\n(dots: every evaluation, "
+                      "line: best feasible)")
+    else:
+        ax.set_ylabel("hypervolume of the feasible front [objective units²]")
+    ax.set_xlabel("evaluation of this start [-]")
+    ax.set_title(f"convergence of each start, run {goal.run_name}")
+    ax.legend(loc="best")
+    path = Path(path)
+    save(fig, path)
+    return path
+
+
+def plot_comparison(summaries, path) -> Path:
+    """The fronts of several runs (materials) in one objective-space figure."""
+    fig, axes = new_figure(1, 1, width=6.0, height=4.4)
+    ax = axes[0, 0]
+    goal = summaries[0].goal
+    labels = [o.label() for o in goal.objectives]
+    for n, s in enumerate(summaries):
+        F = s.front_objectives
+        color = START_COLORS[n % len(START_COLORS)]
+        name = s.goal.material or s.goal.run_name
+        if F is None or len(F) == 0:
+            continue
+        if F.shape[1] == 2:
+            ax.plot(F[:, 0], F[:, 1], "-o", ms=3.5, color=color, label=name)
+        else:
+            ax.bar(n, F[0, 0], color=color, label=name)
+    if len(labels) == 2:
+        ax.set_xlabel(_axis_label(labels[0]))
+        ax.set_ylabel(_axis_label(labels[1]))
+    else:
+        ax.set_ylabel(_axis_label(labels[0]))
+        ax.set_xticks([])
+    ax.set_title(f"{goal.name}: fronts by material")
+    ax.legend(loc="best")
+    path = Path(path)
+    save(fig, path)
+    return path
