@@ -25,7 +25,7 @@ def _cmd_evaluate(args) -> int:
     if (args.at_nm is not None or args.fields) and design.region is None:
         raise InputError("region", "--at-nm and --fields need a region in the design, e.g. "
                                    "region: {kind: plane, height_nm: 10}")
-    response = evaluate(design, keep_solution=bool(args.fields))
+    response = evaluate(design, keep_solution=bool(args.fields), with_validity=args.validity)
     for note in response.warnings:
         print(f"warning: {note}", file=sys.stderr)
     if args.fields:
@@ -59,16 +59,11 @@ def _cmd_evaluate(args) -> int:
 def _orders_at(design, at_nm: float) -> list:
     """Per-order table at the wavelength ``at_nm`` itself (CONTRACT.md)."""
     from chiropt.metrics import order_table
-    from chiropt.sensitivity import metrics_tolerance
-    from chiropt.solve import solve
-    from chiropt.structure import build_structure
+    from chiropt.model import metrics_tolerance, run_model
 
     if not 1.0 <= at_nm <= 1e6:
         raise InputError("--at-nm", f"got {at_nm:g}, allowed a wavelength in [1, 1e6] nm")
-    single = design.with_wavelengths([at_nm])
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        sol = solve(build_structure(single), warn=False)
+    sol = run_model(design.with_wavelengths([at_nm])).solution
     return order_table(sol, design.region, 0, tol=metrics_tolerance(design))
 
 
@@ -127,6 +122,8 @@ def _cmd_run(args) -> int:
     for s in summaries:
         print(f"{s.run_dir}: {s.status}; {s.n_evaluations} evaluations, front of "
               f"{len(s.front)} designs, {len(s.candidates)} candidates")
+    if any(s.status == "interrupted" for s in summaries):
+        return 130
     return EXIT_OK if all(s.status == "complete" for s in summaries) else EXIT_FAILED
 
 
@@ -160,6 +157,9 @@ def build_parser() -> argparse.ArgumentParser:
     ev.add_argument("--grad", metavar="PATH[,PATH...]",
                     help="with --json: exact derivatives of every spectrum with respect to these "
                          "design quantities, e.g. particles[0].radius_nm,lattice.period_nm")
+    ev.add_argument("--validity", action="store_true",
+                    help="also solve with one more multipole order and report the change of "
+                         "every quantity (warns when it exceeds 0.01)")
     ev.add_argument("--at-nm", type=float, metavar="L",
                     help="with --json and a region: add the per-order table at wavelength L (nm)")
     ev.add_argument("--fields", metavar="FILE.npz",

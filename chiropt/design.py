@@ -96,7 +96,8 @@ class Design:
     layers: tuple[LayerSpec, ...] = ()
     gap_nm: float = 0.0
     region: RegionSpec | None = None
-    lmax: int = 1
+    lmax: int | str = 1
+    lmax_tolerance: float = 1e-6
     tolerance: float = 1e-8
     name: str = ""
     base_dir: str = "."
@@ -176,7 +177,8 @@ class Design:
                              "polar_deg": self.illumination.polar_deg,
                              "azimuth_deg": self.illumination.azimuth_deg,
                              "side": self.illumination.side},
-            "model": {"lmax": self.lmax, "tolerance": self.tolerance},
+            "model": {"lmax": self.lmax, "tolerance": self.tolerance,
+                      "lmax_tolerance": self.lmax_tolerance},
         }
         if self.name:
             out["name"] = self.name
@@ -334,18 +336,22 @@ def _design_from_dict(data: dict, *, base_dir, prefix: str) -> Design:
                             low=-360.0, high=360.0, unit="deg"),
         side=side)
     region = _region(data["region"], P + "region") if data.get("region") is not None else None
-    lmax, tol = 1, 1e-8
+    lmax: int | str = 1
+    lmax_tol, tol = 1e-6, 1e-8
     if data.get("model") is not None:
         model = data["model"]
-        check_keys(model, {"lmax", "tolerance"}, P + "model")
-        lmax_raw = model.get("lmax", 1)
-        if lmax_raw != 1:
-            raise InputError(P + "model.lmax", f"got {lmax_raw!r}; this version implements the "
-                                               "electric+magnetic dipole model only (lmax: 1)")
+        check_keys(model, {"lmax", "tolerance", "lmax_tolerance"}, P + "model")
+        lmax = model.get("lmax", 1)
+        if lmax != "auto" and (isinstance(lmax, bool) or not isinstance(lmax, int)
+                               or not 1 <= lmax <= 8):
+            raise InputError(P + "model.lmax", f"got {lmax!r}, allowed an integer in [1, 8] "
+                                               "(1: electric+magnetic dipoles) or 'auto'")
         tol = _number(model.get("tolerance", 1e-8), P + "model.tolerance", low=1e-14, high=1e-2)
+        lmax_tol = _number(model.get("lmax_tolerance", 1e-6), P + "model.lmax_tolerance",
+                           low=1e-12, high=1e-1)
     design = Design(lattice=lattice, particles=particles, illumination=illum,
                     host_index=host_index, substrate=substrate, layers=layers, gap_nm=gap,
-                    region=region, lmax=lmax, tolerance=tol,
+                    region=region, lmax=lmax, lmax_tolerance=lmax_tol, tolerance=tol,
                     name=str(data.get("name", "")), base_dir=str(base_dir), raw=dict(data))
     check_geometry(design, prefix=P)
     return design

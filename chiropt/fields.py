@@ -277,6 +277,8 @@ def order_content(solution: Solution, z, *, g_max: float | None = None,
     if mn_e.shape[0] == 0:
         return OrderContent(mn, g_norm, q_all, kz_all, k, up0[..., None], down0, z,
                             st.azimuth, st.n_host)
+    if getattr(solution, "coefficients", None) is not None:
+        return _multipole_content(solution, mn, g_norm, q_all, kz_all, k, down0, z)
 
     # -- other orders: emission from the moments ---------------------------------------------
     # (elementwise on contiguous (W, 2, G) arrays: stacking along short last axes and
@@ -413,6 +415,24 @@ def field_maps(content: OrderContent, lattice, n: int):
         return np.transpose(out, (0, 1, 3, 2)).reshape(W, 2, n, n, 3)
 
     return to_grid(E), to_grid(ZH)
+
+
+def _multipole_content(solution, mn, g_norm, q_all, kz_all, k, down0, z):
+    """Order content of a multipole solution: its own upward order amplitudes at z_top
+    (the solve kept at least these orders) carried to height z.
+
+    A multipole solution's moments hold only the l = 1 part, so the orders are taken from
+    the plane-wave expansion of all multipoles that the multipole solver computed.
+    """
+    st = solution.structure
+    G = mn.shape[0]
+    if len(solution.orders.mn) < G or not onp.array_equal(solution.orders.mn[:G], mn):
+        raise InputError("region", "the multipole solution keeps too few orders for this "
+                                   "region; solve it with the region's g_max")
+    up = solution.up_sp[:, :, :G, :] * np.exp(1j * solution.orders.kz[:, :G] *
+                                               (z - st.z_top))[:, None, :, None]
+    return OrderContent(mn, g_norm, q_all, kz_all, k, np.transpose(up, (0, 1, 3, 2)), down0, z,
+                        st.azimuth, st.n_host)
 
 
 def write_fields_npz(path, solution: Solution, *, z_nm: float, n: int,

@@ -14,11 +14,12 @@ from typing import Any
 import numpy as onp
 
 from chiropt.design import Design
-from chiropt.farfield import power_fractions
-from chiropt.solve import Solution, solve
-from chiropt.structure import build_structure
+from chiropt.model import run_model, validity
+from chiropt.solve import Solution
 
 HELICITIES = (+1, -1)
+AREA_GRID = 48  # grid of the handedness area fraction (converged to 0.01, tests/test_metrics)
+VALIDITY_TOLERANCE = 0.01  # change with one more multipole order that triggers a warning
 
 
 @dataclass
@@ -47,6 +48,8 @@ class Response:
     rayleigh: onp.ndarray
     warnings: list[str] = field(default_factory=list)
     metrics: dict | None = None
+    lmax: int = 1
+    validity: dict | None = None
     solution: Solution | None = field(default=None, repr=False)
 
     def spectra(self) -> dict[str, Any]:
@@ -63,37 +66,41 @@ class Response:
                 if k in m:
                     out["metrics"][k] = {h: onp.asarray(v).tolist() for h, v in m[k].items()}
             out["metrics"]["n_orders"] = int(m["n_orders"])
+        out["lmax"] = self.lmax
+        if self.validity is not None:
+            out["validity"] = self.validity
         return out
 
 
-def evaluate(design: Design, *, keep_solution: bool = False) -> Response:
+def evaluate(design: Design, *, keep_solution: bool = False,
+             with_validity: bool = False) -> Response:
     """Solve the forward model of ``design`` at all its wavelengths.
 
     Parameters
     ----------
     design : Design
     keep_solution : bool — keep the raw :class:`Solution` (moments, order amplitudes)
+    with_validity : bool — also solve at lmax + 1 and report the change of every quantity
+        (a warning when it exceeds ``VALIDITY_TOLERANCE``)
 
     Returns
     -------
     Response
     """
     notes: list[str] = []
-    metrics = None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        st = build_structure(design)
-        sol = solve(st)
-        frac = power_fractions(sol)
-        if design.region is not None:
-            from chiropt.metrics import region_metrics
-            from chiropt.sensitivity import metrics_tolerance
-
-            metrics = region_metrics(sol, design.region, tol=metrics_tolerance(design))
+        out = run_model(design, area_grid=AREA_GRID, warn=True)
+        check = validity(design, out) if with_validity else None
+    st, sol, frac, metrics = out.structure, out.solution, out.fractions, out.metrics
+    if check is not None and check["worst"] > VALIDITY_TOLERANCE:
+        notes.append(f"lmax = {check['lmax']} may be too low: including lmax = "
+                     f"{check['lmax_check']} changes a reported quantity by "
+                     f"{check['worst']:.2g} (> {VALIDITY_TOLERANCE:g})")
     for w in caught:
         notes.append(str(w.message))
     return Response(design=design, wavelength_nm=onp.asarray(st.wavelength_nm, float),
                     R=onp.asarray(frac["R"]), T=onp.asarray(frac["T"]),
                     A=onp.asarray(frac["A"]), A_dipoles=onp.asarray(frac["A_dipoles"]),
                     rayleigh=onp.asarray(sol.rayleigh), warnings=notes, metrics=metrics,
-                    solution=sol if keep_solution else None)
+                    lmax=out.lmax, validity=check, solution=sol if keep_solution else None)

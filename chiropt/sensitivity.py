@@ -15,8 +15,7 @@ Quantities: ``R+1``, ``R-1``, ``T+1``, ``T-1``, ``A+1``, ``A-1`` and, with a reg
 
 from __future__ import annotations
 
-import warnings
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from typing import Any
 from collections.abc import Callable
 
@@ -28,9 +27,11 @@ from autograd.tracer import getval
 
 from chiropt.design import Design
 from chiropt.errors import InputError
-from chiropt.farfield import power_fractions
-from chiropt.solve import RAYLEIGH_WARN, solve
-from chiropt.structure import build_structure
+from chiropt.model import metrics_tolerance, quantities_of, run_model
+
+__all__ = ["compute_quantities", "metrics_tolerance", "quantity_names",
+           "spectrum_sensitivities", "value_and_gradient", "Sensitivity"]
+from chiropt.solve import RAYLEIGH_WARN
 
 FAR_FIELD = ("R+1", "R-1", "T+1", "T-1", "A+1", "A-1")
 NEAR_FIELD = ("u", "c", "g", "background", "docp+1", "docp-1", "s0+1", "s0-1")
@@ -55,44 +56,12 @@ def compute_quantities(design: Design, values: dict[str, Any] | None = None,
     -------
     dict name -> (W,) array [, rayleigh (W,)]
     """
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        st = build_structure(design, values)
-        sol = solve(st, warn=False)
-        frac = power_fractions(sol)
-        out: dict[str, Any] = {}
-        for name in ("R", "T", "A"):
-            out[name + "+1"] = frac[name][:, 0]
-            out[name + "-1"] = frac[name][:, 1]
-        if design.region is not None:
-            from chiropt.metrics import region_metrics
-
-            m = region_metrics(sol, traced_region(design, values), tol=metrics_tolerance(design),
-                               area_grid=0)
-            for key in ("u", "c", "g", "background"):
-                out[key] = m[key]
-            for key in ("docp", "s0"):
-                out[key + "+1"] = m[key]["+1"]
-                out[key + "-1"] = m[key]["-1"]
+    output = run_model(design, values)
+    out = quantities_of(output)
+    sol = output.solution
     if with_flags:
         return out, onp.asarray(getval(sol.rayleigh))
     return out
-
-
-def traced_region(design: Design, values: dict[str, Any] | None):
-    """The design's region with region.* quantities replaced by (possibly traced) values."""
-    region = design.region
-    if region is None or not values:
-        return region
-    changes = {key: values[f"region.{key}"] for key in ("height_nm", "from_nm", "thickness_nm")
-               if f"region.{key}" in values}
-    return replace(region, **changes) if changes else region
-
-
-def metrics_tolerance(design: Design) -> float:
-    """Order-truncation target of the near-field metrics: the design's tolerance, but
-    no tighter than 1e-6 (measured truncation errors sit ~100x below the target)."""
-    return max(design.tolerance, 1e-6)
 
 
 def _check_paths(design: Design, paths) -> dict[str, Any]:

@@ -47,21 +47,17 @@ def _order_overlay(ax, problem, rec, spec) -> str:
     """Draw the dominant evanescent order's bound and attainable boundary; return a note."""
     try:
         from chiropt.metrics import attainable_boundary, order_table
-        from chiropt.solve import solve
-        from chiropt.structure import build_structure
+        from chiropt.model import metrics_tolerance, run_model
     except ImportError:
-        return "per-order bound not drawn (chiropt.metrics lacks it)"
+        return "per-order bound not drawn (chiropt.metrics / chiropt.model lack it)"
     try:
         design = problem.design_at(rec.x)
-        wl = list(design.illumination.wavelength_nm)
+        # the spec's middle wavelength, moved with the wavelength variable if there is one
         w0 = spec.wavelengths_nm[len(spec.wavelengths_nm) // 2]
         shift = problem.wavelengths_at(rec.x)[0] - problem.wavelengths_nm[0]
-        k = int(onp.argmin(onp.abs(onp.asarray(wl) - (w0 + shift))))
-        st = build_structure(design)
-        from chiropt.metrics import required_g_max
-
-        sol = solve(st, warn=False, g_max=required_g_max(st, design.region, None))
-        rows = [r for r in order_table(sol, design.region, k) if r["evanescent"]]
+        sol = run_model(design.with_wavelengths([w0 + shift])).solution
+        rows = [r for r in order_table(sol, design.region, 0, tol=metrics_tolerance(design))
+                if r["evanescent"]]
         if not rows:
             return "no evanescent order at the best-g design"
         top = max(rows, key=lambda r: r["share"])
@@ -70,8 +66,8 @@ def _order_overlay(ax, problem, rec, spec) -> str:
         ax.plot(d, g, color="0.35", lw=0.9, ls=(0, (3, 2)),
                 label=f"attainable, order ({top['m']},{top['n']}), K = {K:.3g}")
         ax.axhline(top["bound"], color="0.35", lw=0.8, ls=":",
-                   label=f"CD bound K²/√(2K²−1) = {top['bound']:.3g}")
-        return ""
+                   label=f"CD bound of that order, K²/√(2K²−1) = {top['bound']:.3g}")
+        return f"bound:{top['bound']}"
     except Exception as exc:  # an overlay must never stop the report
         return f"per-order overlay skipped ({type(exc).__name__})"
 
@@ -140,6 +136,14 @@ def plot_front(path, problem, records, F, feasible, chosen, picks) -> Path:
                        vmax=u.max() if u.size else None, label="front designs")
             best = chosen[int(onp.argmax(gc))]
             note = _order_overlay(ax, problem, records[best], spec)
+            top = max(float(g.max()), float(gc.max()))
+            if note.startswith("bound:"):
+                top = max(top, float(note.split(":")[1]))
+                note = ""
+            # keep the view on the designs (the overlay is a whole ellipse-like region)
+            ax.set_xlim(min(float(D.min()), float(Dc.min())) - 0.05,
+                        max(1.02, float(D.max()) + 0.02))
+            ax.set_ylim(min(float(g.min()), float(gc.min())) - 0.1, top + 0.15)
             if note:
                 ax.text(0.02, 0.02, note, transform=ax.transAxes, fontsize=6, color="0.4")
         cb = fig.colorbar(sc, ax=ax)

@@ -30,9 +30,7 @@ def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64)
     from chiropt.fields import representative_plane_nm
     from chiropt.metrics import order_table, plane_maps
     from chiropt.response import evaluate
-    from chiropt.sensitivity import metrics_tolerance
-    from chiropt.solve import solve
-    from chiropt.structure import build_structure
+    from chiropt.model import metrics_tolerance, run_model
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -42,8 +40,7 @@ def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         response = evaluate(design)
-        single = design.with_wavelengths([at_nm])
-        sol = solve(build_structure(single), warn=False)
+        sol = run_model(design.with_wavelengths([at_nm])).solution
     z_nm = representative_plane_nm(sol.structure, region)
     maps = plane_maps(sol, z_nm, grid, tol=tol)
     table = order_table(sol, region, 0, tol=tol)

@@ -1,0 +1,447 @@
+"""From a resolved goal to the optimizer's hook: objectives, constraints and exact gradients.
+
+Owns: ``GoalProblem`` (the ``VectorProblem`` of a goal: design vector -> objective values,
+scaled constraints ``g <= 0`` and their exact Jacobians), the geometric fabrication limits,
+the wavelength bookkeeping (every wavelength of a goal solved in one call) and the pre-run
+feasibility checks (``check_goal``). Must not import: store, report, cli.
+
+Conventions
+-----------
+- ``x`` holds the goal's variables in file order, in user units (nm, deg, index).
+- Objectives keep their senses (``VectorProblem.senses``); a metric at a wavelength spec is
+  the plain average of its spectrum over the spec's wavelengths.
+- Constraint rows, in order: each metric constraint's lower bound then upper bound, then the
+  fabrication rows. A metric bound ``v >= LOW`` is ``(LOW - v) / max(|LOW|, 1) <= 0``, an
+  upper bound ``(v - HIGH) / max(|HIGH|, 1) <= 0``; a fabrication limit ``q >= V`` is
+  ``(V - q) / V <= 0`` and ``q <= V`` is ``(q - V) / V <= 0``.
+- One forward pass computes every objective and constraint; the Jacobian takes one reverse
+  pass per row (``autograd.make_vjp``), so a gradient evaluation costs about
+  ``1 + (M + m) * (reverse / forward)`` forward solves instead of ``M + m`` full gradients.
+- An evaluation fails (status ``"failed"``, with its reason, the search continues) when a
+  wavelength sits on a Rayleigh anomaly (``solve.RAYLEIGH_WARN``), the solve is singular, a
+  wavelength leaves a material's data range, or a number is not finite.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from typing import Any
+
+import autograd.numpy as np
+import numpy as onp
+from autograd import make_vjp
+from autograd.tracer import getval
+from scipy.stats import qmc
+
+from chiropt.errors import ComputationError, InputError, MaterialRangeError
+from chiropt.goals.schema import (
+    WAVELENGTH_PATH,
+    FabricationConstraint,
+    Goal,
+    WavelengthSpec,
+)
+from chiropt.search.problem import VectorEvaluation
+from chiropt.sensitivity import compute_quantities
+from chiropt.solve import RAYLEIGH_WARN
+
+__all__ = ["DeadlineReached", "GoalProblem", "check_goal", "metric_spectrum"]
+
+
+class DeadlineReached(Exception):  # noqa: N818 - a stop signal, not an error
+    """The run's wall-time budget is spent (raised before a fresh evaluation; never stored)."""
+
+
+def metric_spectrum(q: dict, name: str):
+    """Spectrum (W,) of a metric from the quantities of ``compute_quantities``.
+
+    ``docp``, ``s0``, ``R``, ``T``, ``A`` are the averages of the two incident helicities.
+    """
+    if name in q:
+        return np.real(q[name])
+    return 0.5 * (np.real(q[name + "+1"]) + np.real(q[name + "-1"]))
+
+
+def _lattice_vectors(kind: str, p: dict):
+    if kind in ("square", "hexagonal"):
+        a = b = p["lattice.period_nm"]
+        ang = np.pi / 2 if kind == "square" else np.pi / 3
+    else:
+        a, b = p["lattice.period_nm[0]"], p["lattice.period_nm[1]"]
+        ang = np.pi / 2 if kind == "rectangular" else p["lattice.angle_deg"] * np.pi / 180.0
+    return a, b, ang
+
+
+def _gap(p: dict, kind: str, i: int, j: int):
+    """Surface-to-surface gap [nm] between particles i and j (i == j: its lattice images)."""
+    shifts = [(a, b) for a in range(-2, 3) for b in range(-2, 3) if i != j or (a, b) != (0, 0)]
+    si = onp.array([s[0] for s in shifts], float)
+    sj = onp.array([s[1] for s in shifts], float)
+    a, b, ang = _lattice_vectors(kind, p)
+    ri, rj = p[f"particles[{i}].radius_nm"], p[f"particles[{j}].radius_nm"]
+    dx = p[f"particles[{i}].position_nm[0]"] - p[f"particles[{j}].position_nm[0]"]
+    dy = p[f"particles[{i}].position_nm[1]"] - p[f"particles[{j}].position_nm[1]"]
+    x = dx + si * a + sj * b * np.cos(ang)
+    y = dy + sj * b * np.sin(ang)
+    d2 = x ** 2 + y ** 2 + (ri - rj) ** 2  # bottoms aligned: centres differ by ri - rj
+    return np.sqrt(np.min(d2)) - ri - rj
+
+
+class FabricationRow:
+    """One scaled fabrication row: a geometric quantity [nm or -] against a limit.
+
+    ``quantity`` is 'gap', 'diameter', 'core_diameter', 'shell' or 'aspect'; ``i``, ``j``
+    the particles; ``lower`` True for ``quantity >= value``.
+    """
+
+    def __init__(self, key: str, what: str, quantity: str, value: float, lower: bool,
+                 lattice_kind: str, i: int = 0, j: int = 0):
+        self.key, self.what, self.quantity_name = key, what, quantity
+        self.value, self.lower, self.kind, self.i, self.j = float(value), lower, lattice_kind, i, j
+
+    def quantity(self, p: dict):
+        """The geometric quantity at the design quantities ``p`` (may be traced)."""
+        i, name = self.i, self.quantity_name
+        if name == "gap":
+            return _gap(p, self.kind, i, self.j)
+        if name == "diameter":
+            return 2 * p[f"particles[{i}].radius_nm"]
+        if name == "core_diameter":
+            return 2 * p[f"particles[{i}].core_radius_nm"]
+        if name == "shell":
+            return p[f"particles[{i}].radius_nm"] - p[f"particles[{i}].core_radius_nm"]
+        return 1.0 + 0.0 * p["host_index"]  # a sphere: height / width = 1
+
+    def __call__(self, p: dict):
+        q = self.quantity(p)
+        return (self.value - q) / self.value if self.lower else (q - self.value) / self.value
+
+
+def fabrication_rows(goal: Goal) -> list[FabricationRow]:
+    """The fabrication constraint rows of a goal, in constraint order."""
+    design = goal.design
+    kind = design.lattice.kind
+    rows: list[FabricationRow] = []
+    n_part = len(design.particles)
+    for c in goal.fabrication_constraints:
+        V = c.value
+        if c.kind == "min_gap_nm":
+            for i in range(n_part):
+                for j in range(i, n_part):
+                    what = (f"gap between particle {i} and its lattice images [nm]" if i == j
+                            else f"gap between particles {i} and {j} [nm]")
+                    rows.append(FabricationRow(c.key, what, "gap", V, True, kind, i, j))
+        elif c.kind == "min_feature_nm":
+            for i, part in enumerate(design.particles):
+                rows.append(FabricationRow(c.key, f"diameter of particle {i} [nm]", "diameter",
+                                           V, True, kind, i))
+                if part.core_radius_nm is not None:
+                    rows.append(FabricationRow(c.key, f"core diameter of particle {i} [nm]",
+                                               "core_diameter", V, True, kind, i))
+                    rows.append(FabricationRow(c.key, f"shell thickness of particle {i} [nm]",
+                                               "shell", V, True, kind, i))
+        else:
+            for i in range(n_part):
+                rows.append(FabricationRow(c.key, f"aspect ratio of particle {i} (sphere)",
+                                           "aspect", V, False, kind, i))
+    return rows
+
+
+class GoalProblem:
+    """The ``VectorProblem`` of a goal (see the module conventions).
+
+    Parameters
+    ----------
+    goal : Goal
+    deadline : float, optional
+        Epoch time [s] after which a fresh evaluation raises :class:`DeadlineReached`.
+    stop_file : str, optional
+        When this file exists, a fresh evaluation raises :class:`DeadlineReached` (how an
+        interrupted run stops its worker processes promptly).
+
+    Attributes
+    ----------
+    lower, upper : ndarray (n,) — variable bounds [user units]
+    senses : tuple of 'max'/'min'; n_objectives; n_constraints
+    wavelengths_nm : ndarray (W,) — nominal union of every wavelength the goal uses [nm]
+    constraint_labels : list of str — one per constraint row
+    """
+
+    def __init__(self, goal: Goal, *, deadline: float | None = None,
+                 stop_file: str | None = None):
+        self.goal = goal
+        self.deadline = deadline
+        self.stop_file = stop_file
+        self.paths = [v.path for v in goal.variables]
+        self.lower = onp.array([v.lower for v in goal.variables], float)
+        self.upper = onp.array([v.upper for v in goal.variables], float)
+        self.senses = tuple(o.sense for o in goal.objectives)
+        self.n_objectives = len(goal.objectives)
+        specs: list[WavelengthSpec] = [o.spec for o in goal.objectives]
+        specs += [c.spec for c in goal.metric_constraints]
+        union = sorted({w for s in specs for w in s.wavelengths_nm})
+        self.wavelengths_nm = onp.array(union, float)
+        pos = {w: k for k, w in enumerate(union)}
+        self._index = {id(s): onp.array([pos[w] for w in s.wavelengths_nm]) for s in specs}
+        self._specs = specs  # keep the ids alive
+        self.eval_design = goal.design.with_wavelengths(union)
+        self.reference_nm = float(goal.design.illumination.wavelength_nm[0])
+        self.shift_index = (self.paths.index(WAVELENGTH_PATH) if WAVELENGTH_PATH in self.paths
+                            else None)
+        self._params = goal.design.parameters()
+        self._fab = fabrication_rows(goal)
+        labels = []
+        for c in goal.metric_constraints:
+            if c.lower is not None:
+                labels.append(f"{c.metric}@{c.spec.label()}>={c.lower:g}")
+            if c.upper is not None:
+                labels.append(f"{c.metric}@{c.spec.label()}<={c.upper:g}")
+        labels += [f"{_fab_of(goal, r.key).kind}: {r.what}" for r in self._fab]
+        self.constraint_labels = labels
+        self.n_constraints = len(labels)
+
+    # -- design vector -> named values -------------------------------------------------------
+    def values(self, x) -> dict[str, Any]:
+        """Named design quantities for ``x`` (may be traced), links and the wavelength shift."""
+        vals: dict[str, Any] = {}
+        for i, path in enumerate(self.paths):
+            if path == WAVELENGTH_PATH:
+                vals[path] = self.wavelengths_nm + (x[i] - self.reference_nm)
+            else:
+                vals[path] = x[i]
+        for target, source in self.goal.links:
+            vals[target] = vals.get(source, self._params[source])
+        return vals
+
+    def wavelengths_at(self, x) -> onp.ndarray:
+        """The actual wavelengths [nm] solved at ``x`` (nominal ones, shifted)."""
+        if self.shift_index is None:
+            return self.wavelengths_nm.copy()
+        return self.wavelengths_nm + (float(x[self.shift_index]) - self.reference_nm)
+
+    def parameters_at(self, x) -> dict[str, Any]:
+        """All design quantities at ``x`` (plain floats; the wavelength as an array)."""
+        p = dict(self._params)
+        p.update({k: (onp.asarray(getval(v), float) if onp.ndim(getval(v)) else float(getval(v)))
+                  for k, v in self.values(onp.asarray(x, float)).items()})
+        return p
+
+    def design_at(self, x):
+        """A fresh, validated Design with the values of ``x`` written in (for candidates).
+
+        Its wavelengths are the ones solved at ``x``; ``compute_quantities`` of it gives the
+        same numbers as the search saw.
+        """
+        from chiropt.goals.schema import design_with
+
+        assign = {k: v for k, v in self.parameters_at(x).items()
+                  if k in self.values(onp.asarray(x, float)) and k != WAVELENGTH_PATH}
+        assign[WAVELENGTH_PATH] = self.wavelengths_at(x).tolist()
+        return design_with(self.eval_design, assign)
+
+    # -- the functions -----------------------------------------------------------------------
+    def _spec_value(self, q: dict, name: str, spec: WavelengthSpec):
+        return np.mean(metric_spectrum(q, name)[self._index[id(spec)]])
+
+    def objective_values(self, q: dict):
+        """Objective values (M,) from the quantities [metric units]."""
+        out = []
+        for o in self.goal.objectives:
+            out.append(sum(w / n * self._spec_value(q, m, o.spec) for m, w, n in o.terms))
+        return np.stack(out)
+
+    def _metric_rows(self, q: dict) -> list:
+        rows = []
+        for c in self.goal.metric_constraints:
+            v = self._spec_value(q, c.metric, c.spec)
+            if c.lower is not None:
+                rows.append((c.lower - v) / max(abs(c.lower), 1.0))
+            if c.upper is not None:
+                rows.append((v - c.upper) / max(abs(c.upper), 1.0))
+        return rows
+
+    def _fab_rows(self, p: dict) -> list:
+        return [row(p) + 0.0 * p["host_index"] for row in self._fab]
+
+    def constraint_values(self, q: dict, p: dict):
+        """Scaled constraint rows (m,), feasible when <= 0."""
+        rows = self._metric_rows(q) + self._fab_rows(p)
+        return np.stack(rows) if rows else np.zeros(0)
+
+    def _physics_vector(self, x, keep: dict):
+        q, ray = compute_quantities(self.eval_design, self.values(x), with_flags=True)
+        keep["q"], keep["ray"] = q, ray
+        return np.stack([*self.objective_values(q), *self._metric_rows(q)])
+
+    def _fab_vector(self, x):
+        p = dict(self._params)
+        p.update(self.values(x))
+        rows = self._fab_rows(p)
+        return np.stack(rows) if rows else np.zeros(0)
+
+    @staticmethod
+    def _jacobian(fun, x):
+        """Value and Jacobian: one forward pass, one reverse pass per output row."""
+        vjp, out = make_vjp(fun)(x)
+        out = onp.asarray(out, float)
+        eye = onp.eye(out.size)
+        J = onp.stack([onp.asarray(vjp(eye[r]), float) for r in range(out.size)])
+        return out, J.reshape(out.size, x.size)
+
+    def quantities(self, x) -> dict[str, list[float]]:
+        """Spectra of every quantity at ``x`` (plain lists over ``wavelengths_at(x)``)."""
+        return _plain(compute_quantities(self.eval_design, self.values(onp.asarray(x, float))))
+
+    def evaluate(self, x, need_grad: bool) -> VectorEvaluation:
+        """Objectives, constraints and (with ``need_grad``) their exact Jacobians at ``x``."""
+        if self.deadline is not None and time.time() > self.deadline:
+            raise DeadlineReached("the wall-time budget is spent")
+        if self.stop_file is not None and os.path.exists(self.stop_file):
+            raise DeadlineReached("the run was interrupted")
+        x = onp.asarray(x, float)
+        M, m = self.n_objectives, self.n_constraints
+        keep: dict = {}
+        try:
+            # physics rows and the cheap geometric rows are differentiated separately, so
+            # the reverse passes through the solver are only as many as the physics rows
+            if need_grad:
+                out_p, J_p = self._jacobian(lambda xv: self._physics_vector(xv, keep), x)
+                out_f, J_f = (self._jacobian(self._fab_vector, x) if self._fab
+                              else (onp.zeros(0), onp.zeros((0, x.size))))
+                out, J = onp.concatenate([out_p, out_f]), onp.vstack([J_p, J_f])
+            else:
+                out = onp.concatenate([onp.asarray(self._physics_vector(x, keep), float),
+                                       onp.asarray(self._fab_vector(x), float)])
+                J = None
+        except (ComputationError, onp.linalg.LinAlgError, MaterialRangeError,
+                FloatingPointError, ZeroDivisionError) as exc:
+            return VectorEvaluation(f=onp.full(M, onp.nan), g=onp.full(m, onp.nan),
+                                    status="failed", reason=f"{type(exc).__name__}: {exc}",
+                                    metrics={"wavelength_nm": self.wavelengths_at(x).tolist()})
+        q = _plain(keep["q"])
+        ray = onp.asarray(keep["ray"], float)
+        metrics = {"wavelength_nm": self.wavelengths_at(x).tolist(), "quantities": q,
+                   "objectives": out[:M].tolist(), "constraints": out[M:].tolist()}
+        reason = ""
+        if onp.any(ray < RAYLEIGH_WARN):
+            k = int(onp.argmin(ray))
+            reason = (f"Rayleigh anomaly: a diffraction order grazes at "
+                      f"{self.wavelengths_at(x)[k]:.6g} nm (derivatives not meaningful)")
+        elif not onp.all(onp.isfinite(out)) or (J is not None and not onp.all(onp.isfinite(J))):
+            reason = "non-finite objective, constraint or gradient"
+        if reason:
+            return VectorEvaluation(f=onp.full(M, onp.nan), g=onp.full(m, onp.nan),
+                                    status="failed", reason=reason, metrics=metrics)
+        return VectorEvaluation(f=out[:M], g=out[M:],
+                                df=None if J is None else J[:M],
+                                dg=None if J is None else J[M:], metrics=metrics)
+
+
+def _fab_of(goal: Goal, key: str) -> FabricationConstraint:
+    return next(c for c in goal.fabrication_constraints if c.key == key)
+
+
+def _plain(q: dict) -> dict[str, list[float]]:
+    return {k: onp.real(onp.asarray(getval(v))).astype(float).tolist() for k, v in q.items()}
+
+
+# ---------------------------------------------------------------------------------------------
+# pre-run checks
+# ---------------------------------------------------------------------------------------------
+
+def _samples(lower, upper, seed: int) -> onp.ndarray:
+    n = lower.size
+    pts = []
+    if n <= 10:  # every corner: the geometric limits are monotone in each quantity
+        corners = onp.array(onp.meshgrid(*[[0.0, 1.0]] * n, indexing="ij")).reshape(n, -1).T
+        pts.append(corners)
+    pts.append(qmc.Sobol(d=n, scramble=True, seed=onp.random.default_rng(seed)).random_base2(8))
+    u = onp.concatenate(pts)
+    return lower + (upper - lower) * u
+
+
+def check_goal(goal: Goal) -> dict[str, Any]:
+    """Catch an impossible goal before a run starts; return the base design's quantities.
+
+    Checks: every wavelength the goal can ask for (with the wavelength variable at its
+    bounds) lies in every material's data range; each fabrication limit can be met somewhere
+    within the variable bounds (all corners of the box and 256 Sobol points are tried; the
+    geometric quantities are monotone in each variable), and all of them at once; the base
+    design evaluates at the union of the goal's wavelengths.
+
+    Raises
+    ------
+    InputError
+        Naming the key path and line of the goal file, with the best value the bounds allow.
+    """
+    from chiropt.materials import get_material
+
+    problem = GoalProblem(goal)
+    design = goal.design
+    # 1. material data ranges
+    shift = (0.0, 0.0)
+    if problem.shift_index is not None:
+        v = goal.variables[problem.shift_index]
+        shift = (v.lower - problem.reference_nm, v.upper - problem.reference_nm)
+    mats = []
+    for i, part in enumerate(design.particles):
+        mats.append((f"design.particles[{i}].material", part.material))
+        if part.core_material is not None:
+            mats.append((f"design.particles[{i}].core_material", part.core_material))
+    if design.substrate is not None:
+        mats.append(("design.substrate.material", design.substrate))
+        mats += [(f"design.layers[{i}].material", la.material)
+                 for i, la in enumerate(design.layers)]
+    ranges = []
+    for key, spec in mats:
+        mat = get_material(spec, key=key, base_dir=design.base_dir)
+        ranges.append((key, mat, tuple(mat.wavelength_range_nm)))
+    items = [(o.key, o.spec) for o in goal.objectives]
+    items += [(c.key, c.spec) for c in goal.metric_constraints]
+    for key, spec in items:
+        lo = min(spec.wavelengths_nm) + shift[0]
+        hi = max(spec.wavelengths_nm) + shift[1]
+        skey = {"at": f"{key}.at_nm", "band": f"{key}.band_nm"}.get(spec.kind,
+                                                                     "design.illumination")
+        for mkey, mat, (a, b) in ranges:
+            if lo < a * (1 - 1e-6) or hi > b * (1 + 1e-6):
+                moved = (" (the wavelength variable moves it by "
+                         f"{shift[0]:+g} to {shift[1]:+g} nm)") if problem.shift_index is not None \
+                    else ""
+                raise goal.error(skey, f"wavelengths {lo:g}-{hi:g} nm{moved} leave the data "
+                                       f"range {a:g}-{b:g} nm of {mat.label()} ({mkey}); "
+                                       "narrow the band or the wavelength bounds, or choose a "
+                                       "material entry that covers them")
+    # 2. fabrication limits
+    rows = problem._fab
+    if rows:
+        X = _samples(problem.lower, problem.upper, goal.seed)
+        G = onp.array([[float(row(problem.parameters_at(x))) for row in rows] for x in X])
+        for r, row in enumerate(rows):
+            key, what = row.key, row.what
+            best = int(onp.argmin(G[:, r]))
+            if G[best, r] > 1e-9:
+                c = _fab_of(goal, key)
+                p = problem.parameters_at(X[best])
+                at = ", ".join(f"{path} = {p[path]:g}" for path in problem.paths
+                               if path != WAVELENGTH_PATH)
+                word = "largest" if row.lower else "smallest"
+                raise goal.error(f"{key}.value", f"{c.kind} = {c.value:g} cannot be met: the "
+                                                 f"{word} {what} the variable bounds allow is "
+                                                 f"{float(row.quantity(p)):.4g} (at {at}); "
+                                                 "relax the limit or widen the bounds")
+        if not onp.any(onp.all(G <= 1e-9, axis=1)):
+            keys = sorted({row.key for row in rows})
+            raise goal.error(keys[0], f"the fabrication limits {', '.join(keys)} cannot all "
+                                      "hold at once within the variable bounds (tried every "
+                                      "corner and 256 Sobol points); relax one of them")
+    # 3. the base design at every wavelength of the goal
+    try:
+        q = compute_quantities(problem.eval_design)
+    except MaterialRangeError as exc:
+        raise goal.error("design", str(exc)) from None
+    except InputError:
+        raise
+    except (ComputationError, onp.linalg.LinAlgError) as exc:
+        return {"error": f"{type(exc).__name__}: {exc}"}
+    return {"wavelength_nm": problem.wavelengths_nm.tolist(), "quantities": _plain(q)}

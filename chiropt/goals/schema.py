@@ -1,0 +1,757 @@
+"""The goal file: what to optimize, over which design quantities, under which limits.
+
+Owns: parsing and validating a goal file (YAML) into resolved :class:`Goal` records, one per
+material; the text printed by ``chiropt goal --explain`` (this docstring); the resolved form
+written to ``goal.resolved.yaml``. Must not import: search drivers, store, report, cli
+(physics is touched only through ``chiropt.goals.objectives`` for the pre-run checks).
+
+Goal file reference
+===================
+
+Every key below is optional unless marked *required*. Lengths and wavelengths in nm, angles
+in degrees. Every error names the key path and the line of the goal file.
+
+``name``
+    Label of the run; the run folder is ``runs/<name>-<material>/``. Default: the file name.
+``description``
+    Free text, copied to the resolved goal.
+``design`` (*required*)
+    The base design, inline exactly as in a design file for ``chiropt evaluate``, or a path
+    to a design file (relative to the goal file). Inline errors are reported as ``design.…``.
+``materials``
+    A material name or a list of them (``[Si, TiO2, GaP]``). The goal is run once per entry;
+    each run replaces the (outer) material of every particle (core materials are kept) and
+    gets its own run folder, so the fronts can be compared across materials.
+``variables`` (*required*)
+    ``PATH: {min: LOW, max: HIGH}``, bounds in user units. ``PATH`` is a key path of a
+    continuous design quantity, the same names as ``chiropt evaluate --grad``:
+    ``particles[0].radius_nm``, ``particles[0].core_radius_nm``,
+    ``particles[0].position_nm[0]``, ``lattice.period_nm`` (square, hexagonal) or
+    ``lattice.period_nm[0]`` / ``[1]`` (rectangular, oblique), ``lattice.angle_deg``,
+    ``gap_nm``, ``layers[0].thickness_nm``, ``host_index``, ``illumination.polar_deg``,
+    ``illumination.azimuth_deg``, ``region.height_nm``, ``region.from_nm``,
+    ``region.thickness_nm``, ``particles[0].material.n`` / ``.k`` (constant index).
+    Short aliases: ``radius_nm`` (single particle), ``period_nm``, ``wavelength_nm``,
+    ``polar_deg``, ``height_nm``.
+    ``illumination.wavelength_nm`` is special: its value is the operating wavelength, and
+    every wavelength the goal uses (``at_nm``, ``band_nm``, the design's own list) moves
+    with it by ``value - λ_ref``, where ``λ_ref`` is the design's first wavelength.
+``links``
+    ``TARGET: SOURCE``: design quantity ``TARGET`` always equals ``SOURCE`` (e.g.
+    ``lattice.period_nm[1]: lattice.period_nm[0]``). A target cannot be a variable.
+``fixed``
+    ``PATH: VALUE``: overrides applied to the base design before anything else.
+``objectives`` (*required*, one or two entries)
+    ``{maximize: METRIC}`` or ``{minimize: METRIC}`` plus a wavelength spec. Two objectives
+    trace a Pareto front. A weighted trade-off of normalized metrics is written
+    ``{maximize: {weighted: {g: 0.7, u: 0.3}, normalize: {g: 1.0, u: 10.0}}, at_nm: 700}``
+    and means ``sum_i w_i * metric_i / normalize_i`` (normalize defaults to 1).
+``constraints``
+    A list of
+    ``{metric: METRIC, min: LOW, max: HIGH}`` plus a wavelength spec (min and/or max), and
+    ``{fabrication: KIND, value: V}`` with KIND one of
+    ``min_gap_nm`` (smallest surface-to-surface gap between particles, lattice images
+    included [nm]), ``min_feature_nm`` (smallest particle diameter or shell thickness [nm]),
+    ``max_aspect_ratio`` (height/width of the tallest feature; 1 for spheres).
+    Inside the optimizer a bound ``v >= LOW`` is the scaled inequality
+    ``(LOW - v) / max(|LOW|, 1) <= 0``; fabrication limits are scaled by ``V``.
+Wavelength spec (objectives and metric constraints)
+    ``at_nm: L`` (one wavelength), or ``band_nm: [L1, L2]`` with ``points: P`` (default 5;
+    the band average of P equally spaced wavelengths), or nothing (the average over the
+    design's own illumination wavelengths). All wavelengths of a goal are solved in one call.
+Metrics
+    ``u`` (intensity enhancement), ``c`` (differential chirality enhancement), ``g = c/u``
+    (CD enhancement), ``background``, ``docp+1``, ``docp-1``, ``s0+1``, ``s0-1`` (these need a
+    ``region`` in the design), ``R+1``, ``R-1``, ``T+1``, ``T-1``, ``A+1``, ``A-1``; and
+    ``docp``, ``s0``, ``R``, ``T``, ``A`` for the average of the two incident helicities.
+``search``
+    ``algorithm`` (default SLSQP; MMA, SLSQP, L-BFGS, COBYLA, BOBYQA, Subplex, DIRECT-L, CRS2,
+    ISRES, ESCH), ``starts`` (number of scrambled-Sobol start points, default 4),
+    ``xtol_rel`` (default 1e-6), ``ftol_rel`` (default 1e-8), ``max_evals_per_start``
+    (evaluation cap of every local search, default 150), ``front: {method:
+    epsilon-constraint | weighted-sum, points: N}`` (two objectives only; default
+    epsilon-constraint, 9 points including the two anchors). With two objectives each start
+    traces a whole front from its own start point; the reported front is the non-dominated
+    set of every feasible evaluation of the run.
+``budget``
+    ``wall_time`` (``8h``, ``90m``, ``1h30m``, ``45s`` or a number of seconds) and/or
+    ``evaluations`` (a total, split evenly over the local searches so that a run stays
+    reproducible). When the wall time runs out the run stops; the same command resumes it.
+``seed``
+    Seed of the start points and of the stochastic algorithms (default 1). Same goal, same
+    seed: same evaluations, same front.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import re
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+from chiropt.design import Design, design_from_dict, load_design
+from chiropt.errors import InputError
+from chiropt.search.algorithms import get_algorithm
+from chiropt.sensitivity import FAR_FIELD, NEAR_FIELD
+from chiropt.yamlio import Located, check_keys, load_yaml
+
+__all__ = [
+    "AVERAGED", "EXPLAIN", "FABRICATION_KINDS", "FRONT_METHODS", "METRIC_NAMES", "Budget",
+    "FabricationConstraint", "Goal", "MetricConstraint", "Objective", "SearchSettings",
+    "Variable", "WavelengthSpec", "goal_from_dict", "load_goal", "parse_wall_time",
+]  # fmt: skip
+
+EXPLAIN = __doc__
+
+AVERAGED = ("docp", "s0", "R", "T", "A")  # helicity averages of the +1/-1 quantities
+METRIC_NAMES = FAR_FIELD + NEAR_FIELD + AVERAGED
+FABRICATION_KINDS = ("min_gap_nm", "min_feature_nm", "max_aspect_ratio")
+FRONT_METHODS = ("epsilon-constraint", "weighted-sum")
+WAVELENGTH_PATH = "illumination.wavelength_nm"
+ALIASES = {"radius_nm": "particles[0].radius_nm", "period_nm": "lattice.period_nm",
+           "wavelength_nm": WAVELENGTH_PATH, "polar_deg": "illumination.polar_deg",
+           "height_nm": "region.height_nm"}
+TOP_KEYS = {"name", "description", "design", "materials", "variables", "links", "fixed",
+            "objectives", "constraints", "search", "budget", "seed"}
+DEFAULT_BAND_POINTS = 5
+
+
+# ---------------------------------------------------------------------------------------------
+# records
+# ---------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class Variable:
+    """A design quantity searched over ``[lower, upper]`` (user units: nm, deg, index)."""
+
+    path: str
+    lower: float
+    upper: float
+
+
+@dataclass(frozen=True)
+class WavelengthSpec:
+    """Where a metric is read: ``kind`` 'at' (one wavelength), 'band' or 'design'.
+
+    ``wavelengths_nm`` are the nominal wavelengths [nm] (before any shift by a wavelength
+    variable); the metric is their plain average.
+    """
+
+    kind: str
+    wavelengths_nm: tuple[float, ...]
+    band_nm: tuple[float, float] | None = None
+
+    def label(self) -> str:
+        """Short text for column names and plot labels."""
+        if self.kind == "at":
+            return f"{self.wavelengths_nm[0]:g}nm"
+        if self.kind == "band":
+            return f"{self.band_nm[0]:g}-{self.band_nm[1]:g}nm"
+        return "design-wavelengths"
+
+    def to_dict(self) -> dict:
+        if self.kind == "at":
+            return {"at_nm": self.wavelengths_nm[0]}
+        if self.kind == "band":
+            return {"band_nm": list(self.band_nm), "points": len(self.wavelengths_nm)}
+        return {}
+
+
+@dataclass(frozen=True)
+class Objective:
+    """One objective: ``sense`` 'max' or 'min' of ``sum w * metric / norm`` at ``spec``.
+
+    ``terms`` is a tuple of (metric, weight, normalization); a plain metric is one term
+    (metric, 1, 1). ``key`` is its key path in the goal file (``objectives[0]``).
+    """
+
+    key: str
+    sense: str
+    terms: tuple[tuple[str, float, float], ...]
+    spec: WavelengthSpec
+    weighted: bool = False
+
+    @property
+    def metrics(self) -> tuple[str, ...]:
+        return tuple(t[0] for t in self.terms)
+
+    def label(self) -> str:
+        """Column-safe label, e.g. ``g@700nm`` or ``weighted(g:0.7,u:0.3)@650-750nm``."""
+        if self.weighted:
+            body = "weighted(" + ",".join(f"{m}:{w:g}" for m, w, _ in self.terms) + ")"
+        else:
+            body = self.terms[0][0]
+        return f"{body}@{self.spec.label()}"
+
+    def to_dict(self) -> dict:
+        if self.weighted:
+            what: Any = {"weighted": {m: w for m, w, _ in self.terms},
+                         "normalize": {m: n for m, _, n in self.terms}}
+        else:
+            what = self.terms[0][0]
+        return {("maximize" if self.sense == "max" else "minimize"): what, **self.spec.to_dict()}
+
+
+@dataclass(frozen=True)
+class MetricConstraint:
+    """``lower <= metric <= upper`` at ``spec`` (either bound may be None)."""
+
+    key: str
+    metric: str
+    lower: float | None
+    upper: float | None
+    spec: WavelengthSpec
+
+    def to_dict(self) -> dict:
+        out: dict[str, Any] = {"metric": self.metric}
+        if self.lower is not None:
+            out["min"] = self.lower
+        if self.upper is not None:
+            out["max"] = self.upper
+        return {**out, **self.spec.to_dict()}
+
+
+@dataclass(frozen=True)
+class FabricationConstraint:
+    """A geometric limit: ``kind`` in FABRICATION_KINDS with its ``value`` [nm or -]."""
+
+    key: str
+    kind: str
+    value: float
+
+    def to_dict(self) -> dict:
+        return {"fabrication": self.kind, "value": self.value}
+
+
+@dataclass(frozen=True)
+class SearchSettings:
+    """How the optimizer runs (see the module docstring)."""
+
+    algorithm: str = "SLSQP"
+    starts: int = 4
+    xtol_rel: float = 1e-6
+    ftol_rel: float = 1e-8
+    max_evals_per_start: int = 150
+    front_method: str = "epsilon-constraint"
+    front_points: int = 9
+
+    def to_dict(self) -> dict:
+        return {"algorithm": self.algorithm, "starts": self.starts, "xtol_rel": self.xtol_rel,
+                "ftol_rel": self.ftol_rel, "max_evals_per_start": self.max_evals_per_start,
+                "front": {"method": self.front_method, "points": self.front_points}}
+
+
+@dataclass(frozen=True)
+class Budget:
+    """Limits of a run: wall time [s] and/or a total number of evaluations (None: none)."""
+
+    wall_time_s: float | None = None
+    evaluations: int | None = None
+    wall_time_text: str | None = None
+
+    def to_dict(self) -> dict:
+        out: dict[str, Any] = {}
+        if self.wall_time_text is not None:
+            out["wall_time"] = self.wall_time_text
+        if self.evaluations is not None:
+            out["evaluations"] = self.evaluations
+        return out
+
+
+@dataclass(frozen=True)
+class Goal:
+    """A resolved goal for one material: everything a run needs, validated.
+
+    ``design`` is the base design with ``fixed`` values and the material applied.
+    ``material`` is the label of the particle material of this run ('' when the goal gives
+    no ``materials`` and the design's material is not a name).
+    """
+
+    name: str
+    design: Design
+    material: str
+    variables: tuple[Variable, ...]
+    objectives: tuple[Objective, ...]
+    constraints: tuple[MetricConstraint | FabricationConstraint, ...] = ()
+    links: tuple[tuple[str, str], ...] = ()
+    fixed: tuple[tuple[str, Any], ...] = ()
+    search: SearchSettings = field(default_factory=SearchSettings)
+    budget: Budget = field(default_factory=Budget)
+    seed: int = 1
+    description: str = ""
+    source: str = ""
+    located: Any = field(default=None, compare=False, repr=False)
+
+    def where(self, key: str) -> str:
+        """``file:line`` of a key path of the goal file ('' when unknown)."""
+        return self.located.where(key) if self.located is not None else ""
+
+    def error(self, key: str, message: str) -> InputError:
+        """An :class:`InputError` for ``key`` that names its line in the goal file."""
+        where = self.where(key)
+        return InputError(key, f"{message} ({where})" if where else message)
+
+    @property
+    def run_name(self) -> str:
+        """Folder name of the run: ``<name>-<material>`` (file-system safe)."""
+        label = f"{self.name}-{self.material}" if self.material else self.name
+        return re.sub(r"[^A-Za-z0-9._+-]+", "_", label)
+
+    @property
+    def metric_constraints(self) -> tuple[MetricConstraint, ...]:
+        return tuple(c for c in self.constraints if isinstance(c, MetricConstraint))
+
+    @property
+    def fabrication_constraints(self) -> tuple[FabricationConstraint, ...]:
+        return tuple(c for c in self.constraints if isinstance(c, FabricationConstraint))
+
+    def to_dict(self) -> dict:
+        """The resolved goal as plain data (``goal.resolved.yaml``); defaults made explicit."""
+        out: dict[str, Any] = {"name": self.name}
+        if self.description:
+            out["description"] = self.description
+        if self.material:
+            out["materials"] = [self.material]
+        out["design"] = self.design.to_dict()
+        out["variables"] = {v.path: {"min": v.lower, "max": v.upper} for v in self.variables}
+        if self.links:
+            out["links"] = dict(self.links)
+        if self.fixed:
+            out["fixed"] = {k: v for k, v in self.fixed}
+        out["objectives"] = [o.to_dict() for o in self.objectives]
+        out["constraints"] = [c.to_dict() for c in self.constraints]
+        out["search"] = self.search.to_dict()
+        out["budget"] = self.budget.to_dict()
+        out["seed"] = self.seed
+        return out
+
+
+# ---------------------------------------------------------------------------------------------
+# parsing
+# ---------------------------------------------------------------------------------------------
+
+class _Ctx:
+    """Builds errors that name the key path and the line of the goal file."""
+
+    def __init__(self, located: Located | None):
+        self.located = located
+
+    def error(self, key: str, message: str) -> InputError:
+        if self.located is not None:
+            return InputError(key, f"{message} ({self.located.where(key)})")
+        return InputError(key, message)
+
+    def keys(self, mapping: Any, allowed, path: str) -> None:
+        try:
+            check_keys(mapping, allowed, path)
+        except InputError as exc:
+            raise self.error(exc.key, exc.message) from None
+
+    def number(self, value: Any, key: str, *, low: float | None = None,
+               high: float | None = None, low_open: bool = False) -> float:
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise self.error(key, f"expected a number, got {value!r}")
+        v = float(value)
+        if not math.isfinite(v):
+            raise self.error(key, f"expected a finite number, got {value!r}")
+        if low is not None and (v < low or (low_open and v == low)):
+            raise self.error(key, f"got {v:g}, allowed {'>' if low_open else '>='} {low:g}")
+        if high is not None and v > high:
+            raise self.error(key, f"got {v:g}, allowed <= {high:g}")
+        return v
+
+    def integer(self, value: Any, key: str, *, low: int, high: int) -> int:
+        if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:
+            raise self.error(key, f"got {value!r}, allowed an integer in [{low}, {high}]")
+        return int(value)
+
+
+def _closest(name: str, options) -> str:
+    close = difflib.get_close_matches(str(name), list(options), n=1, cutoff=0.4)
+    return f"; did you mean '{close[0]}'?" if close else ""
+
+
+def parse_wall_time(text: Any, key: str = "budget.wall_time") -> float:
+    """Seconds in a wall-time text: ``8h``, ``90m``, ``1h30m``, ``45s``, or a number [s]."""
+    if isinstance(text, int | float) and not isinstance(text, bool):
+        if text > 0 and math.isfinite(text):
+            return float(text)
+    elif isinstance(text, str):
+        m = re.fullmatch(r"\s*(?:(\d+(?:\.\d+)?)\s*h)?\s*(?:(\d+(?:\.\d+)?)\s*m)?\s*"
+                         r"(?:(\d+(?:\.\d+)?)\s*s)?\s*", text)
+        if m and any(m.groups()):
+            h, mi, s = (float(g) if g else 0.0 for g in m.groups())
+            total = 3600 * h + 60 * mi + s
+            if total > 0:
+                return total
+    raise InputError(key, f"got {text!r}; allowed a positive duration such as 8h, 90m, "
+                          "1h30m, 45s or a number of seconds")
+
+
+def load_goal(path: str | Path) -> list[Goal]:
+    """Read and validate a goal file; one :class:`Goal` per material.
+
+    Errors are :class:`InputError` naming the key path and ``file:line``.
+    """
+    located = load_yaml(path)
+    path = Path(path)
+    return goal_from_dict(located, base_dir=path.resolve().parent, located=located,
+                          default_name=path.stem)
+
+
+def goal_from_dict(data: dict, *, base_dir: str | Path = ".", located: Located | None = None,
+                   default_name: str = "goal") -> list[Goal]:
+    """Validate plain goal data into one :class:`Goal` per material (see module docstring)."""
+    ctx = _Ctx(located)
+    ctx.keys(data, TOP_KEYS, "")
+    for required in ("design", "variables", "objectives"):
+        if required not in data:
+            raise ctx.error(required, f"missing (required keys: design, variables, "
+                                      f"objectives; allowed: {', '.join(sorted(TOP_KEYS))})")
+    name = str(data.get("name", default_name)).strip() or default_name
+    base_dir = Path(base_dir)
+    raw_design = data["design"]
+    if isinstance(raw_design, str):
+        dpath = (base_dir / raw_design)
+        if not dpath.exists():
+            raise ctx.error("design", f"design file {str(dpath)!r} not found (paths are "
+                                      "relative to the goal file)")
+        design_dict = load_design(dpath).to_dict()
+        design_base = dpath.resolve().parent
+    elif isinstance(raw_design, dict):
+        # validate once with line numbers, then keep plain data for the per-material copies
+        design_from_dict(raw_design, base_dir=base_dir, located=located, prefix="design.")
+        design_dict = dict(raw_design)
+        design_base = base_dir
+    else:
+        raise ctx.error("design", f"expected a design mapping or a path to a design file, got "
+                                  f"{raw_design!r}")
+    materials = data.get("materials")
+    if materials is None:
+        mats: list[Any] = [None]
+    elif isinstance(materials, str):
+        mats = [materials]
+    elif isinstance(materials, list) and materials and all(isinstance(m, str) for m in materials):
+        mats = list(materials)
+    else:
+        raise ctx.error("materials", f"expected a material name or a list of names "
+                                     f"(e.g. [Si, TiO2]), got {materials!r}")
+    if len(set(mats)) != len(mats):
+        raise ctx.error("materials", f"a material is listed twice: {mats}")
+    goals = []
+    for i, mat in enumerate(mats):
+        goals.append(_one_goal(ctx, data, name, design_dict, design_base, mat,
+                               "materials" if isinstance(materials, str) else f"materials[{i}]"))
+    return goals
+
+
+def _set_path(d: dict, path: str, value: Any) -> None:
+    """Set ``value`` at a key path (``particles[0].material.n``) inside plain design data."""
+    tokens = re.findall(r"[^.\[\]]+|\[\d+\]", path)
+    node: Any = d
+    for j, tok in enumerate(tokens):
+        last = j == len(tokens) - 1
+        if tok.startswith("["):
+            idx = int(tok[1:-1])
+            if last:
+                node[idx] = value
+            else:
+                node = node[idx]
+        else:
+            if last:
+                node[tok] = value
+            else:
+                nxt = tokens[j + 1]
+                if tok not in node or not isinstance(node[tok], dict | list):
+                    # a scalar that becomes a list (period of a rectangular lattice)
+                    node[tok] = [node.get(tok), node.get(tok)] if nxt.startswith("[") else {}
+                node = node[tok]
+
+
+def design_with(design: Design, assignments: dict[str, Any]) -> Design:
+    """A new validated Design with key-path values assigned (plain floats, user units).
+
+    ``illumination.wavelength_nm`` takes a list of wavelengths [nm].
+    """
+    import copy
+
+    d = copy.deepcopy(design.to_dict())
+    for path, value in assignments.items():
+        if path == WAVELENGTH_PATH:
+            d["illumination"]["wavelength_nm"] = [float(w) for w in value]
+            continue
+        _set_path(d, path, float(value))
+    return design_from_dict(d, base_dir=design.base_dir)
+
+
+def _resolve_path(ctx: _Ctx, path: Any, params: dict, key: str) -> str:
+    path = str(path).strip()
+    if path in params:
+        return path
+    if path in ALIASES and ALIASES[path] in params:
+        return ALIASES[path]
+    names = list(params) + [a for a, t in ALIASES.items() if t in params]
+    raise ctx.error(key, f"unknown design quantity '{path}'; this design has: "
+                         f"{', '.join(params)}{_closest(path, names)}")
+
+
+def _one_goal(ctx: _Ctx, data: dict, name: str, design_dict: dict, design_base, material,
+              material_key: str) -> Goal:
+    import copy
+
+    d = copy.deepcopy(design_dict)
+    label = ""
+    if material is not None:
+        for p in d["particles"]:
+            p["material"] = material
+        label = material
+    else:
+        first = d["particles"][0].get("material")
+        label = first if isinstance(first, str) else ""
+    try:
+        design = design_from_dict(d, base_dir=design_base)
+    except InputError as exc:
+        raise ctx.error(material_key, f"with material {material!r}: {exc}") from None
+    if material is not None:
+        from chiropt.materials import get_material
+
+        try:
+            get_material(material, key=material_key, base_dir=design_base)
+        except InputError as exc:
+            raise ctx.error(material_key, exc.message) from None
+
+    # fixed values first: they change the base design
+    fixed_raw = data.get("fixed") or {}
+    ctx.keys(fixed_raw, set(fixed_raw), "fixed")  # type check only
+    fixed: list[tuple[str, Any]] = []
+    params = design.parameters()
+    for key, value in fixed_raw.items():
+        path = _resolve_path(ctx, key, params, f"fixed.{key}")
+        if path == WAVELENGTH_PATH:
+            vals = value if isinstance(value, list) else [value]
+            nums = [ctx.number(v, f"fixed.{key}", low=1.0) for v in vals]
+            fixed.append((path, nums))
+        else:
+            fixed.append((path, ctx.number(value, f"fixed.{key}")))
+    if fixed:
+        try:
+            design = design_with(design, dict(fixed))
+        except InputError as exc:
+            raise ctx.error("fixed", f"the fixed values make an invalid design: {exc}") from None
+        params = design.parameters()
+
+    # variables
+    var_raw = data.get("variables")
+    if not isinstance(var_raw, dict) or not var_raw:
+        raise ctx.error("variables", "expected a mapping PATH: {min: LOW, max: HIGH} with at "
+                                     f"least one entry; this design has: {', '.join(params)}")
+    variables = []
+    for key, spec in var_raw.items():
+        vkey = f"variables.{key}"
+        path = _resolve_path(ctx, key, params, vkey)
+        if any(v.path == path for v in variables):
+            raise ctx.error(vkey, f"'{path}' is already a variable")
+        if path in dict(fixed):
+            raise ctx.error(vkey, f"'{path}' is also in fixed: a quantity is either fixed or "
+                                  "variable")
+        ctx.keys(spec, {"min", "max"}, vkey)
+        for b in ("min", "max"):
+            if b not in spec:
+                raise ctx.error(f"{vkey}.{b}", "missing; give both min and max")
+        lo = ctx.number(spec["min"], f"{vkey}.min")
+        hi = ctx.number(spec["max"], f"{vkey}.max")
+        if lo >= hi:
+            raise ctx.error(f"{vkey}.min", f"min = {lo:g} is not below max = {hi:g}; did you "
+                                           "swap min and max?")
+        variables.append(Variable(path, lo, hi))
+
+    # links
+    links_raw = data.get("links") or {}
+    ctx.keys(links_raw, set(links_raw), "links")
+    links = []
+    var_paths = {v.path for v in variables}
+    for key, src in links_raw.items():
+        lkey = f"links.{key}"
+        target = _resolve_path(ctx, key, params, lkey)
+        source = _resolve_path(ctx, src, params, lkey)
+        if target in var_paths:
+            raise ctx.error(lkey, f"'{target}' is a variable; a linked quantity follows another "
+                                  "and cannot be searched itself")
+        if target == source:
+            raise ctx.error(lkey, "a quantity linked to itself")
+        if WAVELENGTH_PATH in (target, source):
+            raise ctx.error(lkey, "the wavelength cannot be linked")
+        links.append((target, source))
+    targets = {t for t, _ in links}
+    for t, s in links:
+        if s in targets:
+            raise ctx.error(f"links.{t}", f"source '{s}' is itself linked; link to the "
+                                          "original quantity")
+
+    # wavelengths of the design (nominal)
+    design_wl = tuple(design.illumination.wavelength_nm)
+
+    objectives_raw = data["objectives"]
+    if not isinstance(objectives_raw, list) or not 1 <= len(objectives_raw) <= 2:
+        raise ctx.error("objectives", f"expected a list of one or two objectives, got "
+                                      f"{objectives_raw!r}")
+    objectives = tuple(_objective(ctx, o, f"objectives[{i}]", design, design_wl)
+                       for i, o in enumerate(objectives_raw))
+    cons_raw = data.get("constraints") or []
+    if not isinstance(cons_raw, list):
+        raise ctx.error("constraints", "expected a list of {metric: ..., min/max: ...} or "
+                                       "{fabrication: ..., value: ...}")
+    constraints = tuple(_constraint(ctx, c, f"constraints[{i}]", design, design_wl)
+                        for i, c in enumerate(cons_raw))
+    search = _search(ctx, data.get("search") or {}, len(objectives))
+    budget = _budget(ctx, data.get("budget") or {})
+    seed = ctx.integer(data.get("seed", 1), "seed", low=0, high=2**31 - 1)
+    return Goal(name=name, design=design, material=label, variables=tuple(variables),
+                objectives=objectives, constraints=constraints, links=tuple(links),
+                fixed=tuple(fixed), search=search, budget=budget, seed=seed,
+                description=str(data.get("description", "")),
+                source=ctx.located.source if ctx.located is not None else "",
+                located=ctx.located)
+
+
+def _metric(ctx: _Ctx, name: Any, key: str, design: Design) -> str:
+    if not isinstance(name, str) or name not in METRIC_NAMES:
+        raise ctx.error(key, f"unknown metric {name!r}; allowed: {', '.join(METRIC_NAMES)}"
+                             f"{_closest(str(name), METRIC_NAMES)}")
+    if (name in NEAR_FIELD or name in ("docp", "s0")) and design.region is None:
+        raise ctx.error(key, f"metric '{name}' is a near-field metric and needs a region in "
+                             "the design, e.g. region: {kind: plane, height_nm: 10}")
+    return name
+
+
+def _spec(ctx: _Ctx, raw: dict, key: str, design_wl) -> WavelengthSpec:
+    has_at, has_band = "at_nm" in raw, "band_nm" in raw
+    if has_at and has_band:
+        raise ctx.error(f"{key}.at_nm", "give either at_nm or band_nm, not both")
+    if "points" in raw and not has_band:
+        raise ctx.error(f"{key}.points", "points goes with band_nm: [start, stop]")
+    if has_at:
+        w = ctx.number(raw["at_nm"], f"{key}.at_nm", low=1.0, high=1e6)
+        return WavelengthSpec("at", (w,))
+    if has_band:
+        band = raw["band_nm"]
+        if not isinstance(band, list) or len(band) != 2:
+            raise ctx.error(f"{key}.band_nm", f"expected [start, stop] in nm, got {band!r}")
+        a = ctx.number(band[0], f"{key}.band_nm[0]", low=1.0, high=1e6)
+        b = ctx.number(band[1], f"{key}.band_nm[1]", low=1.0, high=1e6)
+        if a >= b:
+            raise ctx.error(f"{key}.band_nm", f"start {a:g} is not below stop {b:g}; did you "
+                                              "swap them?")
+        pts = ctx.integer(raw.get("points", DEFAULT_BAND_POINTS), f"{key}.points", low=2,
+                          high=200)
+        wl = tuple(a + (b - a) * i / (pts - 1) for i in range(pts))
+        return WavelengthSpec("band", wl, (a, b))
+    return WavelengthSpec("design", tuple(design_wl))
+
+
+def _objective(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl) -> Objective:
+    allowed = {"maximize", "minimize", "at_nm", "band_nm", "points"}
+    ctx.keys(raw, allowed, key)
+    senses = [s for s in ("maximize", "minimize") if s in raw]
+    if len(senses) != 1:
+        raise ctx.error(key, "give exactly one of maximize: METRIC or minimize: METRIC")
+    skey = f"{key}.{senses[0]}"
+    what = raw[senses[0]]
+    spec = _spec(ctx, raw, key, design_wl)
+    sense = "max" if senses[0] == "maximize" else "min"
+    if isinstance(what, dict):
+        ctx.keys(what, {"weighted", "normalize"}, skey)
+        weights = what.get("weighted")
+        if not isinstance(weights, dict) or not weights:
+            raise ctx.error(f"{skey}.weighted", "expected a mapping METRIC: WEIGHT, e.g. "
+                                                "{g: 0.7, u: 0.3}")
+        norm = what.get("normalize") or {}
+        if not isinstance(norm, dict):
+            raise ctx.error(f"{skey}.normalize", "expected a mapping METRIC: SCALE")
+        for m in norm:
+            if m not in weights:
+                raise ctx.error(f"{skey}.normalize.{m}", f"'{m}' has no weight; weighted "
+                                                         f"metrics: {', '.join(weights)}")
+        terms = []
+        for m, w in weights.items():
+            _metric(ctx, m, f"{skey}.weighted.{m}", design)
+            wv = ctx.number(w, f"{skey}.weighted.{m}")
+            nv = ctx.number(norm.get(m, 1.0), f"{skey}.normalize.{m}", low=0.0, low_open=True)
+            terms.append((m, wv, nv))
+        return Objective(key, sense, tuple(terms), spec, weighted=True)
+    return Objective(key, sense, ((_metric(ctx, what, skey, design), 1.0, 1.0),), spec)
+
+
+def _constraint(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl):
+    if isinstance(raw, dict) and "fabrication" in raw:
+        ctx.keys(raw, {"fabrication", "value"}, key)
+        kind = raw["fabrication"]
+        if kind not in FABRICATION_KINDS:
+            raise ctx.error(f"{key}.fabrication", f"unknown kind {kind!r}; allowed: "
+                                                  f"{', '.join(FABRICATION_KINDS)}"
+                                                  f"{_closest(str(kind), FABRICATION_KINDS)}")
+        if "value" not in raw:
+            raise ctx.error(f"{key}.value", "missing")
+        value = ctx.number(raw["value"], f"{key}.value", low=0.0, low_open=True)
+        return FabricationConstraint(key, kind, value)
+    ctx.keys(raw, {"metric", "min", "max", "at_nm", "band_nm", "points"}, key)
+    if "metric" not in raw:
+        raise ctx.error(f"{key}.metric", "missing; a constraint is {metric: NAME, min: LOW, "
+                                         "max: HIGH} or {fabrication: KIND, value: V} with KIND "
+                                         f"in {', '.join(FABRICATION_KINDS)}")
+    metric = _metric(ctx, raw["metric"], f"{key}.metric", design)
+    lo = ctx.number(raw["min"], f"{key}.min") if "min" in raw else None
+    hi = ctx.number(raw["max"], f"{key}.max") if "max" in raw else None
+    if lo is None and hi is None:
+        raise ctx.error(key, "give min and/or max")
+    if lo is not None and hi is not None and lo > hi:
+        raise ctx.error(f"{key}.min", f"min = {lo:g} exceeds max = {hi:g}: no design can "
+                                      "satisfy it; did you swap min and max?")
+    return MetricConstraint(key, metric, lo, hi, _spec(ctx, raw, key, design_wl))
+
+
+def _search(ctx: _Ctx, raw: Any, n_objectives: int) -> SearchSettings:
+    allowed = {"algorithm", "starts", "xtol_rel", "ftol_rel", "max_evals_per_start", "front"}
+    ctx.keys(raw, allowed, "search")
+    s = SearchSettings()
+    algo = raw.get("algorithm", s.algorithm)
+    try:
+        algo = get_algorithm(algo).name
+    except InputError as exc:
+        raise ctx.error("search.algorithm", exc.message) from None
+    starts = ctx.integer(raw.get("starts", s.starts), "search.starts", low=1, high=4096)
+    xtol = ctx.number(raw.get("xtol_rel", s.xtol_rel), "search.xtol_rel", low=0.0, high=1.0)
+    ftol = ctx.number(raw.get("ftol_rel", s.ftol_rel), "search.ftol_rel", low=0.0, high=1.0)
+    cap = ctx.integer(raw.get("max_evals_per_start", s.max_evals_per_start),
+                      "search.max_evals_per_start", low=1, high=10**7)
+    method, points = s.front_method, s.front_points
+    if "front" in raw:
+        if n_objectives < 2:
+            raise ctx.error("search.front", "a front needs two objectives; this goal has one")
+        ctx.keys(raw["front"], {"method", "points"}, "search.front")
+        method = raw["front"].get("method", method)
+        if method not in FRONT_METHODS:
+            raise ctx.error("search.front.method", f"got {method!r}, allowed: "
+                                                   f"{', '.join(FRONT_METHODS)}"
+                                                   f"{_closest(str(method), FRONT_METHODS)}")
+        points = ctx.integer(raw["front"].get("points", points), "search.front.points", low=2,
+                             high=1000)
+    return replace(s, algorithm=algo, starts=starts, xtol_rel=xtol, ftol_rel=ftol,
+                   max_evals_per_start=cap, front_method=method, front_points=points)
+
+
+def _budget(ctx: _Ctx, raw: Any) -> Budget:
+    ctx.keys(raw, {"wall_time", "evaluations"}, "budget")
+    wall = text = None
+    if "wall_time" in raw:
+        try:
+            wall = parse_wall_time(raw["wall_time"])
+        except InputError as exc:
+            raise ctx.error("budget.wall_time", exc.message) from None
+        text = str(raw["wall_time"])
+    evals = None
+    if "evaluations" in raw:
+        evals = ctx.integer(raw["evaluations"], "budget.evaluations", low=1, high=10**9)
+    return Budget(wall_time_s=wall, evaluations=evals, wall_time_text=text)

@@ -1,0 +1,41 @@
+"""Multipole (T-matrix) lattice model beyond dipoles: general lmax (issue 7).
+
+Owns: vector spherical waves and their conventions (vsw.py), VSWF translation tables
+(translation.py), Ewald lattice sums of scalar spherical waves (latticesums.py), particle
+T-matrices (tmatrix.py) and the coupled multipole solve with the per-order substrate
+(solve.py), whose result is a ``chiropt.solve.Solution``.
+Must not import: search, store, report, cli.
+"""
+
+from chiropt.multipole.latticesums import lattice_sums
+from chiropt.multipole.solve import (
+    MultipoleSolution,
+    multipole_power_fractions,
+    solve_multipole,
+)
+from chiropt.multipole.tmatrix import (
+    Sphere,
+    TMatrixSource,
+    choose_lmax,
+    coreshell_tmatrix,
+    design_particles,
+    sphere_tmatrix,
+    stack_tmatrices,
+)
+from chiropt.multipole.translation import translation_matrix, translation_table
+
+__all__ = [
+    "MultipoleSolution",
+    "Sphere",
+    "TMatrixSource",
+    "choose_lmax",
+    "coreshell_tmatrix",
+    "design_particles",
+    "lattice_sums",
+    "multipole_power_fractions",
+    "solve_multipole",
+    "sphere_tmatrix",
+    "stack_tmatrices",
+    "translation_matrix",
+    "translation_table",
+]

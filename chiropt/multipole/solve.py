@@ -1,0 +1,309 @@
+"""Coupled multipole (T-matrix) equations of a periodic array, with an optional stack.
+
+Owns: the lattice interaction of all particles of the cell in the VSWF basis up to lmax
+(Ewald sums of ``latticesums`` contracted with the tables of ``translation``), the
+stack-reflected interaction per diffraction order (downward orders reflected with the
+chiropt.stack coefficients and re-expanded in regular waves at every particle), the
+solution for both incident helicities, and the outgoing (s, p) amplitudes of every
+order, returned as a :class:`MultipoleSolution` that is a ``chiropt.solve.Solution``
+(same component and reference-plane conventions), so farfield/fields code reads it
+unchanged. Pure array code, autograd-differentiable.
+Must not import: metrics, search, store, report, cli.
+
+Equations: f_i = T_i e_i, e_i = b_i + sum_j [A^lat_ij + W^refl_ij] f_j, with b the
+background (incident + stack-reflected) field's regular coefficients at particle i,
+A^lat_ij = sum_R exp(i k_par.R) A(r_i - r_j - R) (R = 0 omitted for i = j) and W^refl
+the sum over orders of (regular expansion at i) x (r_s, r_p) x (downward emission of j).
+At lmax = 1 these are the coupled dipole equations of chiropt.solve (FORMULAS.md §2-§3).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+from typing import Any
+
+import autograd.numpy as np
+import numpy as onp
+from autograd.tracer import getval
+
+from chiropt.errors import InputError
+from chiropt.farfield import incident_flux, power_fractions
+from chiropt.multipole.latticesums import lattice_sums
+from chiropt.multipole.translation import translation_table
+from chiropt.multipole.vsw import (
+    dipole_fields,
+    dipole_moments,
+    emission_vectors,
+    n_modes,
+    planewave_coefficients,
+)
+from chiropt.solve import (
+    RAYLEIGH_WARN,
+    OrderSet,
+    RayleighAnomalyWarning,
+    Solution,
+    make_orders,
+    orders_radius,
+    orders_radius_far,
+)
+from chiropt.stack import stack_coefficients
+from chiropt.structure import Structure
+
+#: Cap on the number of orders kept for the reflected interaction.
+MAX_ORDERS = 6000
+
+
+@dataclass
+class MultipoleSolution(Solution):
+    """A :class:`chiropt.solve.Solution` from the multipole model, plus its coefficients.
+
+    coefficients : (W, 2, N, 2K) outgoing VSWF coefficients f of every particle [V/m]
+    exciting : (W, 2, N, 2K) regular coefficients e of the exciting field [V/m]
+    tmatrices : (W, N, 2K, 2K) the particles' T-matrices [-]
+    lmax : highest multipole degree
+    ``moments``, ``local_E``, ``local_H`` hold the l = 1 (dipole) part in the
+    normalization of chiropt.solve.
+    """
+
+    coefficients: Any = None
+    exciting: Any = None
+    tmatrices: Any = None
+    lmax: int = 1
+
+
+def _reflected_orders_radius(st: Structure, lmax: int) -> float:
+    """|G| cut [1/m] for the stack-reflected interaction at multipole degree lmax.
+
+    An evanescent order q reflected between particles at heights h_i, h_j above the
+    stack carries exp(-q (h_i + h_j)) times the angular factors (q/k)^(l + l') of the
+    emission and re-expansion (``vsw``): keep q with
+    2 q h_min - 2 lmax ln(q/k) <= ln(1/tol) + 3 (fixed-point iteration).
+    """
+    g = orders_radius(st)
+    if not st.has_substrate:
+        return g
+    k = float(onp.max(getval(st.k)))
+    h = float(onp.min(getval(st.centres)[:, 2]) - getval(st.z_top))
+    L = math.log(1.0 / st.tolerance) + 3.0
+    q = max(k, L / (2 * h))
+    for _ in range(50):
+        q = max(k, (L + 2 * lmax * math.log(max(q / k, 1.0))) / (2 * h))
+    kpar = float(onp.max(onp.hypot(*getval(st.k_par).T)))
+    need = q + k * float(onp.max(onp.real(onp.sqrt(getval(st.eps_substrate) + 0j)))) + kpar
+    b1, b2 = st.lattice.plain().reciprocal()
+    cell = abs(float(b1[0] * b2[1] - b1[1] * b2[0]))
+    cap = math.sqrt(MAX_ORDERS * cell / math.pi)
+    if need > max(cap, g):
+        warnings.warn(f"reflected multipole interaction truncated at {MAX_ORDERS} orders; "
+                      "the particles sit very close to the stack for their period",
+                      RuntimeWarning, stacklevel=3)
+        need = max(cap, g)
+    return max(g, need) * 1.0000001
+
+
+def _stack(st: Structure, orders: OrderSet, side: str):
+    eps_h = st.n_host ** 2 * np.ones_like(st.k0)
+    return stack_coefficients(orders.qn, st.k0, eps_h, st.eps_layers, st.thicknesses,
+                              st.eps_substrate, from_side=side)
+
+
+def _block_diag(T):
+    """(W, N, K2, K2) -> (W, N K2, N K2) block-diagonal."""
+    W, N, K2, _ = np.shape(T)
+    eye = onp.eye(N)
+    return np.reshape(np.einsum("wiab,ij->wiajb", T, eye), (W, N * K2, N * K2))
+
+
+def _check(structure, tmatrices, lmax):
+    if not isinstance(lmax, int) or isinstance(lmax, bool) or not 1 <= lmax <= 8:
+        raise InputError("model.lmax", f"must be an integer in [1, 8]; got {lmax!r}")
+    W = len(getval(structure.k0))
+    N = len(getval(structure.radii))
+    K2 = n_modes(lmax)
+    shape = onp.shape(getval(tmatrices))
+    if shape != (W, N, K2, K2):
+        raise InputError("tmatrices", f"must have shape (W, N, 2K, 2K) = {(W, N, K2, K2)} "
+                                      f"for lmax = {lmax}; got {shape}")
+
+
+def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = True,
+                    g_max: float | None = None) -> MultipoleSolution:
+    """Solve the coupled multipole equations for both incident helicities.
+
+    Parameters
+    ----------
+    structure : Structure — SI description (chiropt.structure.build_structure); its
+        dipole polarizabilities are not used
+    tmatrices : array (W, N, 2K, 2K) — T-matrices of the N particles of the cell in the
+        basis of ``chiropt.multipole.vsw`` [-]
+    lmax : int — multipole degree of the basis, 1 <= lmax <= 8
+    warn : bool — emit :class:`chiropt.solve.RayleighAnomalyWarning` near a grazing order
+    g_max : float, optional — keep at least the orders with |G| <= g_max [1/m]
+
+    Returns
+    -------
+    MultipoleSolution — order amplitudes on (s, p) referenced at z_top, as in
+    chiropt.solve.
+
+    References
+    ----------
+    Kambe (1967-68) and Stefanou, Yannopapas & Modinos, Comput. Phys. Commun. 113, 49
+    (1998) (layer-KKR: lattice-summed multipole coupling and plane-wave expansion of a
+    layer of multipoles); Mishchenko, Travis & Lacis (2002) §5 (T-matrix); FORMULAS.md
+    §2-§3 (dipole limit, substrate per order).
+    """
+    _check(structure, tmatrices, lmax)
+    st = structure
+    W = len(getval(st.k0))
+    N = len(getval(st.radii))
+    K2 = n_modes(lmax)
+    k = st.k
+    orders = make_orders(st, max(_reflected_orders_radius(st, lmax), float(g_max or 0.0)))
+    G = len(orders.mn)
+    centres = st.centres
+    h = centres[:, 2] - st.z_top
+    rho = centres[:, :2]
+    area = st.lattice.area
+
+    # -- lattice interaction (Ewald sums of scalar waves, translation tables) -----------
+    d = np.reshape(centres[:, None, :] - centres[None, :, :], (N * N, 3))
+    D = lattice_sums(k, st.k_par, st.lattice, d, 2 * lmax, tol=min(st.tolerance, 1e-10))
+    A = np.einsum("abj,wpj->wpab", translation_table(lmax), D)
+    A = np.reshape(A, (W, N, N, K2, K2))
+    Wmat = np.reshape(np.transpose(A, (0, 1, 3, 2, 4)), (W, N * K2, N * K2))
+
+    # -- plane-wave channels of every order ------------------------------------------------
+    pref = 2 * np.pi / (area * k[:, None] * orders.kz)                # (W, G)
+    em_up = emission_vectors(orders.k_up, lmax)                        # (W, G, 2K, 3)
+    em_dn = emission_vectors(orders.k_down, lmax)
+    emit = {"s_up": np.einsum("wgud,wgd->wgu", em_up, orders.s),
+            "p_up": np.einsum("wgud,wgd->wgu", em_up, orders.p_up),
+            "s_down": np.einsum("wgud,wgd->wgu", em_dn, orders.s),
+            "p_down": np.einsum("wgud,wgd->wgu", em_dn, orders.p_down)}
+    recv = {"s_up": planewave_coefficients(orders.k_up, orders.s + 0j, lmax),
+            "p_up": planewave_coefficients(orders.k_up, orders.p_up, lmax),
+            "s_down": planewave_coefficients(orders.k_down, orders.s + 0j, lmax),
+            "p_down": planewave_coefficients(orders.k_down, orders.p_down, lmax)}
+    qr = np.einsum("wgc,nc->wgn", orders.q, rho)
+    kzh = orders.kz[..., None] * h[None, None, :]
+    ph_up = pref[..., None] * np.exp(-1j * qr - 1j * kzh)            # emission, upward
+    ph_dn = pref[..., None] * np.exp(-1j * qr + 1j * kzh)            # emission, downward
+    rc_up = np.exp(1j * qr + 1j * kzh)                                 # receive upward wave
+
+    def per_particle(vec, phase):
+        """(W, G, 2K) x (W, G, N) -> (W, G, N 2K)."""
+        return np.reshape(phase[..., :, None] * vec[..., None, :], (W, G, N * K2))
+
+    E = {key: per_particle(emit[key], ph_up if key.endswith("up") else ph_dn)
+         for key in emit}
+    if st.has_substrate:
+        coef = _stack(st, orders, "host")
+        for ch, r in (("s", coef.r_s), ("p", coef.r_p)):
+            rv = per_particle(recv[ch + "_up"], rc_up * r[..., None])     # (W, G, N 2K)
+            Wmat = Wmat + np.matmul(np.transpose(rv, (0, 2, 1)), E[ch + "_down"])
+
+    # -- background field: (0,0)-order components on (s, p) ---------------------------------
+    hel = np.array([[1j, 1.0], [-1j, 1.0]]) / np.sqrt(2.0)  # (helicity, [s, p]) of p + i h s
+    kz0 = orders.kz[:, 0]
+    zeros = np.zeros((W, 2, 2), dtype=complex)
+    if st.side == "host":
+        D0 = hel[None] * np.exp(-1j * kz0 * st.z_top)[:, None, None]
+        if st.has_substrate:
+            U0 = D0 * np.stack([coef.r_s[:, 0], coef.r_p[:, 0]], axis=-1)[:, None]
+            X0 = D0 * np.stack([coef.t_s[:, 0], coef.t_p[:, 0]], axis=-1)[:, None]
+        else:
+            U0, X0 = zeros, D0
+    else:
+        coef_s = _stack(st, _first_order(orders), "substrate")
+        U0 = hel[None] * np.stack([coef_s.t_s[:, 0], coef_s.t_p[:, 0]], axis=-1)[:, None]
+        X0 = hel[None] * np.stack([coef_s.r_s[:, 0], coef_s.r_p[:, 0]], axis=-1)[:, None]
+        D0 = zeros
+    ph0 = np.exp(1j * np.einsum("wc,nc->wn", orders.q[:, 0], rho))   # (W, N)
+    dn0 = (ph0 * np.exp(-1j * kz0[:, None] * h[None, :]))[:, None, :, None]
+    up0 = (ph0 * np.exp(1j * kz0[:, None] * h[None, :]))[:, None, :, None]
+    r0 = {key: v[:, 0][:, None, None, :] for key, v in recv.items()}  # (W, 1, 1, 2K)
+    b = ((D0[..., 0, None, None] * r0["s_down"] + D0[..., 1, None, None] * r0["p_down"]) * dn0
+         + (U0[..., 0, None, None] * r0["s_up"] + U0[..., 1, None, None] * r0["p_up"]) * up0)
+    b = np.reshape(b, (W, 2, N * K2))
+
+    # -- solve (I - T W) f = T b ---------------------------------------------------------------
+    Tb = _block_diag(tmatrices)
+    Amat = np.eye(N * K2)[None] - np.matmul(Tb, Wmat)
+    rhs = np.matmul(Tb, np.transpose(b, (0, 2, 1)))
+    f = np.transpose(np.linalg.solve(Amat, rhs), (0, 2, 1))           # (W, 2, N 2K)
+    e = b + np.transpose(np.matmul(Wmat, np.transpose(f, (0, 2, 1))), (0, 2, 1))
+
+    # -- outgoing orders, components on (s, p) --------------------------------------------
+    def comps(direction):
+        return np.stack([np.einsum("wgk,wtk->wtg", E["s_" + direction], f),
+                         np.einsum("wgk,wtk->wtg", E["p_" + direction], f)], axis=-1)
+
+    up_c, down_c = comps("up"), comps("down")
+    first = (onp.arange(G) == 0)[None, None, :, None]
+    if st.has_substrate:
+        rr = np.stack([coef.r_s, coef.r_p], axis=-1)[:, None]
+        tt = np.stack([coef.t_s, coef.t_p], axis=-1)[:, None]
+        up_c = up_c + rr * down_c + first * U0[:, :, None, :]
+        exit_c = tt * down_c + first * X0[:, :, None, :]
+        eps_exit = st.eps_substrate
+    else:
+        exit_c = down_c + first * X0[:, :, None, :]
+        eps_exit = st.n_host ** 2 * np.ones_like(st.k0)
+
+    k_prop = orders_radius_far(st)
+    Gvec = getval(orders.q)[0] - getval(st.k_par)[0][None, :]
+    n_far = int(onp.sum(onp.linalg.norm(Gvec, axis=-1) <= k_prop))
+    rayleigh = onp.min(onp.abs(getval(orders.kz)) / getval(k)[:, None], axis=1)
+    if st.has_substrate:
+        k2v = onp.sqrt(getval(st.eps_substrate))[:, None] * getval(st.k0)[:, None]
+        kz2v = onp.sqrt(k2v ** 2 - getval(orders.qn) ** 2 + 0j)
+        rayleigh = onp.minimum(rayleigh, onp.min(onp.abs(kz2v) / onp.abs(k2v), axis=1))
+    if warn and onp.any(rayleigh < RAYLEIGH_WARN):
+        bad = onp.asarray(getval(st.wavelength_nm))[rayleigh < RAYLEIGH_WARN]
+        warnings.warn(f"a diffraction order grazes (Rayleigh anomaly) at wavelength(s) "
+                      f"{', '.join(f'{w:.6g}' for w in bad)} nm: results there are unreliable",
+                      RayleighAnomalyWarning, stacklevel=2)
+
+    f4 = np.reshape(f, (W, 2, N, K2))
+    e4 = np.reshape(e, (W, 2, N, K2))
+    moments = dipole_moments(f4, k[:, None, None])
+    local = dipole_fields(e4)
+    return MultipoleSolution(structure=st, orders=orders, moments=moments, up_sp=up_c,
+                             down_sp=down_c, exit_sp=exit_c, incident_sp=D0,
+                             local_E=local[..., :3], local_H=local[..., 3:],
+                             rayleigh=rayleigh, eps_exit=eps_exit, n_far=n_far,
+                             coefficients=f4, exciting=e4, tmatrices=tmatrices, lmax=lmax)
+
+
+def _first_order(orders: OrderSet) -> OrderSet:
+    return OrderSet(mn=orders.mn[:1], q=orders.q[:, :1], qn=orders.qn[:, :1],
+                    kz=orders.kz[:, :1], s=orders.s[:, :1], p_up=orders.p_up[:, :1],
+                    p_down=orders.p_down[:, :1], k_up=orders.k_up[:, :1],
+                    k_down=orders.k_down[:, :1])
+
+
+def multipole_power_fractions(sol: MultipoleSolution) -> dict:
+    """R, T, A = 1 - R - T and the particles' absorbed fraction, each (W, 2) [+1, -1].
+
+    R and T come from the order amplitudes (chiropt.farfield); ``A_particles`` is
+    the power the particles absorb, sum_i (n_h/k^2) [-Re(e_i^H f_i) - |f_i|^2] per cell,
+    divided by the incident flux (an independent absorptance).
+
+    References
+    ----------
+    Mishchenko, Travis & Lacis (2002) §5.8 (extinction and scattering from expansion
+    coefficients); normalization fixed by the sphere's sigma_ext = (2 pi/k^2)
+    sum (2l+1) Re(a_l + b_l) (Bohren & Huffman eq. 4.62), checked by a test.
+    """
+    frac = power_fractions(sol)
+    frac.pop("A_dipoles", None)
+    st = sol.structure
+    f, e = sol.coefficients, sol.exciting
+    ext = -np.real(np.sum(np.conj(e) * f, axis=(-1, -2)))
+    sca = np.sum(np.abs(f) ** 2, axis=(-1, -2))
+    inc = incident_flux(sol)[:, None]
+    frac["A_particles"] = ((st.n_host / st.k ** 2)[:, None] * (ext - sca)
+                           / (st.lattice.area * inc))
+    return frac

@@ -1,0 +1,355 @@
+"""Vector spherical waves: conventions, mode indexing, plane-wave expansions.
+
+Owns: the one statement of the VSWF conventions of chiropt (below), the mode index,
+spherical harmonics evaluated at complex unit vectors (so that evanescent plane waves
+are handled by analytic continuation), the regular-wave expansion of a plane wave,
+the plane-wave (diffraction-order) expansion of a 2D lattice of outgoing VSWFs, the
+map between l = 1 coefficients and the dipole moments of chiropt.solve, and plain
+(non-traced) point evaluation of the waves for tests and field maps.
+Must not import: solve, fields, metrics, search, store, report, cli.
+
+Conventions (stated once; locked in by tests/test_multipole_vsw.py)
+-------------------------------------------------------------------
+- Time factor exp(-i omega t); SI; host wavenumber k (real).
+- Scalar spherical harmonics Y_lm with the Condon-Shortley phase, orthonormal on the
+  sphere (same as ``scipy.special.sph_harm_y``); Y_{l,-m} = (-1)^m conj(Y_lm).
+- Vector spherical harmonic X_lm = L Y_lm / sqrt(l (l+1)), L = -i r x grad.
+- Waves (z_l = j_l regular, h_l = h_l^(1) outgoing):
+  M_lm = z_l(kr) X_lm(r_hat),   N_lm = curl(M_lm) / k, so curl N = k M.
+  Explicitly N_lm = i sqrt(l(l+1)) z_l/(kr) Y_lm r_hat + [(kr z_l)'/(kr)] r_hat x X_lm.
+- Mode index (per particle, 2K modes, K = lmax (lmax + 2)): l ascending, m = -l..l,
+  polarization fastest, electric (N, "TM") first, magnetic (M, "TE") second:
+  u = 2 (l (l+1) + m - 1) + tau, tau = 0 for N, 1 for M.
+- A field near a particle is sum_u [e_u Rg Psi_u + f_u Psi_u]; a T-matrix maps the
+  exciting (regular) coefficients e to the scattered (outgoing) ones: f = T e.
+  A sphere has T = diag(-a_l) on N modes and diag(-b_l) on M modes (Bohren & Huffman
+  coefficients; the ratio of scattered to incident coefficients of B&H eqs. 4.37, 4.45).
+- Plane wave E0 exp(i k k_hat . r) (k_hat . E0 = 0, bilinear):
+  e_u = 4 pi i^l V_u(k_hat) . E0 with V_M,lm = -(-1)^m X_{l,-m}(k_hat) and
+  V_N,lm = (-1)^m i k_hat x X_{l,-m}(k_hat) (= conj(X_lm), conj(i k_hat x X_lm) for real
+  k_hat). Complex k_hat (evanescent waves) use the polynomial continuation of Y_lm.
+- Outgoing-wave lattice (Weyl analogue), cell area A, Bloch vector k_par:
+  sum_R exp(i k_par.R) Psi_u(r - R) = (2 pi/(A k)) sum_g (-i)^l W_u(k_hat_g) exp(i k_g.r)/kz_g,
+  W_M = X_lm, W_N = i k_hat x X_lm, k_g = (q_g, +-kz_g) for z >< 0.
+- Dipoles (normalization of chiropt.solve): P = p/(eps0 n_h^2) = (sqrt(6 pi)/k^3)
+  sum_m f^N_1m eps_m, Z m = (-i sqrt(6 pi)/k^3) sum_m f^M_1m eps_m, with the spherical
+  unit vectors eps_{+1} = -(1, i, 0)/sqrt 2, eps_0 = (0, 0, 1), eps_{-1} = (1, -i, 0)/sqrt 2.
+
+References
+----------
+Jackson, Classical Electrodynamics, 3rd ed. (1999), §9.6-9.7 (X_lm, multipole fields);
+Bohren & Huffman, Absorption and Scattering of Light by Small Particles (1983), §4.1-4.4;
+Tsang, Kong & Ding, Scattering of Electromagnetic Waves: Theories and Applications
+(2000), ch. 1 (plane-wave and angular-spectrum expansions of VSWFs); Devaney & Wolf,
+J. Math. Phys. 15, 234 (1974) (angular-spectrum representation of multipole fields).
+"""
+
+from __future__ import annotations
+
+import math
+from functools import cache
+
+import autograd.numpy as np
+import numpy as onp
+import scipy.special as sps
+
+# ------------------------------------------------------------------ indexing
+
+
+def n_modes(lmax: int) -> int:
+    """Number of modes per particle, 2 lmax (lmax + 2)."""
+    return 2 * lmax * (lmax + 2)
+
+
+@cache
+def mode_table(lmax: int):
+    """Mode labels (tau, l, m) of the 2K modes, tau = 0 (N, electric), 1 (M, magnetic).
+
+    Returns
+    -------
+    (tau, l, m) : three int arrays (2K,)
+    """
+    tau, ls, ms = [], [], []
+    for l in range(1, lmax + 1):
+        for m in range(-l, l + 1):
+            for t in (0, 1):
+                tau.append(t)
+                ls.append(l)
+                ms.append(m)
+    return onp.array(tau), onp.array(ls), onp.array(ms)
+
+
+def lm_index(l, m):
+    """Index l (l+1) + m of (l, m) in arrays over all l >= 0 (Y_00 at index 0)."""
+    return l * (l + 1) + m
+
+
+# ------------------------------------------------------------------ spherical harmonics
+
+
+def _norm(l, m):
+    return math.sqrt((2 * l + 1) / (4 * math.pi) * math.factorial(l - m) / math.factorial(l + m))
+
+
+def spherical_harmonics(u, lmax: int):
+    """Y_lm(u) for 0 <= l <= lmax at (possibly complex) unit vectors u.
+
+    Parameters
+    ----------
+    u : array (..., 3) — unit vectors (bilinear u.u = 1; complex for evanescent waves) [-]
+    lmax : int — highest degree
+
+    Returns
+    -------
+    array (..., (lmax+1)^2), index l (l+1) + m.
+
+    Notes
+    -----
+    Uses the polynomial form Y_lm = N_lm (-1)^m (u_x + i u_y)^m P_l^(m)(u_z) (m >= 0) and
+    Y_{l,-m} = N_lm (u_x - i u_y)^m P_l^(m)(u_z), P_l^(m) the m-th derivative of the
+    Legendre polynomial, by the recurrence (l - m) P_l^(m) = (2l - 1) t P_{l-1}^(m)
+    - (l + m - 1) P_{l-2}^(m), P_m^(m) = (2m - 1)!!. It equals the usual harmonic on the
+    real sphere and is its analytic continuation elsewhere.
+
+    References
+    ----------
+    DLMF 14.7.8, 14.10.3 (Legendre recurrences), 14.30.1 (Y_lm); Jackson (1999) eq. 3.53.
+    """
+    ux, uy, t = u[..., 0], u[..., 1], u[..., 2]
+    plus, minus = ux + 1j * uy, ux - 1j * uy
+    out = {}
+    pw_p = [1.0 + 0 * t]
+    pw_m = [1.0 + 0 * t]
+    for _ in range(1, lmax + 1):
+        pw_p.append(pw_p[-1] * plus)
+        pw_m.append(pw_m[-1] * minus)
+    for m in range(0, lmax + 1):
+        dfact = float(onp.prod(onp.arange(2 * m - 1, 0, -2))) if m > 0 else 1.0
+        q_prev, q = None, dfact + 0 * t
+        for l in range(m, lmax + 1):
+            if l > m:
+                nxt = ((2 * l - 1) * t * q - (l + m - 1) * (q_prev if q_prev is not None else 0.0)
+                       ) / (l - m)
+                q_prev, q = q, nxt
+            c = _norm(l, m)
+            out[(l, m)] = c * (-1) ** m * pw_p[m] * q
+            if m > 0:
+                out[(l, -m)] = c * pw_m[m] * q
+    return np.stack([out[(l, m)] for l in range(lmax + 1) for m in range(-l, l + 1)], axis=-1)
+
+
+def _cpm(l, m, sign):
+    """c_+-(l, m) = sqrt((l -+ m)(l +- m + 1)): L_+- Y_lm = c_+- Y_{l,m+-1}."""
+    return math.sqrt(max((l - sign * m) * (l + sign * m + 1), 0))
+
+
+@cache
+def _x_matrices(lmax: int):
+    """Constant maps from Y_{l m'} ((lmax+1)^2) to the x, y, z components of X_lm (K)."""
+    K = lmax * (lmax + 2)
+    C = onp.zeros((3, (lmax + 1) ** 2, K), dtype=complex)
+    col = 0
+    for l in range(1, lmax + 1):
+        s = 1.0 / math.sqrt(l * (l + 1))
+        for m in range(-l, l + 1):
+            cm, cp = _cpm(l, m, -1), _cpm(l, m, +1)
+            if m - 1 >= -l:  # (1/2) c_- Y_{l,m-1} u_+,  u_+ = (1, i, 0)
+                C[0, lm_index(l, m - 1), col] += 0.5 * cm * s
+                C[1, lm_index(l, m - 1), col] += 0.5j * cm * s
+            if m + 1 <= l:  # (1/2) c_+ Y_{l,m+1} u_-,  u_- = (1, -i, 0)
+                C[0, lm_index(l, m + 1), col] += 0.5 * cp * s
+                C[1, lm_index(l, m + 1), col] += -0.5j * cp * s
+            C[2, lm_index(l, m), col] += m * s
+            col += 1
+    return C
+
+
+def vector_harmonics(u, lmax: int):
+    """X_lm(u) = L Y_lm / sqrt(l(l+1)) at (possibly complex) unit vectors u.
+
+    Parameters
+    ----------
+    u : array (..., 3) — unit vectors [-]
+    lmax : int
+
+    Returns
+    -------
+    array (..., K, 3), K = lmax (lmax+2), mode order l ascending, m = -l..l.
+
+    Notes
+    -----
+    With L_+- = L_x +- i L_y, L_+- Y_lm = c_+- Y_{l,m+-1}, L_z Y_lm = m Y_lm:
+    L Y = (1/2) (L_- Y)(1, i, 0) + (1/2)(L_+ Y)(1, -i, 0) + (L_z Y) z_hat.
+
+    References
+    ----------
+    Jackson (1999) eqs. 9.101-9.104 (L operators, X_lm).
+    """
+    Y = spherical_harmonics(u, lmax)
+    C = _x_matrices(lmax)
+    return np.stack([np.dot(Y, C[0]), np.dot(Y, C[1]), np.dot(Y, C[2])], axis=-1)
+
+
+def _cross(a, b):
+    return np.stack([a[..., 1] * b[..., 2] - a[..., 2] * b[..., 1],
+                     a[..., 2] * b[..., 0] - a[..., 0] * b[..., 2],
+                     a[..., 0] * b[..., 1] - a[..., 1] * b[..., 0]], axis=-1)
+
+
+@cache
+def _neg_m_perm(lmax: int):
+    """Permutation of the K (l, m) modes taking m -> -m, and the signs (-1)^m."""
+    idx, sign = [], []
+    for l in range(1, lmax + 1):
+        for m in range(-l, l + 1):
+            idx.append(lm_index(l, -m) - 1)
+            sign.append((-1.0) ** m)
+    return onp.array(idx), onp.array(sign)
+
+
+def _interleave(wn, wm):
+    """(..., K, 3) N-type and M-type vectors -> (..., 2K, 3) in the mode order."""
+    sh = np.shape(wn)
+    return np.reshape(np.stack([wn, wm], axis=-2), sh[:-2] + (2 * sh[-2], 3))
+
+
+@cache
+def _i_power(lmax: int, sign: int):
+    _, ls, _ = mode_table(lmax)
+    return (1j * sign) ** ls
+
+
+def outgoing_vectors(u, lmax: int):
+    """Angular-spectrum vectors W_u(k_hat): W_N = i k_hat x X_lm, W_M = X_lm, (..., 2K, 3)."""
+    X = vector_harmonics(u, lmax)
+    W_n = 1j * _cross(u[..., None, :] + 0 * X, X)
+    return _interleave(W_n, X)
+
+
+def incoming_vectors(u, lmax: int):
+    """Projection vectors V_u(k_hat) of the regular-wave expansion of a plane wave, (..., 2K, 3).
+
+    V_M,lm = -(-1)^m X_{l,-m}(k_hat), V_N,lm = (-1)^m i k_hat x X_{l,-m}(k_hat); for real
+    k_hat these equal conj(X_lm) and conj(i k_hat x X_lm) (Y_{l,-m} = (-1)^m conj Y_lm).
+    """
+    X = vector_harmonics(u, lmax)
+    perm, sign = _neg_m_perm(lmax)
+    Xn = X[..., perm, :] * sign[:, None]
+    V_n = 1j * _cross(u[..., None, :] + 0 * Xn, Xn)
+    return _interleave(V_n, -Xn)
+
+
+def planewave_coefficients(u, E0, lmax: int):
+    """Regular-VSWF coefficients e_u of the plane wave E0 exp(i k u.r) about the origin.
+
+    Parameters
+    ----------
+    u : array (..., 3) — propagation direction k_vec / k (complex for evanescent waves) [-]
+    E0 : array (..., 3) — amplitude vector, u . E0 = 0 (bilinear) [V/m]
+    lmax : int
+
+    Returns
+    -------
+    array (..., 2K) — e_u = 4 pi i^l V_u(u) . E0 [V/m].
+
+    References
+    ----------
+    Tsang, Kong & Ding (2000) ch. 1 (plane-wave expansion in VSWFs); derived here from
+    Rg M_lm = (1/(4 pi i^l)) \\int exp(i k k_hat.r) X_lm(k_hat) dOmega and the completeness
+    of the tangential vector harmonics; checked pointwise by a test.
+    """
+    V = incoming_vectors(u, lmax)
+    return 4 * np.pi * _i_power(lmax, +1) * np.sum(V * E0[..., None, :], axis=-1)
+
+
+def emission_vectors(u, lmax: int):
+    """(-i)^l W_u(k_hat): a lattice of outgoing waves with coefficients f radiates into the
+    plane wave of direction k_hat the amplitude (2 pi/(A k kz)) sum_u f_u (-i)^l W_u, (..., 2K, 3).
+
+    References
+    ----------
+    Weyl expansion (FORMULAS.md §1) with h_l Y_lm = (-k)^-l Y_lm(grad) h_0 (Hobson's
+    theorem, Hobson, Proc. London Math. Soc. 24, 54 (1892)), then L applied to both sides.
+    """
+    return outgoing_vectors(u, lmax) * _i_power(lmax, -1)[:, None]
+
+
+# ------------------------------------------------------------------ dipole map
+
+_EPS = onp.array([[1.0, -1j, 0.0], [0.0, 0.0, 1.0], [-1.0, -1j, 0.0]]) / onp.array(
+    [[math.sqrt(2)], [1.0], [math.sqrt(2)]])  # rows m = -1, 0, +1
+
+
+def dipole_moments(f, k):
+    """Dipole moments (P, Z m) of the l = 1 outgoing coefficients.
+
+    Parameters
+    ----------
+    f : array (..., 2K) — outgoing coefficients (mode order of this module) [V/m]
+    k : array broadcast against f[..., 0] — host wavenumber [1/m]
+
+    Returns
+    -------
+    array (..., 6) — [P, M] with P = p/(eps0 n_h^2), M = Z m [V m] (chiropt.solve).
+
+    References
+    ----------
+    Module docstring (derived by matching the Weyl expansions of FORMULAS.md §3 and of
+    ``emission_vectors`` at l = 1; gives alpha_e = 6 pi i a1/k^3 as in FORMULAS.md §2).
+    """
+    c = np.sqrt(6 * np.pi) / k ** 3
+    fn, fm = f[..., 0:6:2], f[..., 1:6:2]  # m = -1, 0, 1
+    P = c[..., None] * np.dot(fn, _EPS)
+    M = -1j * c[..., None] * np.dot(fm, _EPS)
+    return np.concatenate([P, M], axis=-1)
+
+
+def dipole_fields(e):
+    """Exciting fields (E, Z H) [V/m] at the origin from the l = 1 regular coefficients.
+
+    E = (i/sqrt(6 pi)) sum_m e^N_1m eps_m, Z H = (1/sqrt(6 pi)) sum_m e^M_1m eps_m.
+    """
+    c = 1.0 / np.sqrt(6 * np.pi)
+    E = 1j * c * np.dot(e[..., 0:6:2], _EPS)
+    H = c * np.dot(e[..., 1:6:2], _EPS)
+    return np.concatenate([E, H], axis=-1)
+
+
+# ------------------------------------------------------------------ point evaluation
+
+
+def vswf_at_points(points, k, lmax: int, kind: str = "outgoing"):
+    """Plain-value VSWFs Psi_u(k r) at real points (tests and field maps; not traced).
+
+    Parameters
+    ----------
+    points : array (P, 3) — positions relative to the expansion centre [m]
+    k : float — host wavenumber [1/m]
+    lmax : int
+    kind : 'outgoing' (h_l^(1)) or 'regular' (j_l)
+
+    Returns
+    -------
+    complex array (P, 2K, 3) — the fields of every mode [-].
+    """
+    r = onp.linalg.norm(points, axis=-1)
+    u = points / r[:, None]
+    x = k * r
+    _, ls, _ = mode_table(lmax)
+    lk = onp.arange(1, lmax + 1)
+    jl = sps.spherical_jn(lk[None, :], x[:, None])
+    jd = sps.spherical_jn(lk[None, :], x[:, None], derivative=True)
+    if kind == "regular":
+        z, zd = jl, jd
+    else:
+        z = jl + 1j * sps.spherical_yn(lk[None, :], x[:, None])
+        zd = jd + 1j * sps.spherical_yn(lk[None, :], x[:, None], derivative=True)
+    X = onp.asarray(vector_harmonics(u, lmax))          # (P, K, 3)
+    Y = onp.asarray(spherical_harmonics(u, lmax))[:, 1:]  # (P, K)
+    lK = ls[0::2]
+    zK = z[:, lK - 1]
+    dK = (zK + x[:, None] * zd[:, lK - 1]) / x[:, None]   # (x z)'/x
+    M = zK[..., None] * X
+    N = (1j * onp.sqrt(lK * (lK + 1.0)) * zK / x[:, None] * Y)[..., None] * u[:, None, :] \
+        + dK[..., None] * onp.cross(u[:, None, :], X)
+    return onp.asarray(_interleave(N, M))

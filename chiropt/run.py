@@ -1,0 +1,533 @@
+"""The main job: a goal optimized into a run folder (``chiropt run GOAL.yaml``).
+
+Owns: the orchestration of a run (pre-run checks, the local searches in parallel, budgets,
+resume), the run folder layout, the progress display and the report regenerated from the
+store. Must not import: cli.
+
+Run folder ``<out>/<name>-<material>/``
+---------------------------------------
+- ``goal.resolved.yaml``: the goal with defaults and the concrete material.
+- ``evaluations.sqlite``: every evaluation (design vector, all quantities at all wavelengths,
+  objectives, constraints, status, reason, wall time). The source of truth: everything below
+  is regenerated from it (``write_report``).
+- ``front.csv``: the non-dominated feasible set (one objective: the best design of each
+  search), hypervolume in a header line; ``candidates/c<index>.yaml``: design files of up to
+  ``front.points`` (one objective: 10) front points spread along the front, which
+  ``chiropt evaluate`` reproduces; ``front.png``, ``convergence.png``; ``run.log``.
+
+Searches
+--------
+- One objective: one local search per scrambled-Sobol start (stage ``start``, search k).
+- Two objectives: every start traces a whole front (epsilon-constraint or weighted sum) from
+  its own start point (stage ``front-k``); the reported front is the non-dominated set of
+  every feasible evaluation of the run.
+- Searches run through an ``Executor`` (a process pool by default; ``workers=0`` runs them
+  in this process). Each search has a fixed evaluation cap, ``max_evals_per_start`` lowered
+  to ``budget.evaluations / number of searches``, so results do not depend on timing.
+- Resume: the same command replays the stored evaluations (``CachedProblem``) and goes on.
+  The wall-time budget counts per invocation; when it runs out, fresh evaluations stop
+  (``DeadlineReached``, never stored) and the report is written from what is stored.
+- Feasible: status ok and every scaled constraint ``<= FEASIBILITY_TOL``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import sqlite3
+import sys
+import time
+from concurrent.futures import FIRST_EXCEPTION, wait
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as onp
+import yaml
+
+from chiropt.errors import InputError
+from chiropt.goals.objectives import DeadlineReached, GoalProblem, check_goal
+from chiropt.goals.schema import WAVELENGTH_PATH, Goal, load_goal
+from chiropt.search.driver import minimize
+from chiropt.search.executor import ProcessExecutor, SerialExecutor
+from chiropt.search.fronts import Scalarized, epsilon_constraint, weighted_sum
+from chiropt.search.multistart import sobol_starts, start_seed
+from chiropt.search.pareto import hypervolume, non_dominated
+from chiropt.sensitivity import compute_quantities
+from chiropt.store.evaluations import CachingWrap, EvaluationStore
+
+__all__ = ["FEASIBILITY_TOL", "RunSummary", "plan_searches", "run_goal", "run_goal_file",
+           "write_report"]
+
+FEASIBILITY_TOL = 1e-6
+STORE_NAME = "evaluations.sqlite"
+STOP_NAME = ".stop"
+REPRODUCE_TOL = 1e-9
+
+
+# ---------------------------------------------------------------------------------------------
+# searches (module level: picklable for the process pool)
+# ---------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class SearchTask:
+    """One unit of work for an executor: a local search or a whole front trace."""
+
+    goal: Goal
+    store_path: str
+    index: int
+    x0: onp.ndarray
+    seed: int
+    max_evals: int
+    deadline: float | None
+    stop_file: str | None = None
+
+
+@dataclass
+class TaskOutcome:
+    """What a task reports back (the store holds the rest)."""
+
+    index: int
+    status: str  # "done", "deadline", "error"
+    message: str = ""
+
+
+def _run_task(task: SearchTask) -> TaskOutcome:
+    goal = task.goal
+    problem = GoalProblem(goal, deadline=task.deadline, stop_file=task.stop_file)
+    wrap = CachingWrap(task.store_path)
+    s = goal.search
+    options = dict(max_evals=task.max_evals, xtol_rel=s.xtol_rel, ftol_rel=s.ftol_rel,
+                   feasibility_tol=FEASIBILITY_TOL)
+    try:
+        if problem.n_objectives == 1:
+            scal = Scalarized(problem, "single", 0, 0.0, [0.0], [1.0])
+            minimize(wrap(scal, "start", task.index), task.x0, s.algorithm, seed=task.seed,
+                     **options)
+        else:
+            trace = epsilon_constraint if s.front_method == "epsilon-constraint" else weighted_sum
+            trace(problem, s.front_points, algorithm=s.algorithm, x0=task.x0, seed=task.seed,
+                  wrap=wrap, stage=f"front-{task.index}", **options)
+    except DeadlineReached as exc:
+        return TaskOutcome(task.index, "deadline", str(exc))
+    except InputError as exc:  # e.g. a front whose anchor search found nothing
+        return TaskOutcome(task.index, "error", str(exc))
+    return TaskOutcome(task.index, "done")
+
+
+def plan_searches(goal: Goal) -> tuple[int, int]:
+    """(number of local searches, evaluation cap of each) for a goal."""
+    s = goal.search
+    per_start = 1 if len(goal.objectives) == 1 else 4 + max(0, s.front_points - 2)
+    n = s.starts * per_start
+    cap = s.max_evals_per_start
+    if goal.budget.evaluations is not None:
+        cap = max(1, min(cap, goal.budget.evaluations // n))
+    return n, cap
+
+
+def goal_hash(goal: Goal) -> str:
+    """Hash of everything that decides the evaluations of a run (not the wall time)."""
+    d = goal.to_dict()
+    d["budget"] = {k: v for k, v in d["budget"].items() if k != "wall_time"}
+    d["evaluation_cap"] = plan_searches(goal)[1]
+    text = json.dumps(d, sort_keys=True, default=str)
+    return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+# ---------------------------------------------------------------------------------------------
+# progress
+# ---------------------------------------------------------------------------------------------
+
+class Progress:
+    """Reads new rows of the store and reports evaluations, best values, front, ETA.
+
+    ``emit`` receives one line of text (``None``: silent). Reads with its own read-only
+    connection, so it never competes with the writers.
+    """
+
+    def __init__(self, store_path: str, goal: Goal, total: int, deadline: float | None,
+                 emit=None):
+        self.path, self.goal, self.total, self.deadline, self.emit = (
+            store_path, goal, total, deadline, emit)
+        self.senses = tuple(o.sense for o in goal.objectives)
+        self.last_id = 0
+        self.count = 0
+        self.failed = 0
+        self.front = onp.zeros((0, len(self.senses)))
+        self.worst = None
+        self.t0 = time.time()
+        self.n0: int | None = None
+
+    def poll(self) -> None:
+        try:
+            conn = sqlite3.connect(f"file:{self.path}?mode=ro", uri=True, timeout=5.0)
+            rows = conn.execute("SELECT id, metrics, status FROM evaluations WHERE id > ? "
+                                "ORDER BY id", (self.last_id,)).fetchall()
+            conn.close()
+        except sqlite3.Error:
+            return
+        new = []
+        for id_, metrics, status in rows:
+            self.last_id = max(self.last_id, id_)
+            self.count += 1
+            if status != "ok":
+                self.failed += 1
+                continue
+            m = json.loads(metrics)
+            f, g = m.get("objectives"), m.get("constraints", [])
+            if f is not None and all(v <= FEASIBILITY_TOL for v in g):
+                new.append(f)
+        if self.n0 is None:
+            self.n0 = self.count
+        if new:
+            F = onp.concatenate([self.front, onp.asarray(new, float)])
+            sign = onp.array([1.0 if s == "max" else -1.0 for s in self.senses])
+            worst = onp.min(F * sign, axis=0) * sign
+            self.worst = worst if self.worst is None else onp.where(
+                sign > 0, onp.minimum(self.worst, worst), onp.maximum(self.worst, worst))
+            self.front = F[non_dominated(F, self.senses)]
+
+    def line(self) -> str:
+        el = time.time() - self.t0
+        fresh = self.count - (self.n0 or 0)
+        eta = ""
+        if fresh > 0 and el > 0:
+            left = max(0, self.total - self.count) * el / fresh
+            if self.deadline is not None:
+                left = min(left, max(0.0, self.deadline - time.time()))
+            eta = f", ETA <= {_duration(left)}"
+        best = ""
+        if len(self.front):
+            parts = []
+            for k, o in enumerate(self.goal.objectives):
+                col = self.front[:, k]
+                v = col.max() if o.sense == "max" else col.min()
+                parts.append(f"{o.label()} {v:.4g}")
+            best = "; best " + ", ".join(parts)
+            if len(self.senses) == 2 and self.worst is not None:
+                hv = hypervolume(self.front, self.senses, self.worst)
+                best += f"; front {len(self.front)}, HV {hv:.4g}"
+        return (f"{self.count} evaluations ({self.failed} failed) of <= {self.total}"
+                f"{best}{eta}")
+
+    def report(self) -> None:
+        self.poll()
+        if self.emit is not None:
+            self.emit(self.line())
+
+
+def _duration(s: float) -> str:
+    s = int(round(s))
+    h, rem = divmod(s, 3600)
+    m, sec = divmod(rem, 60)
+    return f"{h}h{m:02d}m" if h else (f"{m}m{sec:02d}s" if m else f"{sec}s")
+
+
+class _Log:
+    """run.log writer that can echo to stderr."""
+
+    def __init__(self, path: Path, echo: bool):
+        self.path, self.echo = path, echo
+
+    def __call__(self, text: str) -> None:
+        stamp = time.strftime("%Y-%m-%d %H:%M:%S")
+        with self.path.open("a") as fh:
+            for line in text.splitlines() or [""]:
+                fh.write(f"{stamp}  {line}\n")
+        if self.echo:
+            print(text, file=sys.stderr, flush=True)
+
+
+# ---------------------------------------------------------------------------------------------
+# the run
+# ---------------------------------------------------------------------------------------------
+
+@dataclass
+class RunSummary:
+    """Outcome of one run (one material).
+
+    ``front`` holds the rows of front.csv as dicts; ``reproduce_max_dev`` the largest
+    relative deviation of re-evaluated front quantities from the stored ones.
+    """
+
+    run_dir: Path
+    goal: Goal
+    status: str
+    n_evaluations: int = 0
+    n_failed: int = 0
+    n_feasible: int = 0
+    hypervolume: float = float("nan")
+    reference: list[float] = field(default_factory=list)
+    front: list[dict] = field(default_factory=list)
+    candidates: list[Path] = field(default_factory=list)
+    reproduce_max_dev: float = 0.0
+    front_objectives: onp.ndarray | None = None
+
+
+def run_goal(goal: Goal, *, out: str | Path = "runs", workers: int | None = None,
+             progress: bool = True, interval_s: float = 2.0) -> RunSummary:
+    """Run one goal (one material) into ``out/<run_name>/``, resuming what is stored.
+
+    Parameters
+    ----------
+    goal : Goal
+    out : folder that holds run folders
+    workers : worker processes (default: the number of cores); 0 runs in this process
+    progress : print progress lines to stderr (always written to run.log)
+    interval_s : seconds between progress lines [s]
+    """
+    run_dir = Path(out) / goal.run_name
+    run_dir.mkdir(parents=True, exist_ok=True)
+    tty = progress and sys.stderr.isatty()
+    log = _Log(run_dir / "run.log", echo=progress)
+    base = check_goal(goal)
+    store_path = str(run_dir / STORE_NAME)
+    store = EvaluationStore(store_path)
+    store.ensure_meta({"goal_hash": goal_hash(goal), "seed": goal.seed})
+    problem = GoalProblem(goal)
+    store.set_meta("layout", {"variables": problem.paths,
+                              "objectives": [o.label() for o in goal.objectives],
+                              "senses": list(problem.senses),
+                              "constraints": problem.constraint_labels,
+                              "wavelength_nm": problem.wavelengths_nm.tolist()})
+    resolved = goal.to_dict()
+    (run_dir / "goal.resolved.yaml").write_text(
+        f"# resolved goal of run {goal.run_name} (source: {goal.source or 'inline'})\n"
+        + yaml.safe_dump(resolved, sort_keys=False))
+    n_search, cap = plan_searches(goal)
+    starts = sobol_starts(problem.lower, problem.upper, goal.search.starts, seed=goal.seed)
+    resumed = store.count()
+    log(f"run {goal.run_name}: {len(goal.variables)} variables, {len(goal.objectives)} "
+        f"objective(s), {problem.n_constraints} constraint rows, {len(problem.wavelengths_nm)} "
+        f"wavelengths; {goal.search.algorithm}, {goal.search.starts} starts, {n_search} "
+        f"searches of <= {cap} evaluations" + (f"; resuming ({resumed} stored)" if resumed
+                                                else ""))
+    if goal.search.algorithm == "DIRECT-L" and goal.search.starts > 1:
+        log("note: DIRECT-L is deterministic and ignores start points: every start repeats "
+            "the same search; use starts: 1")
+    if "error" in base:
+        log(f"note: the base design itself fails to evaluate: {base['error']}")
+    deadline = (time.time() + goal.budget.wall_time_s) if goal.budget.wall_time_s else None
+    task_goal = replace(goal, located=None)
+    stop_file = run_dir / STOP_NAME
+    stop_file.unlink(missing_ok=True)
+    tasks = [SearchTask(task_goal, store_path, k, starts[k], start_seed(goal.seed, k), cap,
+                        deadline, str(stop_file)) for k in range(goal.search.starts)]
+    n_workers = (os.cpu_count() or 1) if workers is None else int(workers)
+    if n_workers < 0:
+        raise InputError("--workers", f"got {workers}, allowed an integer >= 0")
+    prog = Progress(store_path, goal, n_search * cap, deadline,
+                    emit=(lambda s: print("\r" + s + " " * 8, end="", file=sys.stderr,
+                                          flush=True)) if tty else (log if progress else None))
+    prog.poll()
+    status = "complete"
+    executor = (SerialExecutor() if n_workers == 0
+                else ProcessExecutor(min(n_workers, len(tasks))))
+    outcomes: list[TaskOutcome] = []
+    try:
+        futures = [executor.submit(_run_task, t) for t in tasks]
+        last = time.time()
+        pending = set(futures)
+        while pending:
+            done, pending = wait(pending, timeout=interval_s, return_when=FIRST_EXCEPTION)
+            for f in done:
+                f.result()  # a bug in a worker propagates
+            if time.time() - last >= (interval_s if tty else 10 * interval_s) or not pending:
+                prog.report()
+                last = time.time()
+        outcomes = [f.result() for f in futures]
+    except KeyboardInterrupt:
+        status = "interrupted"
+        stop_file.touch()  # workers stop at their next fresh evaluation
+        log("\ninterrupted: the store keeps every finished evaluation; run the same command "
+            "to resume")
+    finally:
+        executor.close()
+        stop_file.unlink(missing_ok=True)
+    if tty:
+        print(file=sys.stderr)
+    if status == "complete" and any(o.status == "deadline" for o in outcomes):
+        status = "stopped: wall-time budget spent (run the same command to continue)"
+    for o in outcomes:
+        if o.status == "error":
+            log(f"start {o.index}: {o.message}")
+    store.set_meta("status", status)
+    summary = write_report(run_dir, goal, store=store, status=status, log=log)
+    log(f"{status}: {summary.n_evaluations} evaluations ({summary.n_failed} failed, "
+        f"{summary.n_feasible} feasible); front of {len(summary.front)} points"
+        + (f", hypervolume {summary.hypervolume:.6g}" if len(goal.objectives) == 2 else "")
+        + f"; re-evaluated front reproduces the store to {summary.reproduce_max_dev:.2e}")
+    return summary
+
+
+def run_goal_file(path: str | Path, *, out: str | Path | None = None, workers: int | None = None,
+                  progress: bool = True) -> list[RunSummary]:
+    """Run every material of a goal file; with several, also write ``<name>-compare.png``.
+
+    ``out`` defaults to ``runs/`` at the repository root (the parent of the package).
+    """
+    goals = load_goal(path)
+    root = Path(out) if out is not None else Path(__file__).resolve().parent.parent / "runs"
+    summaries = [run_goal(g, out=root, workers=workers, progress=progress) for g in goals]
+    if len(summaries) > 1:
+        from chiropt.report.front import plot_comparison
+
+        plot_comparison(summaries, root / f"{goals[0].name}-compare.png")
+    return summaries
+
+
+# ---------------------------------------------------------------------------------------------
+# report: everything regenerated from the store
+# ---------------------------------------------------------------------------------------------
+
+def _spec_metric(problem: GoalProblem, quantities: dict, name: str, spec) -> float:
+    return float(problem._spec_value({k: onp.asarray(v) for k, v in quantities.items()},
+                                     name, spec))
+
+
+def _columns(problem: GoalProblem) -> list[tuple[str, str, Any]]:
+    """Extra metric columns (label, metric, spec): objective metrics, then u, g, docp."""
+    goal = problem.goal
+    cols: list[tuple[str, str, Any]] = []
+    seen = set()
+    for o in goal.objectives:
+        if o.weighted:
+            for m, _, _ in o.terms:
+                lab = f"{m}@{o.spec.label()}"
+                if lab not in seen:
+                    cols.append((lab, m, o.spec))
+                    seen.add(lab)
+    spec = goal.objectives[0].spec
+    names = ("u", "g", "docp+1", "docp-1") if goal.design.region is not None else ("R", "T", "A")
+    for m in names:
+        lab = f"{m}@{spec.label()}"
+        if lab not in seen and lab not in {o.label() for o in goal.objectives}:
+            cols.append((lab, m, spec))
+            seen.add(lab)
+    return cols
+
+
+def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | None = None,
+                 status: str = "", log=None) -> RunSummary:
+    """Regenerate front.csv, candidates/, plots from the store of a run folder."""
+    from chiropt.export import write_candidate, write_front_csv
+    from chiropt.report.front import plot_convergence, plot_front
+
+    run_dir = Path(run_dir)
+    store = store or EvaluationStore(run_dir / STORE_NAME)
+    log = log or (lambda s: None)
+    problem = GoalProblem(goal)
+    recs = store.records()
+    M = problem.n_objectives
+    senses = problem.senses
+    n = len(recs)
+    ok = [r for r in recs if r.evaluation.status == "ok" and "objectives" in r.evaluation.metrics]
+    summary = RunSummary(run_dir=run_dir, goal=goal, status=status, n_evaluations=n,
+                         n_failed=sum(r.evaluation.status != "ok" for r in recs))
+    # unique designs, first occurrence
+    seen: dict[bytes, Any] = {}
+    for r in ok:
+        seen.setdefault(r.x.tobytes(), r)
+    uniq = list(seen.values())
+    F = onp.array([r.evaluation.metrics["objectives"] for r in uniq], float).reshape(-1, M)
+    G = [onp.asarray(r.evaluation.metrics.get("constraints", []), float) for r in uniq]
+    feas = onp.array([bool(onp.all(g <= FEASIBILITY_TOL)) for g in G], bool)
+    summary.n_feasible = int(feas.sum())
+    pool = feas if feas.any() else onp.ones(len(uniq), bool)
+    sign = onp.array([1.0 if s == "max" else -1.0 for s in senses])
+    if len(uniq) == 0:
+        chosen: list[int] = []
+    elif M == 2:
+        mask = non_dominated(onp.where(pool[:, None], F, onp.nan), senses)
+        chosen = list(onp.flatnonzero(mask))
+        chosen.sort(key=lambda i: -sign[0] * F[i, 0])
+    else:  # best design of each search
+        best: dict[tuple, int] = {}
+        for i, r in enumerate(uniq):
+            if not pool[i]:
+                continue
+            key = (r.stage, r.start)
+            if key not in best or sign[0] * F[i, 0] > sign[0] * F[best[key], 0]:
+                best[key] = i
+        chosen = sorted(set(best.values()), key=lambda i: -sign[0] * F[i, 0])
+    ref = []
+    if feas.any():
+        ref = list(onp.min(F[feas] * sign, axis=0) * sign)
+        if M == 2:
+            summary.hypervolume = hypervolume(F[chosen], senses, ref) if chosen else 0.0
+        summary.reference = [float(v) for v in ref]
+    # table
+    extra = _columns(problem)
+    olabels = [o.label() for o in goal.objectives]
+    columns = (["index"] + problem.paths + olabels + [c[0] for c in extra]
+               + ["feasible", "max_violation", "stage", "search", "seq"])
+    rows, front_rows = [], []
+    max_dev = 0.0
+    for idx, i in enumerate(chosen):
+        r = uniq[i]
+        q = r.evaluation.metrics["quantities"]
+        vals = [_spec_metric(problem, q, m, spec) for _, m, spec in extra]
+        viol = float(max(0.0, onp.max(G[i]))) if G[i].size else 0.0
+        row = [idx, *[float(v) for v in r.x], *[float(v) for v in F[i]], *vals,
+               bool(feas[i]), viol, r.stage, r.start, r.seq]
+        rows.append(row)
+        front_rows.append(dict(zip(columns, row, strict=True)))
+        # fresh re-evaluation from a newly built design
+        fresh = compute_quantities(problem.design_at(r.x))
+        for k, v in q.items():
+            a = onp.real(onp.asarray(fresh[k], float))
+            b = onp.asarray(v, float)
+            dev = float(onp.max(onp.abs(a - b) / onp.maximum(1.0, onp.abs(b))))
+            max_dev = max(max_dev, dev)
+    summary.reproduce_max_dev = max_dev
+    if max_dev > REPRODUCE_TOL:
+        log(f"WARNING: re-evaluated front quantities differ from the store by {max_dev:.3e} "
+            f"(> {REPRODUCE_TOL:g})")
+    header = [f"front of run {goal.run_name}: {len(chosen)} designs "
+              + ("(non-dominated, feasible)" if M == 2 else "(best of each search, best first)")
+              + ("" if feas.any() else " -- NO FEASIBLE DESIGN: rows are the least bad, "
+                 "feasible = false"),
+              f"evaluations: {n} ({summary.n_failed} failed, {summary.n_feasible} feasible "
+              f"unique designs); status: {status or 'report regenerated'}",
+              "objectives: " + ", ".join(f"{'maximize' if s == 'max' else 'minimize'} {lab}"
+                                         for s, lab in zip(senses, olabels, strict=True))]
+    if M == 2 and ref:
+        header.append(f"hypervolume = {summary.hypervolume!r} (reference point: worst feasible "
+                      f"value of each objective in the run: {[float(v) for v in ref]})")
+    header.append("variables in user units (nm, deg); metric columns are averages over each "
+                  "spec's wavelengths; max_violation in scaled constraint units")
+    write_front_csv(run_dir / "front.csv", columns, rows, header=header)
+    summary.front = front_rows
+    summary.front_objectives = F[chosen] if chosen else onp.zeros((0, M))
+    # candidates: spread along the front
+    cand_dir = run_dir / "candidates"
+    cand_dir.mkdir(exist_ok=True)
+    for old in cand_dir.glob("c*.yaml"):
+        old.unlink()
+    k = goal.search.front_points if M == 2 else 10
+    picks = sorted({int(round(t)) for t in onp.linspace(0, len(chosen) - 1, min(k, len(chosen)))}
+                   ) if chosen else []
+    for j in picks:
+        i = chosen[j]
+        r = uniq[i]
+        design = problem.design_at(r.x)
+        data = design.to_dict()
+        data["name"] = f"{goal.run_name}-c{j:03d}"
+        lines = [f"candidate {j} of run {goal.run_name} (front.csv index {j}); "
+                 f"{'feasible' if feas[i] else 'INFEASIBLE'}"]
+        lines += [f"{lab} = {F[i, m]!r}" for m, lab in enumerate(olabels)]
+        lines += [f"{p} = {float(v)!r}" for p, v in zip(problem.paths, r.x, strict=True)
+                  if p != WAVELENGTH_PATH]
+        lines.append("wavelengths are the ones the goal reads; `chiropt evaluate` on this "
+                     "file reproduces the stored values")
+        summary.candidates.append(write_candidate(cand_dir / f"c{j:03d}.yaml", data,
+                                                  comments=lines))
+    # plots
+    try:
+        plot_front(run_dir / "front.png", problem, uniq, F, feas, chosen, picks)
+        plot_convergence(run_dir / "convergence.png", problem, recs, reference=ref)
+    except Exception as exc:  # a plot must never lose a run's results
+        log(f"WARNING: plotting failed: {type(exc).__name__}: {exc}")
+    return summary
