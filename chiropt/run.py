@@ -49,6 +49,8 @@ import yaml
 from chiropt.errors import InputError
 from chiropt.goals.objectives import DeadlineReached, GoalProblem, check_goal
 from chiropt.goals.schema import WAVELENGTH_PATH, Goal, load_goal
+from chiropt.model import LMAX_CAP, validity
+from chiropt.response import VALIDITY_TOLERANCE
 from chiropt.search.driver import minimize
 from chiropt.search.executor import ProcessExecutor, SerialExecutor
 from chiropt.search.fronts import Scalarized, epsilon_constraint, weighted_sum
@@ -409,6 +411,14 @@ def _columns(problem: GoalProblem) -> list[tuple[str, str, Any]]:
     return cols
 
 
+def _higher_lmax_problem(goal: Goal):
+    """The goal's problem with one more multipole order (None for ``lmax: auto``)."""
+    lmax = goal.design.lmax
+    if lmax == "auto" or lmax >= LMAX_CAP:
+        return None
+    return GoalProblem(replace(goal, design=replace(goal.design, lmax=lmax + 1)))
+
+
 def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | None = None,
                  status: str = "", log=None) -> RunSummary:
     """Regenerate front.csv, candidates/, plots from the store of a run folder."""
@@ -461,8 +471,11 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
     # table
     extra = _columns(problem)
     olabels = [o.label() for o in goal.objectives]
+    hi_problem, hi_labels = _higher_lmax_problem(goal), [f"{lab} (lmax+1)" for lab in olabels]
     columns = (["index"] + problem.paths + olabels + [c[0] for c in extra]
-               + ["feasible", "max_violation", "stage", "search", "seq"])
+               + ["feasible", "max_violation", "stage", "search", "seq"]
+               + (hi_labels if hi_problem is not None else []) + ["lmax", "lmax_change"])
+    worst_change = 0.0
     rows, front_rows = [], []
     max_dev = 0.0
     for idx, i in enumerate(chosen):
@@ -472,6 +485,12 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         viol = float(max(0.0, onp.max(G[i]))) if G[i].size else 0.0
         row = [idx, *[float(v) for v in r.x], *[float(v) for v in F[i]], *vals,
                bool(feas[i]), viol, r.stage, r.start, r.seq]
+        # validity: the same design with one more multipole order (both values kept)
+        if hi_problem is not None:
+            row += [float(v) for v in hi_problem.evaluate(r.x, False).f]
+        check = validity(problem.design_at(r.x))
+        worst_change = max(worst_change, check["worst"])
+        row += [check["lmax"], check["worst"]]
         rows.append(row)
         front_rows.append(dict(zip(columns, row, strict=True)))
         # fresh re-evaluation from a newly built design
@@ -482,6 +501,10 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
             dev = float(onp.max(onp.abs(a - b) / onp.maximum(1.0, onp.abs(b))))
             max_dev = max(max_dev, dev)
     summary.reproduce_max_dev = max_dev
+    if worst_change > VALIDITY_TOLERANCE:
+        log(f"WARNING: one more multipole order changes a front design's reported quantities "
+            f"by up to {worst_change:.3g} (> {VALIDITY_TOLERANCE:g}); consider model: "
+            "{lmax: auto} (columns 'lmax_change' and '(lmax+1)' of front.csv)")
     if max_dev > REPRODUCE_TOL:
         log(f"WARNING: re-evaluated front quantities differ from the store by {max_dev:.3e} "
             f"(> {REPRODUCE_TOL:g})")
@@ -494,8 +517,9 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
               "objectives: " + ", ".join(f"{'maximize' if s == 'max' else 'minimize'} {lab}"
                                          for s, lab in zip(senses, olabels, strict=True))]
     if M == 2 and ref:
-        header.append(f"hypervolume = {summary.hypervolume!r} (reference point: worst feasible "
-                      f"value of each objective in the run: {[float(v) for v in ref]})")
+        header.append(f"hypervolume = {float(summary.hypervolume)!r} (reference point: worst "
+                      f"feasible value of each objective in the run: "
+                      f"{[float(v) for v in ref]})")
     header.append("variables in user units (nm, deg); metric columns are averages over each "
                   "spec's wavelengths; max_violation in scaled constraint units")
     write_front_csv(run_dir / "front.csv", columns, rows, header=header)
@@ -517,7 +541,7 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         data["name"] = f"{goal.run_name}-c{j:03d}"
         lines = [f"candidate {j} of run {goal.run_name} (front.csv index {j}); "
                  f"{'feasible' if feas[i] else 'INFEASIBLE'}"]
-        lines += [f"{lab} = {F[i, m]!r}" for m, lab in enumerate(olabels)]
+        lines += [f"{lab} = {float(F[i, m])!r}" for m, lab in enumerate(olabels)]
         lines += [f"{p} = {float(v)!r}" for p, v in zip(problem.paths, r.x, strict=True)
                   if p != WAVELENGTH_PATH]
         lines.append("wavelengths are the ones the goal reads; `chiropt evaluate` on this "
