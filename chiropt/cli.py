@@ -105,6 +105,20 @@ def _cmd_inspect(args) -> int:
     return EXIT_OK
 
 
+def _cmd_export(args) -> int:
+    from chiropt.design import load_design
+    from chiropt.export.layout import write_fullwave_setup, write_gds
+
+    design = load_design(args.design)
+    if not (args.gds or args.setup):
+        raise InputError("export", "give --gds FILE.gds and/or --setup FILE.json")
+    if args.gds:
+        print(f"layout: {write_gds(design, args.gds, cells=args.cells)}")
+    if args.setup:
+        print(f"full-wave set-up: {write_fullwave_setup(design, args.setup)}")
+    return EXIT_OK
+
+
 def _cmd_materials(args) -> int:
     from chiropt.materials import list_short_names
 
@@ -177,6 +191,16 @@ def build_parser() -> argparse.ArgumentParser:
     ins.add_argument("--grid", type=int, default=64, metavar="N",
                      help="grid points per lattice vector of the maps (default 64)")
     ins.set_defaults(func=_cmd_inspect)
+    ex = sub.add_parser("export", help="write a design (e.g. a run's candidate) as a GDSII "
+                                       "layout and/or a full-wave set-up file")
+    ex.add_argument("design", help="design file (YAML), e.g. runs/NAME/candidates/c000.yaml")
+    ex.add_argument("--gds", metavar="FILE.gds", help="GDSII layout of the array")
+    ex.add_argument("--cells", type=int, default=10, metavar="N",
+                    help="unit cells along each lattice vector in the layout (default 10)")
+    ex.add_argument("--setup", metavar="FILE.json",
+                    help="geometry, n and k at the design wavelengths, stack and incident "
+                         "Jones vectors for a full-wave solver")
+    ex.set_defaults(func=_cmd_export)
     ma = sub.add_parser("materials", help="list the short material names and their sources")
     ma.set_defaults(func=_cmd_materials)
     ru = sub.add_parser("run", help="optimize a goal file into a run folder (resumes)")
