@@ -133,7 +133,7 @@ def _spectral(k, k_par, lattice, rho, z, E, mn, pmax):
         qpow.append(qpow[-1] * qq)
     basis = np.stack([np.stack([f * qp[:, None, :] for qp in qpow], axis=-1) for f in fn],
                      axis=-2)                                          # (W, P, G, n, j)
-    ang = [[1.0 + 0 * qq], [1.0 + 0 * qq]]                             # (q_x +- i q_y)^a
+    ang = [[1.0 + 0j * qq], [1.0 + 0j * qq]]                           # (q_x +- i q_y)^a
     for s, lst in ((1, ang[0]), (-1, ang[1])):
         for _ in range(pmax):
             lst.append(lst[-1] * (q[..., 0] + 1j * s * q[..., 1]))

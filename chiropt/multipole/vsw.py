@@ -135,7 +135,10 @@ def spherical_harmonics(u, lmax: int):
             out[(l, m)] = c * (-1) ** m * pw_p[m] * q
             if m > 0:
                 out[(l, -m)] = c * pw_m[m] * q
-    return np.stack([out[(l, m)] for l in range(lmax + 1) for m in range(-l, l + 1)], axis=-1)
+    # + 0j: every entry complex, so the reverse pass never casts a complex cotangent
+    # into a real slot (autograd's add takes the real part where it should)
+    return np.stack([out[(l, m)] + 0j for l in range(lmax + 1) for m in range(-l, l + 1)],
+                    axis=-1)
 
 
 def _cpm(l, m, sign):
