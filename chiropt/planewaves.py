@@ -53,21 +53,30 @@ def order_basis(q, kz, k, azimuth):
     """
     qq = np.sum(q ** 2, axis=-1)
     nonzero = (qq > 0)[..., None]
-    safe = np.sqrt(np.where(nonzero[..., 0], qq, 1.0))[..., None]
+    safe = np.expand_dims(np.sqrt(np.where(nonzero[..., 0], qq, 1.0)), -1)
     # np.where operands broadcast to full shape: autograd's where-VJP does not reduce
     # broadcast axes
     default = np.ones(np.shape(q)) * np.array([np.cos(azimuth), np.sin(azimuth)])
     qhat = np.where(nonzero * np.ones(np.shape(q), bool), q / safe, default)
-    s = np.matmul(qhat, np.array([[0.0, 1.0, 0.0], [-1.0, 0.0, 0.0]])) + 0j  # z x q_hat
-    k = (k + 0j * kz)[..., None]
-    qk = np.matmul(q, np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0]])) / k
-    zk = (kz[..., None] / k) * np.array([0.0, 0.0, 1.0])
+    s = np.matmul(qhat, _S_OF_QHAT) + 0j  # z x q_hat
+    k = np.expand_dims(k + 0j * kz, -1)
+    # written out instead of cross products (fewer array operations):
+    # p± = s x k_hat± = (±(kz/k) q_hat, -(q_hat . q)/k)
+    qk = np.matmul(q, _XY_TO_3D) / k
+    c = np.expand_dims(kz, -1) / k
+    zk = c * _Z_UNIT
     k_up = qk + zk
     k_down = qk - zk
-    p_up = cross(s, k_up)
-    p_down = cross(s, k_down)
+    pxy = np.matmul(qhat, _XY_TO_3D) * c  # ((kz/k) q_hat, 0)
+    pz = -np.expand_dims(np.sum(qhat * q, axis=-1), -1) / k * _Z_UNIT
+    p_up = pxy + pz
+    p_down = pz - pxy
     return s, p_up, p_down, k_up, k_down
 
+
+_S_OF_QHAT = np.array([[0.0, 1.0, 0.0], [-1.0, 0.0, 0.0]])
+_XY_TO_3D = np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0]])
+_Z_UNIT = np.array([0.0, 0.0, 1.0])
 
 _LEVI_CIVITA = np.zeros((3, 3, 3))
 for _i, _j, _k in ((0, 1, 2), (1, 2, 0), (2, 0, 1)):

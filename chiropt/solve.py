@@ -109,10 +109,11 @@ class Solution:
         return _vectors(self.incident_sp[:, :, None, :], o.s[:, :1], o.p_down[:, :1])[:, :, 0]
 
 
-def make_orders(structure: Structure, g_max: float) -> OrderSet:
-    """Orders with |G| <= g_max [1/m] and their host plane-wave data."""
+def make_orders(structure: Structure, g_max: float, k_par=None) -> OrderSet:
+    """Orders with |G| <= g_max [1/m] and their host plane-wave data (``k_par``: the
+    structure's Bloch wavevector (W, 2) [1/m], if already computed)."""
     mn = order_indices(structure.lattice, g_max)
-    q = order_wavevectors(structure.lattice, structure.k_par, mn)
+    q = order_wavevectors(structure.lattice, structure.k_par if k_par is None else k_par, mn)
     qq = q[..., 0] ** 2 + q[..., 1] ** 2
     kh = structure.k[:, None]
     kz = kz_branch(kh, qq)
@@ -127,7 +128,7 @@ def make_orders(structure: Structure, g_max: float) -> OrderSet:
 MAX_ORDERS = 6000
 
 
-def orders_radius(structure: Structure) -> float:
+def orders_radius(structure: Structure, k_par=None) -> float:
     """|G| cut [1/m] covering every propagating order and, with a stack, the evanescent
     orders the reflected interaction needs to ``structure.tolerance``.
 
@@ -143,7 +144,7 @@ def orders_radius(structure: Structure) -> float:
         if getval(structure.eps_layers).size:
             kmax = max(kmax, float(np.max(np.real(np.sqrt(getval(structure.eps_layers)))) *
                                    k0.max()))
-    kpar = float(np.max(np.hypot(*getval(structure.k_par).T)))
+    kpar = float(np.max(np.hypot(*getval(structure.k_par if k_par is None else k_par).T)))
     g = kmax + kpar
     if structure.has_substrate:
         h_min = float(np.min(getval(structure.centres)[:, 2]) - getval(structure.z_top))
@@ -162,24 +163,35 @@ def orders_radius(structure: Structure) -> float:
 
 
 def _sp_vectors(orders: OrderSet):
-    """6-vectors sigma± = (s, -p±) and pi± = (p±, s), each (W, G, 6).
+    """6-vectors of the s and p channels, upward and downward, each (W, G, 2, 6).
 
-    A plane wave with components (a_s, a_p) on (s, p±) has the 6-field
-    (E, Z H) = a_s sigma± + a_p pi± (since k± x s = -p±, k± x p± = s), and a dipole
-    sheet (P, M) radiates into it a_s = pref sigma±.x, a_p = pref pi±.x with
-    pref = i k^2/(2 A kz) (FORMULAS.md §3: E_g = pref [(I - k k) P - k x M]).
+    Channel axis [sigma, pi]: sigma± = (s, -p±), pi± = (p±, s). A plane wave with
+    components (a_s, a_p) on (s, p±) has the 6-field (E, Z H) = a_s sigma± + a_p pi±
+    (since k± x s = -p±, k± x p± = s), and a dipole sheet (P, M) radiates into it
+    a_s = pref sigma±.x, a_p = pref pi±.x with pref = i k^2/(2 A kz)
+    (FORMULAS.md §3: E_g = pref [(I - k k) P - k x M]).
     """
-    out = {}
-    for name, p in (("up", orders.p_up), ("down", orders.p_down)):
-        out["sigma_" + name] = np.concatenate([orders.s, -p], axis=-1)
-        out["pi_" + name] = np.concatenate([p, orders.s], axis=-1)
-    return out
+    s, pu, pd = orders.s, orders.p_up, orders.p_down
+    W, G = np.shape(getval(s))[:2]
+    up = np.reshape(np.concatenate([s, -pu, pu, s], axis=-1), (W, G, 2, 6))
+    down = np.reshape(np.concatenate([s, -pd, pd, s], axis=-1), (W, G, 2, 6))
+    return up, down
 
 
-def _flatten_particles(vec6, phase):
-    """(W, G, 6) x (W, G, N) -> (W, G, 6N), index j*6 + a."""
-    W, G = phase.shape[:2]
-    return (phase[..., :, None] * vec6[..., None, :]).reshape(W, G, -1)
+def _amplitudes(vec, phase, xr):
+    """Emitted (s, p) amplitudes of every order: sum_j phase_gj (vec_g . x_j).
+
+    vec (W, G, 2, 6), phase (W, G, N) (prefactor included), xr (W, 6, 2 N) the moments
+    [w, a, (t, j)] -> (W, 2, G, 2) [helicity, order, channel].
+    """
+    W, G, N = np.shape(getval(phase))
+    y = np.matmul(np.reshape(vec, (W, 2 * G, 6)), xr)  # (W, 2G, 2N): [(g, c), (t, j)]
+    if N == 1:
+        y = np.reshape(y, (W, G, 2, 2)) * np.reshape(phase, (W, G, 1, 1))
+    else:
+        y = np.sum(np.reshape(y, (W, G, 2, 2, N)) * np.reshape(phase, (W, G, 1, 1, N)),
+                   axis=-1)
+    return np.transpose(y, (0, 3, 1, 2))
 
 
 def _stack(structure: Structure, orders: OrderSet, side: str):
@@ -232,7 +244,8 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
     W = len(getval(st.k0))
     N = len(getval(st.radii))
     k = st.k
-    orders = make_orders(st, max(orders_radius(st), float(g_max or 0.0)))
+    k_par = st.k_par  # (a traced property: computed once)
+    orders = make_orders(st, max(orders_radius(st, k_par), float(g_max or 0.0)), k_par)
     G = len(orders.mn)
     centres = st.centres
     h = centres[:, 2] - st.z_top
@@ -240,7 +253,7 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
 
     # -- lattice interaction (Ewald) ------------------------------------------------
     d = (centres[:, None, :] - centres[None, :, :]).reshape(N * N, 3)
-    S, c = lattice_green_dyadics(k, st.k_par, st.lattice, d, tol=st.tolerance)
+    S, c = lattice_green_dyadics(k, k_par, st.lattice, d, tol=st.tolerance)
     S = S.reshape(W, N, N, 3, 3)
     Cm = cross_matrix(c.reshape(W, N, N, 3))
     top = np.concatenate([S, 1j * Cm], axis=-1)
@@ -249,21 +262,25 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
     Wflat = np.transpose(Wmat, (0, 1, 3, 2, 4)).reshape(W, 6 * N, 6 * N)
 
     # -- plane-wave channels of every order ------------------------------------------
-    vec = _sp_vectors(orders)
+    vec_up, vec_down = _sp_vectors(orders)
     pref = 1j * k[:, None] ** 2 / (2.0 * st.lattice.area * orders.kz)  # (W, G)
-    qr = np.einsum("wgc,nc->wgn", orders.q, rho)
-    kzh = orders.kz[..., None] * h[None, None, :]
-    ph_up = pref[..., None] * np.exp(-1j * qr - 1j * kzh)    # emission, upward
-    ph_down = pref[..., None] * np.exp(-1j * qr + 1j * kzh)  # emission, downward
-    recv_up = np.exp(1j * qr + 1j * kzh)                      # receive an upward wave
-    emit = {ch + "_" + dr: _flatten_particles(vec[ch + "_" + dr], ph)
-            for ch in ("sigma", "pi") for dr, ph in (("up", ph_up), ("down", ph_down))}
+    qr = np.matmul(orders.q, np.transpose(rho))                # (W, G, N)
+    kzh = np.reshape(orders.kz, (W, G, 1)) * h                # (W, G, N)
+    pref3 = np.reshape(pref, (W, G, 1))
+    ph_up = pref3 * np.exp(-1j * qr - 1j * kzh)    # emission, upward
+    ph_down = pref3 * np.exp(-1j * qr + 1j * kzh)  # emission, downward
 
     if st.has_substrate:
         coef = _stack(st, orders, "host")
-        for ch, r in (("sigma", coef.r_s), ("pi", coef.r_p)):
-            recv = _flatten_particles(vec[ch + "_up"], recv_up * r[..., None])  # (W, G, 6N)
-            Wflat = Wflat + np.matmul(np.transpose(recv, (0, 2, 1)), emit[ch + "_down"])
+        # stack-reflected interaction: both channels of every order in one matrix product
+        # (W, 6N, 2G) @ (W, 2G, 6N), rows (i, a) receive, columns (j, b) emit
+        recv_up = np.exp(1j * qr + 1j * kzh)  # receive an upward wave
+        r = np.stack([coef.r_s, coef.r_p], axis=-1)  # (W, G, 2)
+        recv = (np.reshape(recv_up, (W, G, 1, N, 1)) * np.reshape(r, (W, G, 2, 1, 1))
+                * np.reshape(vec_up, (W, G, 2, 1, 6)))
+        emit_down = np.reshape(ph_down, (W, G, 1, N, 1)) * np.reshape(vec_down, (W, G, 2, 1, 6))
+        Wflat = Wflat + np.matmul(np.transpose(np.reshape(recv, (W, 2 * G, 6 * N)), (0, 2, 1)),
+                                  np.reshape(emit_down, (W, 2 * G, 6 * N)))
 
     # -- background field: (0,0)-order components on (s, p) ------------------------------
     hel = np.array([[1j, 1.0], [-1j, 1.0]]) / np.sqrt(2.0)  # (helicity, [s, p]) of (p + i h s)
@@ -284,10 +301,10 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
     ph0 = np.exp(1j * np.einsum("wc,nc->wn", orders.q[:, 0], rho))  # (W, N)
     dn = (ph0 * np.exp(-1j * kz0[:, None] * h[None, :]))[:, None, :, None]
     upp = (ph0 * np.exp(1j * kz0[:, None] * h[None, :]))[:, None, :, None]
-    v0 = {key: v[:, 0][:, None, None, :] for key, v in vec.items()}  # (W, 1, 1, 6)
-    b = ((D0[..., 0, None, None] * v0["sigma_down"] + D0[..., 1, None, None] * v0["pi_down"])
-         * dn + (U0[..., 0, None, None] * v0["sigma_up"] + U0[..., 1, None, None] * v0["pi_up"])
-         * upp)  # (W, 2, N, 6)
+    v0_up, v0_down = _sp_vectors(_slice_order0(orders))  # (W, 1, 2, 6)
+    b = (np.reshape(np.matmul(D0, np.reshape(v0_down, (W, 2, 6))), (W, 2, 1, 6)) * dn
+         + np.reshape(np.matmul(U0, np.reshape(v0_up, (W, 2, 6))), (W, 2, 1, 6)) * upp)
+    # (W, 2, N, 6)
 
     # -- solve (I - alpha W) x = alpha b ------------------------------------------------
     alpha = np.concatenate([np.repeat(st.alpha_e[..., None], 3, axis=-1),
@@ -301,11 +318,9 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
     loc = moments / alpha.reshape(W, 1, N, 6)
 
     # -- outgoing orders, components on (s, p) ------------------------------------------
-    def comps(direction):
-        return np.stack([np.einsum("wgk,wtk->wtg", emit["sigma_" + direction], xt),
-                         np.einsum("wgk,wtk->wtg", emit["pi_" + direction], xt)], axis=-1)
-
-    up_c, down_c = comps("up"), comps("down")  # (W, 2, G, 2)
+    xr = np.reshape(np.transpose(np.reshape(x, (W, N, 6, 2)), (0, 2, 3, 1)), (W, 6, 2 * N))
+    up_c = _amplitudes(vec_up, ph_up, xr)  # (W, 2, G, 2)
+    down_c = _amplitudes(vec_down, ph_down, xr)
     first = (np.arange(G) == 0)[None, None, :, None]
     if st.has_substrate:
         rr = np.stack([coef.r_s, coef.r_p], axis=-1)[:, None]
@@ -317,8 +332,9 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
         exit_c = down_c + first * X0[:, :, None, :]
         eps_exit = st.n_host ** 2 * np.ones_like(st.k0)
     # orders that can propagate in some medium (sorted by |G|, so a leading block)
-    k_prop = orders_radius_far(st)
-    n_far = int(np.sum(np.linalg.norm(_plain_G(orders, st), axis=-1) <= k_prop))
+    k_prop = orders_radius_far(st, k_par)
+    n_far = int(np.sum(np.linalg.norm(getval(orders.q)[0] - getval(k_par)[0][None, :], axis=-1)
+                       <= k_prop))
     rayleigh = np.min(np.abs(getval(orders.kz)) / getval(k)[:, None], axis=1)
     if st.has_substrate:
         k2v = np.sqrt(getval(st.eps_substrate))[:, None] * getval(st.k0)[:, None]
@@ -346,16 +362,11 @@ def _slice_order0(orders: OrderSet) -> OrderSet:
     return _slice_orders(orders, 1)
 
 
-def _plain_G(orders: OrderSet, st: Structure):
-    """|G| vectors of the orders (plain values), (G, 2) [1/m]."""
-    return getval(orders.q)[0] - getval(st.k_par)[0][None, :]
-
-
-def orders_radius_far(st: Structure) -> float:
+def orders_radius_far(st: Structure, k_par=None) -> float:
     """|G| cut [1/m] containing every order propagating in the host or the substrate."""
     k0 = getval(st.k0)
     kmax = k0.max() * float(getval(st.n_host))
     if st.has_substrate:
         kmax = max(kmax, float(np.max(np.real(np.sqrt(getval(st.eps_substrate))) * k0)))
-    kpar = float(np.max(np.hypot(*getval(st.k_par).T)))
+    kpar = float(np.max(np.hypot(*getval(st.k_par if k_par is None else k_par).T)))
     return (kmax + kpar) * 1.0000001

@@ -24,6 +24,8 @@ import math
 import autograd.numpy as np
 from autograd.tracer import getval
 
+from chiropt.particles._ratio_primitive import ratio_g_stacked
+
 
 def downward_start(n_hi: int, abs_z_max: float) -> int:
     """Order at which the downward recurrence of :func:`ratio_g` starts.
@@ -90,15 +92,10 @@ def ratio_g(z_sq, n_hi: int, n_start: int) -> list:
     (Wiley, 1983), eq. 4.89; Wiscombe, Appl. Opt. 19, 1505 (1980);
     Abramowitz & Stegun 10.1.19 (recurrence of spherical Bessel functions).
     """
-    g = -z_sq / (2.0 * n_start + 3.0)
-    out = [None] * (n_hi + 1)
-    if n_start <= n_hi:
-        out[n_start] = g
-    for n in range(n_start, 1, -1):
-        g = -z_sq / (2.0 * n + 1.0 + g)
-        if n - 1 <= n_hi:
-            out[n - 1] = g
-    return out[1:]
+    # one autograd primitive with a hand-written derivative (one reverse-pass node
+    # instead of two per recurrence step)
+    stacked = ratio_g_stacked(z_sq, n_hi, n_start)
+    return [stacked[n] for n in range(n_hi)]
 
 
 def _sin_cos(z):
