@@ -11,6 +11,7 @@ Must not import: search, store, report, cli.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 import autograd.numpy as np
@@ -71,7 +72,7 @@ class Structure:
     side: str
     tolerance: float
 
-    @property
+    @cached_property
     def k(self):
         """Host wavenumber n_h k0 [1/m], shape (W,)."""
         return self.n_host * self.k0
@@ -87,7 +88,7 @@ class Structure:
             return np.sqrt(self.eps_substrate)
         return self.n_host * np.ones_like(self.k0)
 
-    @property
+    @cached_property
     def k_par(self):
         """Bloch (in-plane incident) wavevector [1/m], shape (W, 2)."""
         kin = np.real(self.n_incidence) * self.k0 * np.sin(self.polar)
