@@ -214,6 +214,34 @@ def _vectors(comp, s, p):
     return np.einsum("wtgc,wgcd->wtgd", comp, np.stack([s, p], axis=-2))
 
 
+def background_components(st: Structure, orders: OrderSet, coef=None):
+    """(s, p) components of the (0,0)-order background waves, each (W, 2, 2) [V/m].
+
+    Returns (D0, U0, X0): the downward incident wave in the host at z_top (zero for
+    substrate-side illumination), the upward background wave in the host at z_top
+    (specular reflection, or the wave transmitted from the substrate), and the downward
+    background wave below the stack (transmitted, or specularly reflected in the
+    substrate; the incident wave itself without a stack). ``coef``: the stack seen from
+    the host for the orders (None without substrate). Incident helicity h has the
+    components (i h, 1)/sqrt(2) on (s, p) (PHYSICS.md §1, checked in test_conventions).
+    """
+    W = len(getval(st.k0))
+    hel = np.array([[1j, 1.0], [-1j, 1.0]]) / np.sqrt(2.0)  # (helicity, [s, p]) of (p + i h s)
+    kz0 = orders.kz[:, 0]
+    zeros = np.zeros((W, 2, 2), dtype=complex)
+    if st.side == "host":
+        D0 = hel[None] * np.exp(-1j * kz0 * st.z_top)[:, None, None]
+        if coef is None:
+            return D0, zeros, D0
+        U0 = D0 * np.stack([coef.r_s[:, 0], coef.r_p[:, 0]], axis=-1)[:, None]
+        X0 = D0 * np.stack([coef.t_s[:, 0], coef.t_p[:, 0]], axis=-1)[:, None]
+        return D0, U0, X0
+    coef_s = _stack(st, _slice_order0(orders), "substrate")
+    U0 = hel[None] * np.stack([coef_s.t_s[:, 0], coef_s.t_p[:, 0]], axis=-1)[:, None]
+    X0 = hel[None] * np.stack([coef_s.r_s[:, 0], coef_s.r_p[:, 0]], axis=-1)[:, None]
+    return zeros, U0, X0
+
+
 def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None) -> Solution:
     """Solve the coupled dipole equations for both incident helicities.
 
@@ -270,6 +298,7 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
     ph_up = pref3 * np.exp(-1j * qr - 1j * kzh)    # emission, upward
     ph_down = pref3 * np.exp(-1j * qr + 1j * kzh)  # emission, downward
 
+    coef = None
     if st.has_substrate:
         coef = _stack(st, orders, "host")
         # stack-reflected interaction: both channels of every order in one matrix product
@@ -283,21 +312,8 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
                                   np.reshape(emit_down, (W, 2 * G, 6 * N)))
 
     # -- background field: (0,0)-order components on (s, p) ------------------------------
-    hel = np.array([[1j, 1.0], [-1j, 1.0]]) / np.sqrt(2.0)  # (helicity, [s, p]) of (p + i h s)
+    D0, U0, X0 = background_components(st, orders, coef)
     kz0 = orders.kz[:, 0]
-    zeros = np.zeros((W, 2, 2), dtype=complex)
-    if st.side == "host":
-        D0 = hel[None] * np.exp(-1j * kz0 * st.z_top)[:, None, None]  # (W, 2, 2)
-        if st.has_substrate:
-            U0 = D0 * np.stack([coef.r_s[:, 0], coef.r_p[:, 0]], axis=-1)[:, None]
-            X0 = D0 * np.stack([coef.t_s[:, 0], coef.t_p[:, 0]], axis=-1)[:, None]
-        else:
-            U0, X0 = zeros, D0
-    else:
-        coef_s = _stack(st, _slice_order0(orders), "substrate")
-        U0 = hel[None] * np.stack([coef_s.t_s[:, 0], coef_s.t_p[:, 0]], axis=-1)[:, None]
-        X0 = hel[None] * np.stack([coef_s.r_s[:, 0], coef_s.r_p[:, 0]], axis=-1)[:, None]
-        D0 = zeros
     ph0 = np.exp(1j * np.einsum("wc,nc->wn", orders.q[:, 0], rho))  # (W, N)
     dn = (ph0 * np.exp(-1j * kz0[:, None] * h[None, :]))[:, None, :, None]
     upp = (ph0 * np.exp(1j * kz0[:, None] * h[None, :]))[:, None, :, None]
