@@ -7,10 +7,6 @@ Run by hand: ``python benchmarks/run.py [GOAL.yaml]``. Prints figures; asserts n
    ``GoalProblem.evaluate``) against one ``value_and_gradient`` per scalar row.
 2. The goal's first material run in this process (one core) into a temporary folder:
    evaluations per hour per core, store and report included.
-
-Without the near-field metrics wired into ``compute_quantities`` (``chiropt.metrics``), the
-quickstart's near-field goal cannot run; the benchmark then falls back to a far-field goal
-of the same geometry and says so.
 """
 
 from __future__ import annotations
@@ -25,38 +21,14 @@ import autograd.numpy as np
 import numpy as onp
 
 from chiropt.goals import GoalProblem, load_goal
-from chiropt.goals.schema import goal_from_dict
 from chiropt.run import run_goal
 from chiropt.sensitivity import value_and_gradient
 
 ROOT = Path(__file__).resolve().parent.parent
 
-FAR_FIELD_GOAL = {
-    "name": "bench-far",
-    "design": {"lattice": {"kind": "square", "period_nm": 420},
-               "particles": [{"radius_nm": 80, "material": "Si"}],
-               "substrate": {"material": "SiO2"},
-               "illumination": {"wavelength_nm": 700}},
-    "variables": {"particles[0].radius_nm": {"min": 50, "max": 110},
-                  "lattice.period_nm": {"min": 300, "max": 520}},
-    "objectives": [{"maximize": "A", "at_nm": 700}, {"minimize": "R", "at_nm": 700}],
-    "constraints": [{"metric": "T", "min": 0.2, "at_nm": 700},
-                    {"fabrication": "min_gap_nm", "value": 40}],
-    "search": {"starts": 2, "max_evals_per_start": 30, "front": {"points": 7}},
-}
-
-
 def _goal(path: str | None):
     path = path or str(ROOT / "configs" / "quickstart.yaml")
-    goal = load_goal(path)[0]
-    try:
-        GoalProblem(goal).evaluate(onp.array([v.lower + v.upper for v in goal.variables]) / 2,
-                                   False)
-        return goal, path
-    except ImportError:
-        print("near-field metrics not available in compute_quantities: using a far-field goal "
-              "of the same geometry")
-        return goal_from_dict(FAR_FIELD_GOAL)[0], "far-field fallback"
+    return load_goal(path)[0], path
 
 
 def _median(fn, repeats=5):
