@@ -277,6 +277,105 @@ def emission_vectors(u, lmax: int):
     return outgoing_vectors(u, lmax) * _i_power(lmax, -1)[:, None]
 
 
+@cache
+def _projection_tables(lmax: int):
+    """Constants of :func:`order_projections`: the maps from Y ((lmax+1)^2) to the
+    components X_- = (X_x - i X_y)/2, X_+ = (X_x + i X_y)/2 and X_z of X_lm, side by side
+    ((lmax+1)^2, 3K), and the z-parity (-1)^(l+m) of the K modes."""
+    C = _x_matrices(lmax)
+    cat = onp.concatenate([(C[0] - 1j * C[1]) / 2, (C[0] + 1j * C[1]) / 2, C[2]], axis=1)
+    _, ls, ms = mode_table(lmax)
+    parity = (-1.0) ** (ls[0::2] + ms[0::2])
+    cat.setflags(write=False)
+    return cat, parity
+
+
+def order_projections(k_up, s, p_up, lmax: int):
+    """Projections X_lm(k_hat) . s and X_lm(k_hat) . p of plane waves on their channels.
+
+    Parameters
+    ----------
+    k_up : array (..., 3) — upward unit wavevectors (q, kz)/k (complex for evanescent
+        waves) [-]
+    s, p_up : arrays (..., 3) — polarization vectors of chiropt.planewaves
+        (k x s = -p, k x p = s) [-]
+    lmax : int
+
+    Returns
+    -------
+    complex array (..., 2, K) — [X . s, X . p_up] over the K (l, m) modes [-]; the
+    downward direction (q, -kz)/k has ``P * down_parity(lmax)`` with its p_down.
+
+    Notes
+    -----
+    X . v = X_- v_+ + X_+ v_- + X_z v_z with v_+- = v_x +- i v_y, one evaluation of
+    Y_lm; every emission and reception vector of the order follows from these two
+    numbers per mode (:func:`channel_modes`).
+
+    References
+    ----------
+    Jackson (1999) eqs. 9.101-9.104 (X_lm); module docstring.
+    """
+    cat, _ = _projection_tables(lmax)
+    Y = spherical_harmonics(k_up, lmax)                              # (..., J)
+    sh = np.shape(Y)[:-1]
+    K = lmax * (lmax + 2)
+    X = np.reshape(np.matmul(np.reshape(Y, (-1, (lmax + 1) ** 2)), cat), sh + (3, K))
+    Xm, Xp, Xz = X[..., 0, :], X[..., 1, :], X[..., 2, :]
+
+    def dot(v):
+        vp = (v[..., 0] + 1j * v[..., 1])[..., None]
+        vm = (v[..., 0] - 1j * v[..., 1])[..., None]
+        return Xm * vp + Xp * vm + Xz * v[..., 2:3]
+
+    return np.stack([dot(s), dot(p_up)], axis=-2)
+
+
+def down_parity(lmax: int):
+    """Factors (2, K) taking :func:`order_projections` at (q, kz) to those at (q, -kz).
+
+    With Y_lm(u_x, u_y, -u_z) = (-1)^(l+m) Y_lm(u) (parity of P_l^m, DLMF 14.7.17; the
+    polynomial continuation keeps it), s unchanged and p_down = (-p_x, -p_y, p_z):
+    X.s -> -(-1)^(l+m) X.s and X.p -> (-1)^(l+m) X.p.
+    """
+    _, parity = _projection_tables(lmax)
+    return onp.stack([-parity, parity])
+
+
+def channel_modes(P, kind: str, lmax: int):
+    """Emission or reception vectors over the 2K modes from the projections P.
+
+    Parameters
+    ----------
+    P : array (..., 2, K) — [X . s, X . p] of one direction (:func:`order_projections`)
+    kind : 'emit' or 'receive'
+    lmax : int
+
+    Returns
+    -------
+    complex array (..., 2, 2K) over channels (s, p) and modes:
+    'emit' — (-i)^l W_u . (s, p), the (s, p) components of :func:`emission_vectors`;
+    'receive' — :func:`planewave_coefficients` of unit s and p waves.
+
+    Notes
+    -----
+    From k x s = -p, k x p = s: (k x X) . s = X . p and (k x X) . p = -X . s, so
+    W_M . (s, p) = (X.s, X.p), W_N . (s, p) = i (X.p, -X.s); V the same with
+    X -> -(-1)^m X_{l,-m}.
+    """
+    K = lmax * (lmax + 2)
+    if kind == "receive":
+        perm, sign = _neg_m_perm(lmax)
+        P = -(P[..., perm] * sign)
+        factor = 4 * np.pi * _i_power(lmax, +1)
+    else:
+        factor = _i_power(lmax, -1)
+    n = 1j * np.stack([P[..., 1, :], -P[..., 0, :]], axis=-2)
+    if kind == "receive":
+        n = -n
+    return np.reshape(np.stack([n, P], axis=-1), np.shape(n)[:-1] + (2 * K,)) * factor
+
+
 # ------------------------------------------------------------------ dipole map
 
 _EPS = onp.array([[1.0, -1j, 0.0], [0.0, 0.0, 1.0], [-1.0, -1j, 0.0]]) / onp.array(
