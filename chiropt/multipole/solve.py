@@ -45,6 +45,7 @@ from chiropt.solve import (
     OrderSet,
     RayleighAnomalyWarning,
     Solution,
+    background_components,
     make_orders,
     orders_radius,
     orders_radius_far,
@@ -203,6 +204,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     ph_up = pref3 * np.exp(-1j * qr - 1j * kzh)                        # emission, upward
     ph_dn = pref3 * np.exp(-1j * qr + 1j * kzh)                        # emission, downward
 
+    coef = None
     if st.has_substrate:
         coef = _stack(st, orders, "host")
         # stack-reflected interaction, both channels of every order in one product
@@ -218,21 +220,8 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
                                 np.reshape(em, (W, 2 * G, N * K2)))
 
     # -- background field: (0,0)-order components on (s, p) ---------------------------------
-    hel = np.array([[1j, 1.0], [-1j, 1.0]]) / np.sqrt(2.0)  # (helicity, [s, p]) of p + i h s
+    D0, U0, X0 = background_components(st, orders, coef)
     kz0 = orders.kz[:, 0]
-    zeros = np.zeros((W, 2, 2), dtype=complex)
-    if st.side == "host":
-        D0 = hel[None] * np.exp(-1j * kz0 * st.z_top)[:, None, None]
-        if st.has_substrate:
-            U0 = D0 * np.stack([coef.r_s[:, 0], coef.r_p[:, 0]], axis=-1)[:, None]
-            X0 = D0 * np.stack([coef.t_s[:, 0], coef.t_p[:, 0]], axis=-1)[:, None]
-        else:
-            U0, X0 = zeros, D0
-    else:
-        coef_s = _stack(st, _first_order(orders), "substrate")
-        U0 = hel[None] * np.stack([coef_s.t_s[:, 0], coef_s.t_p[:, 0]], axis=-1)[:, None]
-        X0 = hel[None] * np.stack([coef_s.r_s[:, 0], coef_s.r_p[:, 0]], axis=-1)[:, None]
-        D0 = zeros
     ph0 = np.exp(1j * np.einsum("wc,nc->wn", orders.q[:, 0], rho))   # (W, N)
     dn0 = (ph0 * np.exp(-1j * kz0[:, None] * h[None, :]))[:, None, :, None]
     up0 = (ph0 * np.exp(1j * kz0[:, None] * h[None, :]))[:, None, :, None]
