@@ -194,7 +194,9 @@ def _amplitudes(vec, phase, xr):
     return np.transpose(y, (0, 3, 1, 2))
 
 
-def _stack(structure: Structure, orders: OrderSet, side: str):
+def stack_for_orders(structure: Structure, orders: OrderSet, side: str):
+    """Stack coefficients (r_s, r_p, t_s, t_p), each (W, G), of the orders, seen from
+    ``side`` ('host' or 'substrate'); see :func:`chiropt.stack.stack_coefficients`."""
     eps_h = structure.n_host ** 2 * np.ones_like(structure.k0)
     return stack_coefficients(orders.qn, structure.k0, eps_h, structure.eps_layers,
                               structure.thicknesses, structure.eps_substrate, from_side=side)
@@ -236,7 +238,7 @@ def background_components(st: Structure, orders: OrderSet, coef=None):
         U0 = D0 * np.stack([coef.r_s[:, 0], coef.r_p[:, 0]], axis=-1)[:, None]
         X0 = D0 * np.stack([coef.t_s[:, 0], coef.t_p[:, 0]], axis=-1)[:, None]
         return D0, U0, X0
-    coef_s = _stack(st, _slice_order0(orders), "substrate")
+    coef_s = stack_for_orders(st, _slice_order0(orders), "substrate")
     U0 = hel[None] * np.stack([coef_s.t_s[:, 0], coef_s.t_p[:, 0]], axis=-1)[:, None]
     X0 = hel[None] * np.stack([coef_s.r_s[:, 0], coef_s.r_p[:, 0]], axis=-1)[:, None]
     return zeros, U0, X0
@@ -300,7 +302,7 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
 
     coef = None
     if st.has_substrate:
-        coef = _stack(st, orders, "host")
+        coef = stack_for_orders(st, orders, "host")
         # stack-reflected interaction: both channels of every order in one matrix product
         # (W, 6N, 2G) @ (W, 2G, 6N), rows (i, a) receive, columns (j, b) emit
         recv_up = np.exp(1j * qr + 1j * kzh)  # receive an upward wave

@@ -42,15 +42,14 @@ from chiropt.multipole.vsw import (
 )
 from chiropt.solve import (
     RAYLEIGH_WARN,
-    OrderSet,
     RayleighAnomalyWarning,
     Solution,
     background_components,
     make_orders,
+    stack_for_orders,
     orders_radius,
     orders_radius_far,
 )
-from chiropt.stack import stack_coefficients
 from chiropt.structure import Structure
 
 #: Cap on the number of orders kept for the reflected interaction.
@@ -115,12 +114,6 @@ def _reflected_orders_radius(st: Structure, lmax: int) -> float:
                       RuntimeWarning, stacklevel=3)
         need = max(cap, g)
     return max(g, need) * 1.0000001
-
-
-def _stack(st: Structure, orders: OrderSet, side: str):
-    eps_h = st.n_host ** 2 * np.ones_like(st.k0)
-    return stack_coefficients(orders.qn, st.k0, eps_h, st.eps_layers, st.thicknesses,
-                              st.eps_substrate, from_side=side)
 
 
 def _i_power_k(lmax: int):
@@ -206,7 +199,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
 
     coef = None
     if st.has_substrate:
-        coef = _stack(st, orders, "host")
+        coef = stack_for_orders(st, orders, "host")
         # stack-reflected interaction, both channels of every order in one product
         # (W, N 2K, 2G) @ (W, 2G, N 2K): rows (i, a) receive, columns (j, b) emit
         r = np.stack([coef.r_s, coef.r_p], axis=-1)                    # (W, G, 2)
@@ -288,13 +281,6 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
                              local_E=local[..., :3], local_H=local[..., 3:],
                              rayleigh=rayleigh, eps_exit=eps_exit, n_far=n_far,
                              coefficients=f4, exciting=e4, tmatrices=tmatrices, lmax=lmax)
-
-
-def _first_order(orders: OrderSet) -> OrderSet:
-    return OrderSet(mn=orders.mn[:1], q=orders.q[:, :1], qn=orders.qn[:, :1],
-                    kz=orders.kz[:, :1], s=orders.s[:, :1], p_up=orders.p_up[:, :1],
-                    p_down=orders.p_down[:, :1], k_up=orders.k_up[:, :1],
-                    k_down=orders.k_down[:, :1])
 
 
 def multipole_power_fractions(sol: MultipoleSolution) -> dict:
