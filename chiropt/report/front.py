@@ -98,7 +98,15 @@ def plot_front(path, problem, records, F, feasible, chosen, picks) -> Path:
             Fc = F[chosen]
             ax.plot(Fc[:, 0], Fc[:, 1], "-o", color=FRONT_COLOR, ms=4, lw=1.2,
                     label="non-dominated front")
+            span = onp.ptp(F[fe], axis=0) if fe.any() else onp.ones(2)
+            span = onp.where(span > 0, span, 1.0)
+            placed: list = []
             for j in picks:
+                # label a candidate only where it does not crowd one already labelled
+                pos = Fc[j] / span
+                if any(onp.hypot(*(pos - other)) < 0.06 for other in placed):
+                    continue
+                placed.append(pos)
                 ax.annotate(f"c{j:03d}", Fc[j], textcoords="offset points", xytext=(4, 4),
                             fontsize=7)
         ax.set_xlabel(_axis_label(labels[0]))
