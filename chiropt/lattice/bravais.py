@@ -13,6 +13,7 @@ b_i . a_j = 2 pi delta_ij; cell area A = |a1 x a2|.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import autograd.numpy as np
 from autograd.tracer import getval
@@ -121,11 +122,11 @@ class Lattice:
                    np.stack([b * np.cos(angle_rad), b * np.sin(angle_rad)]))
 
     # -- derived quantities ------------------------------------------------------------
-    @property
+    @cached_property
     def _cross(self):
         return self.a1[0] * self.a2[1] - self.a1[1] * self.a2[0]
 
-    @property
+    @cached_property
     def area(self):
         """Unit-cell area A = |a1 x a2| [m^2] (traced if the vectors are)."""
         return np.abs(self._cross)
@@ -137,6 +138,10 @@ class Lattice:
         -------
         (b1, b2) : two arrays (2,) [1/m], traced if the lattice vectors are.
         """
+        return self._reciprocal
+
+    @cached_property
+    def _reciprocal(self):
         s = 2.0 * np.pi / self._cross
         b1 = s * np.stack([self.a2[1], -self.a2[0]])
         b2 = s * np.stack([-self.a1[1], self.a1[0]])
@@ -148,7 +153,11 @@ class Lattice:
         return nm[:, 0:1] * self.a1[None, :] + nm[:, 1:2] * self.a2[None, :]
 
     def plain(self):
-        """The same lattice with untraced (plain float) vectors."""
+        """The same lattice with untraced (plain float) vectors (cached)."""
+        return self._plain
+
+    @cached_property
+    def _plain(self):
         return Lattice(np.array(getval(self.a1), dtype=float),
                        np.array(getval(self.a2), dtype=float))
 
