@@ -244,6 +244,49 @@ def background_components(st: Structure, orders: OrderSet, coef=None):
     return zeros, U0, X0
 
 
+def combine_orders(st: Structure, coef, up_c, down_c, U0, X0):
+    """Total outgoing waves from the particles' emission and the background.
+
+    Parameters: ``up_c``, ``down_c`` (W, 2, G, 2) emitted upward/downward components at
+    z_top; ``U0``, ``X0`` (W, 2, 2) background (0,0)-order waves (see
+    :func:`background_components`); ``coef`` the stack seen from the host (or None).
+
+    Returns
+    -------
+    (up, exit, eps_exit): upward waves in the host above the particles (emission plus its
+    stack reflection plus the background), downward waves below the stack (transmitted
+    emission plus background), and the permittivity (W,) of that exit medium.
+    """
+    first = (np.arange(up_c.shape[2]) == 0)[None, None, :, None]
+    if coef is None:
+        return up_c, down_c + first * X0[:, :, None, :], st.n_host ** 2 * np.ones_like(st.k0)
+    rr = np.stack([coef.r_s, coef.r_p], axis=-1)[:, None]
+    tt = np.stack([coef.t_s, coef.t_p], axis=-1)[:, None]
+    return (up_c + rr * down_c + first * U0[:, :, None, :],
+            tt * down_c + first * X0[:, :, None, :], st.eps_substrate)
+
+
+def far_orders_and_anomalies(st: Structure, orders: OrderSet, k_par=None, *, warn: bool = True):
+    """Number of leading orders that can propagate in host or substrate, and the (W,)
+    smallest |kz|/k of any order (0 on a Rayleigh anomaly; plain values). Emits
+    :class:`RayleighAnomalyWarning` below ``RAYLEIGH_WARN`` when ``warn``."""
+    k_par = st.k_par if k_par is None else k_par
+    k_prop = orders_radius_far(st, k_par)
+    g = getval(orders.q)[0] - getval(k_par)[0][None, :]
+    n_far = int(np.sum(np.linalg.norm(g, axis=-1) <= k_prop))
+    rayleigh = np.min(np.abs(getval(orders.kz)) / getval(st.k)[:, None], axis=1)
+    if st.has_substrate:
+        k2v = np.sqrt(getval(st.eps_substrate))[:, None] * getval(st.k0)[:, None]
+        kz2v = np.sqrt(k2v ** 2 - getval(orders.qn) ** 2 + 0j)
+        rayleigh = np.minimum(rayleigh, np.min(np.abs(kz2v) / np.abs(k2v), axis=1))
+    if warn and np.any(rayleigh < RAYLEIGH_WARN):
+        bad = np.asarray(getval(st.wavelength_nm))[rayleigh < RAYLEIGH_WARN]
+        warnings.warn(f"a diffraction order grazes (Rayleigh anomaly) at wavelength(s) "
+                      f"{', '.join(f'{w:.6g}' for w in bad)} nm: results there are unreliable",
+                      RayleighAnomalyWarning, stacklevel=3)
+    return n_far, rayleigh
+
+
 def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None) -> Solution:
     """Solve the coupled dipole equations for both incident helicities.
 
@@ -339,30 +382,8 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
     xr = np.reshape(np.transpose(np.reshape(x, (W, N, 6, 2)), (0, 2, 3, 1)), (W, 6, 2 * N))
     up_c = _amplitudes(vec_up, ph_up, xr)  # (W, 2, G, 2)
     down_c = _amplitudes(vec_down, ph_down, xr)
-    first = (np.arange(G) == 0)[None, None, :, None]
-    if st.has_substrate:
-        rr = np.stack([coef.r_s, coef.r_p], axis=-1)[:, None]
-        tt = np.stack([coef.t_s, coef.t_p], axis=-1)[:, None]
-        up_c = up_c + rr * down_c + first * U0[:, :, None, :]
-        exit_c = tt * down_c + first * X0[:, :, None, :]
-        eps_exit = st.eps_substrate
-    else:
-        exit_c = down_c + first * X0[:, :, None, :]
-        eps_exit = st.n_host ** 2 * np.ones_like(st.k0)
-    # orders that can propagate in some medium (sorted by |G|, so a leading block)
-    k_prop = orders_radius_far(st, k_par)
-    n_far = int(np.sum(np.linalg.norm(getval(orders.q)[0] - getval(k_par)[0][None, :], axis=-1)
-                       <= k_prop))
-    rayleigh = np.min(np.abs(getval(orders.kz)) / getval(k)[:, None], axis=1)
-    if st.has_substrate:
-        k2v = np.sqrt(getval(st.eps_substrate))[:, None] * getval(st.k0)[:, None]
-        kz2v = np.sqrt(k2v ** 2 - getval(orders.qn) ** 2 + 0j)
-        rayleigh = np.minimum(rayleigh, np.min(np.abs(kz2v) / np.abs(k2v), axis=1))
-    if warn and np.any(rayleigh < RAYLEIGH_WARN):
-        bad = np.asarray(getval(st.wavelength_nm))[rayleigh < RAYLEIGH_WARN]
-        warnings.warn(f"a diffraction order grazes (Rayleigh anomaly) at wavelength(s) "
-                      f"{', '.join(f'{w:.6g}' for w in bad)} nm: results there are unreliable",
-                      RayleighAnomalyWarning, stacklevel=2)
+    up_c, exit_c, eps_exit = combine_orders(st, coef, up_c, down_c, U0, X0)
+    n_far, rayleigh = far_orders_and_anomalies(st, orders, k_par, warn=warn)
     return Solution(structure=st, orders=orders, moments=moments, up_sp=up_c,
                     down_sp=down_c, exit_sp=exit_c, incident_sp=D0, local_E=loc[..., :3],
                     local_H=loc[..., 3:], rayleigh=rayleigh, eps_exit=eps_exit, n_far=n_far)

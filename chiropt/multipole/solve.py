@@ -41,14 +41,13 @@ from chiropt.multipole.vsw import (
     order_projections,
 )
 from chiropt.solve import (
-    RAYLEIGH_WARN,
-    RayleighAnomalyWarning,
     Solution,
     background_components,
+    combine_orders,
+    far_orders_and_anomalies,
     make_orders,
     stack_for_orders,
     orders_radius,
-    orders_radius_far,
 )
 from chiropt.structure import Structure
 
@@ -248,30 +247,8 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     y = np.sum(y * np.reshape(ph, (W, G, 2, 1, 1, N)), axis=-1)        # [w, g, d, c, t]
     up_c = np.transpose(y[:, :, 0], (0, 3, 1, 2))                      # (W, 2, G, 2)
     down_c = np.transpose(y[:, :, 1], (0, 3, 1, 2))
-    first = (onp.arange(G) == 0)[None, None, :, None]
-    if st.has_substrate:
-        rr = np.stack([coef.r_s, coef.r_p], axis=-1)[:, None]
-        tt = np.stack([coef.t_s, coef.t_p], axis=-1)[:, None]
-        up_c = up_c + rr * down_c + first * U0[:, :, None, :]
-        exit_c = tt * down_c + first * X0[:, :, None, :]
-        eps_exit = st.eps_substrate
-    else:
-        exit_c = down_c + first * X0[:, :, None, :]
-        eps_exit = st.n_host ** 2 * np.ones_like(st.k0)
-
-    k_prop = orders_radius_far(st)
-    Gvec = getval(orders.q)[0] - getval(st.k_par)[0][None, :]
-    n_far = int(onp.sum(onp.linalg.norm(Gvec, axis=-1) <= k_prop))
-    rayleigh = onp.min(onp.abs(getval(orders.kz)) / getval(k)[:, None], axis=1)
-    if st.has_substrate:
-        k2v = onp.sqrt(getval(st.eps_substrate))[:, None] * getval(st.k0)[:, None]
-        kz2v = onp.sqrt(k2v ** 2 - getval(orders.qn) ** 2 + 0j)
-        rayleigh = onp.minimum(rayleigh, onp.min(onp.abs(kz2v) / onp.abs(k2v), axis=1))
-    if warn and onp.any(rayleigh < RAYLEIGH_WARN):
-        bad = onp.asarray(getval(st.wavelength_nm))[rayleigh < RAYLEIGH_WARN]
-        warnings.warn(f"a diffraction order grazes (Rayleigh anomaly) at wavelength(s) "
-                      f"{', '.join(f'{w:.6g}' for w in bad)} nm: results there are unreliable",
-                      RayleighAnomalyWarning, stacklevel=2)
+    up_c, exit_c, eps_exit = combine_orders(st, coef, up_c, down_c, U0, X0)
+    n_far, rayleigh = far_orders_and_anomalies(st, orders, warn=warn)
 
     e4 = np.reshape(e, (W, 2, N, K2))
     moments = dipole_moments(f4, k[:, None, None])
