@@ -45,11 +45,9 @@ def _metric_at(problem, rec, name, spec) -> float:
 
 def _order_overlay(ax, problem, rec, spec) -> str:
     """Draw the dominant evanescent order's bound and attainable boundary; return a note."""
-    try:
-        from chiropt.metrics import attainable_boundary, order_table
-        from chiropt.model import metrics_tolerance, run_model
-    except ImportError:
-        return "per-order bound not drawn (chiropt.metrics / chiropt.model lack it)"
+    from chiropt.metrics import attainable_boundary, order_table
+    from chiropt.model import metrics_tolerance, run_model
+
     try:
         design = problem.design_at(rec.x)
         # the spec's middle wavelength, moved with the wavelength variable if there is one
