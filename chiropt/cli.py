@@ -80,15 +80,24 @@ def _write_fields(design, response, args) -> None:
 
 def _print_table(response) -> None:
     wl = response.wavelength_nm
+    m = response.metrics
     step = max(1, len(wl) // 12)
-    print(f"{'lambda (nm)':>12} {'R(+1)':>8} {'T(+1)':>8} {'A(+1)':>8} "
-          f"{'R(-1)':>8} {'T(-1)':>8} {'A(-1)':>8}")
+    head = (f"{'lambda (nm)':>12} {'R(+1)':>8} {'T(+1)':>8} {'A(+1)':>8} "
+            f"{'R(-1)':>8} {'T(-1)':>8} {'A(-1)':>8}")
+    if m is not None:
+        head += f" {'u':>8} {'g':>8} {'DOCP(+1)':>9}"
+    print(head)
     rows = list(range(0, len(wl), step))
     if rows[-1] != len(wl) - 1:
         rows.append(len(wl) - 1)
     for i in rows:
-        print(f"{wl[i]:12.2f} " + " ".join(
-            f"{getattr(response, q)[i, h]:8.4f}" for h in (0, 1) for q in ("R", "T", "A")))
+        line = f"{wl[i]:12.2f} " + " ".join(
+            f"{getattr(response, q)[i, h]:8.4f}" for h in (0, 1) for q in ("R", "T", "A"))
+        if m is not None:
+            line += f" {m['u'][i]:8.4f} {m['g'][i]:8.4f} {m['docp']['+1'][i]:9.4f}"
+        print(line)
+    if m is not None:
+        print("u, g, DOCP: averages over the design's region (see `chiropt inspect`)")
 
 
 def _cmd_inspect(args) -> int:
@@ -159,10 +168,13 @@ def _cmd_goal(args) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
+    from chiropt import __version__
+
     parser = argparse.ArgumentParser(
         prog="chiropt",
         description="Chiral near fields of periodic nanoparticle arrays: forward model, "
                     "metrics and Pareto search.")
+    parser.add_argument("--version", action="version", version=f"chiropt {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
     ev = sub.add_parser("evaluate", help="solve one design file and report its spectra")
     ev.add_argument("design", help="design file (YAML)")
@@ -232,6 +244,11 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("chiropt: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # output piped into a command that stopped reading (head)
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_OK
 
 
 if __name__ == "__main__":
