@@ -37,11 +37,14 @@ class LatticeSpec:
 
 @dataclass(frozen=True)
 class ParticleSpec:
-    """A sphere (optionally with a core) in the unit cell.
+    """A particle in the unit cell, its symmetry axis along z.
 
-    ``radius_nm`` is the outer radius [nm]; ``material`` the outer (shell) material.
-    ``core_radius_nm`` / ``core_material`` describe an optional core.
-    ``position_nm`` is the in-plane centre (x, y) in the cell [nm].
+    ``shape``: ``sphere`` (optionally with a core), ``cylinder`` (a disk or pillar) or
+    ``spheroid``. ``radius_nm`` is the outer (sphere, cylinder) or equatorial (spheroid)
+    radius [nm]; ``height_nm`` the full height of a cylinder or the polar diameter of a
+    spheroid [nm]; ``material`` the outer material; ``core_radius_nm`` /
+    ``core_material`` an optional core of a sphere; ``position_nm`` the in-plane centre
+    (x, y) in the cell [nm].
     """
 
     shape: str
@@ -50,6 +53,12 @@ class ParticleSpec:
     position_nm: tuple[float, float] = (0.0, 0.0)
     core_radius_nm: float | None = None
     core_material: Any = None
+    height_nm: float | None = None
+
+    @property
+    def half_height_nm(self) -> float:
+        """Vertical half extent [nm]: the radius of a sphere, half the height otherwise."""
+        return self.radius_nm if self.height_nm is None else self.height_nm / 2.0
 
 
 @dataclass(frozen=True)
@@ -121,6 +130,8 @@ class Design:
             p["lattice.angle_deg"] = lat.angle_deg
         for i, part in enumerate(self.particles):
             p[f"particles[{i}].radius_nm"] = part.radius_nm
+            if part.height_nm is not None:
+                p[f"particles[{i}].height_nm"] = part.height_nm
             if part.core_radius_nm is not None:
                 p[f"particles[{i}].core_radius_nm"] = part.core_radius_nm
             p[f"particles[{i}].position_nm[0]"] = part.position_nm[0]
@@ -167,6 +178,8 @@ class Design:
             if part.core_radius_nm is not None:
                 pd["core_radius_nm"] = part.core_radius_nm
                 pd["core_material"] = part.core_material
+            if part.height_nm is not None:
+                pd["height_nm"] = part.height_nm
             parts.append(pd)
         wl = list(self.illumination.wavelength_nm)
         out: dict[str, Any] = {
@@ -383,16 +396,35 @@ def _lattice(raw: Any, key: str) -> LatticeSpec:
     return LatticeSpec(kind=kind, periods_nm=periods, angle_deg=float(angle))
 
 
+PARTICLE_SHAPES = ("sphere", "cylinder", "spheroid")
+
+
 def _particle(raw: Any, key: str) -> ParticleSpec:
     check_keys(raw, {"shape", "radius_nm", "material", "position_nm", "core_radius_nm",
-                     "core_material"}, key)
+                     "core_material", "height_nm"}, key)
     shape = raw.get("shape", "sphere")
-    if shape != "sphere":
-        raise InputError(f"{key}.shape", f"got {shape!r}, allowed: sphere")
+    if shape not in PARTICLE_SHAPES:
+        raise InputError(f"{key}.shape", f"got {shape!r}, allowed: {', '.join(PARTICLE_SHAPES)}")
     if "radius_nm" not in raw:
         raise InputError(f"{key}.radius_nm", "missing")
     radius = _number(raw["radius_nm"], f"{key}.radius_nm", low=0.0, high=1e4, low_open=True,
                      unit="nm")
+    height = None
+    if shape == "sphere":
+        if "height_nm" in raw:
+            raise InputError(f"{key}.height_nm", "only for shape cylinder or spheroid")
+    else:
+        if "height_nm" not in raw:
+            raise InputError(f"{key}.height_nm", f"missing; a {shape} needs its height")
+        height = _number(raw["height_nm"], f"{key}.height_nm", low=0.0, high=1e4,
+                         low_open=True, unit="nm")
+        aspect = height / (2 * radius)
+        if not 0.25 <= aspect <= 4.0:
+            raise InputError(f"{key}.height_nm", f"height/diameter = {aspect:.3g}; allowed "
+                                                 "[0.25, 4] (the T-matrix method is "
+                                                 "ill-conditioned for flatter or longer shapes)")
+        if "core_radius_nm" in raw or "core_material" in raw:
+            raise InputError(f"{key}.core_radius_nm", "cores are supported for spheres only")
     if "material" not in raw:
         raise InputError(f"{key}.material", "missing")
     material = _material_spec(raw["material"], f"{key}.material")
@@ -407,7 +439,7 @@ def _particle(raw: Any, key: str) -> ParticleSpec:
                          high=radius, low_open=True, unit="nm")
         core_m = _material_spec(raw["core_material"], f"{key}.core_material")
     return ParticleSpec(shape=shape, radius_nm=radius, material=material, position_nm=pos,
-                        core_radius_nm=core_r, core_material=core_m)
+                        core_radius_nm=core_r, core_material=core_m, height_nm=height)
 
 
 def _layer(raw: Any, key: str) -> LayerSpec:
@@ -463,17 +495,31 @@ def check_geometry(design: Design, prefix: str = "") -> None:
                              f"diameter {2 * p.radius_nm:g} nm exceeds the shortest lattice "
                              f"period {shortest:g} nm (spheres would overlap their neighbours); "
                              f"allowed radius <= {shortest / 2:g} nm")
+        if 2 * _circumradius(p) > shortest:
+            raise InputError(f"{prefix}particles[{i}].height_nm",
+                             f"the circumscribing sphere of this {p.shape} (diameter "
+                             f"{2 * _circumradius(p):.4g} nm) exceeds the shortest lattice period "
+                             f"{shortest:g} nm: its T-matrix expansion would not converge "
+                             "between neighbours")
     for i in range(len(parts)):
         for j in range(i + 1, len(parts)):
             d0 = onp.subtract(parts[i].position_nm, parts[j].position_nm)
-            # bottoms aligned: centres differ in height by the radius difference
-            dz = parts[i].radius_nm - parts[j].radius_nm
+            # bottoms aligned: centres differ in height by the half-height difference;
+            # non-spheres are checked by their circumscribing spheres (conservative)
+            dz = parts[i].half_height_nm - parts[j].half_height_nm
             dist = min(math.sqrt(float(onp.sum((d0 + v) ** 2)) + dz ** 2) for v in images)
-            if dist < parts[i].radius_nm + parts[j].radius_nm:
+            reach = _circumradius(parts[i]) + _circumradius(parts[j])
+            if dist < reach:
                 raise InputError(f"{prefix}particles[{j}].position_nm",
                                  f"particle {j} overlaps particle {i} (centre distance "
-                                 f"{dist:.4g} nm < sum of radii "
-                                 f"{parts[i].radius_nm + parts[j].radius_nm:g} nm)")
+                                 f"{dist:.4g} nm < sum of circumscribing radii {reach:g} nm)")
+
+
+def _circumradius(part: ParticleSpec) -> float:
+    """Radius [nm] of the sphere around a particle's centre that contains it."""
+    if part.shape == "cylinder":
+        return math.hypot(part.radius_nm, part.height_nm / 2.0)
+    return max(part.radius_nm, part.half_height_nm)
 
 
 def load_design(path: str | Path) -> Design:

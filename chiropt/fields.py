@@ -50,7 +50,7 @@ NM = 1e-9
 
 def particle_top(structure: Structure):
     """Height of the highest particle top, max_j (z_j + r_j) [m] (traced if the geometry is)."""
-    return np.max(structure.centres[:, 2] + structure.radii)
+    return np.max(structure.centres[:, 2] + structure.half_heights)
 
 
 def _safe_norm(qq):

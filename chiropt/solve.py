@@ -314,6 +314,11 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
     García de Abajo, Rev. Mod. Phys. 79, 1267 (2007); Evlyukhin et al., PRB 82, 045404 (2010).
     """
     st = structure
+    if not all(st.spherical):
+        from chiropt.errors import InputError
+
+        raise InputError("particles", "non-spherical particles need the multipole model "
+                                      "(chiropt.model.run_model chooses it)")
     W = len(getval(st.k0))
     N = len(getval(st.radii))
     k = st.k

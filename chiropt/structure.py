@@ -42,7 +42,9 @@ class Structure:
     lattice : Lattice with vectors in [m]
     centres : (N, 3) particle centres [m]; z measured from the substrate top
         (or, with no substrate, from the particle bottoms)
-    radii : (N,) outer radii [m]
+    radii : (N,) outer (equatorial) radii [m]
+    half_heights : (N,) vertical half extents [m] (the radius for spheres)
+    spherical : tuple of bool, per particle (non-spheres need the multipole model)
     alpha_e, alpha_m : (W, N) electric and magnetic dipole polarizabilities [m^3]
         in the normalization P = p/(eps0 n_h^2) = alpha_e E, Z m = alpha_m Z H
     eps_particles_imag_positive : bool, all particle materials passive
@@ -61,6 +63,8 @@ class Structure:
     lattice: Lattice
     centres: Any
     radii: Any
+    half_heights: Any
+    spherical: tuple
     alpha_e: Any
     alpha_m: Any
     z_top: Any
@@ -163,28 +167,36 @@ def build_structure(design: Design, values: dict[str, Any] | None = None) -> Str
     else:
         z_base = 0.0
 
-    radii, centres, a_e, a_m = [], [], [], []
+    radii, halves, centres, a_e, a_m = [], [], [], [], []
     for i, part in enumerate(design.particles):
         r = p[f"particles[{i}].radius_nm"] * NM
-        n_out = material_index(part.material, wl, key=f"particles[{i}].material", base_dir=base,
-                                p=p, pkey=f"particles[{i}].material")
-        if part.core_radius_nm is None:
-            a, b = mie_coefficients(kh * r, n_out / n_h, 1)
+        half = r if part.height_nm is None else p[f"particles[{i}].height_nm"] * NM / 2.0
+        if part.shape != "sphere":
+            # no scalar polarizabilities: the multipole model uses the particle's T-matrix
+            ae = am = np.full(np.shape(getval(wl)), np.nan + 0j)
         else:
-            rc = p[f"particles[{i}].core_radius_nm"] * NM
-            n_core = material_index(part.core_material, wl, key=f"particles[{i}].core_material",
-                                    base_dir=base, p=p, pkey=f"particles[{i}].core_material")
-            a, b = coreshell_mie_coefficients(kh * rc, kh * r, n_core / n_h, n_out / n_h, 1)
-        ae, am = dipole_polarizabilities(a[..., 0], b[..., 0], kh)
+            n_out = material_index(part.material, wl, key=f"particles[{i}].material",
+                                   base_dir=base, p=p, pkey=f"particles[{i}].material")
+            if part.core_radius_nm is None:
+                a, b = mie_coefficients(kh * r, n_out / n_h, 1)
+            else:
+                rc = p[f"particles[{i}].core_radius_nm"] * NM
+                n_core = material_index(part.core_material, wl,
+                                        key=f"particles[{i}].core_material", base_dir=base,
+                                        p=p, pkey=f"particles[{i}].core_material")
+                a, b = coreshell_mie_coefficients(kh * rc, kh * r, n_core / n_h, n_out / n_h, 1)
+            ae, am = dipole_polarizabilities(a[..., 0], b[..., 0], kh)
         a_e.append(ae)
         a_m.append(am)
         radii.append(r)
+        halves.append(half)
         centres.append(np.stack([p[f"particles[{i}].position_nm[0]"] * NM,
                                  p[f"particles[{i}].position_nm[1]"] * NM,
-                                 z_base + r]))
+                                 z_base + half]))
     return Structure(
         wavelength_nm=wl, k0=k0, n_host=n_h, lattice=_lattice_from(design, p),
-        centres=np.stack(centres), radii=np.stack(radii),
+        centres=np.stack(centres), radii=np.stack(radii), half_heights=np.stack(halves),
+        spherical=tuple(part.shape == "sphere" for part in design.particles),
         alpha_e=np.stack(a_e, axis=-1), alpha_m=np.stack(a_m, axis=-1),
         z_top=z_top, eps_substrate=eps_sub, eps_layers=eps_layers, thicknesses=thick,
         polar=p["illumination.polar_deg"] * np.pi / 180.0,
