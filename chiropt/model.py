@@ -60,7 +60,9 @@ def traced_region(design: Design, values: dict[str, Any] | None):
 
 def resolve_lmax(design: Design, structure: Structure, values=None) -> int:
     """The multipole degree: the design's integer, or for ``auto`` the smallest lmax whose
-    first omitted Mie order of every particle is below ``model.lmax_tolerance``."""
+    first omitted Mie order of every particle is below ``model.lmax_tolerance``.
+    (Non-spherical particles always go through the multipole model, at lmax 1 with their
+    full anisotropic dipole T-matrix.)"""
     if design.lmax != "auto":
         return int(design.lmax)
     from chiropt.multipole.tmatrix import choose_lmax, design_particles
@@ -92,7 +94,7 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
         degree = lmax if lmax is not None else resolve_lmax(design, st, values)
         region = traced_region(design, values)
         tol = metrics_tolerance(design)
-        if degree == 1:
+        if degree == 1 and all(st.spherical):
             sol = solve(st, warn=warn)
             frac = power_fractions(sol)
         else:

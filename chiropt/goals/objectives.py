@@ -72,8 +72,12 @@ def _lattice_vectors(kind: str, p: dict):
     return a, b, ang
 
 
-def _gap(p: dict, kind: str, i: int, j: int):
-    """Surface-to-surface gap [nm] between particles i and j (i == j: its lattice images)."""
+def _gap(p: dict, kind: str, i: int, j: int, spheres: bool = True):
+    """Surface-to-surface gap [nm] between particles i and j (i == j: its lattice images).
+
+    Spheres: the 3-D gap with bottoms aligned. Otherwise (cylinders, spheroids standing on
+    the same surface) the in-plane gap between the footprints.
+    """
     shifts = [(a, b) for a in range(-2, 3) for b in range(-2, 3) if i != j or (a, b) != (0, 0)]
     si = onp.array([s[0] for s in shifts], float)
     sj = onp.array([s[1] for s in shifts], float)
@@ -83,7 +87,8 @@ def _gap(p: dict, kind: str, i: int, j: int):
     dy = p[f"particles[{i}].position_nm[1]"] - p[f"particles[{j}].position_nm[1]"]
     x = dx + si * a + sj * b * np.cos(ang)
     y = dy + sj * b * np.sin(ang)
-    d2 = x ** 2 + y ** 2 + (ri - rj) ** 2  # bottoms aligned: centres differ by ri - rj
+    dz2 = (ri - rj) ** 2 if spheres else 0.0  # spheres: bottoms aligned, centres differ
+    d2 = x ** 2 + y ** 2 + dz2
     return np.sqrt(np.min(d2)) - ri - rj
 
 
@@ -95,21 +100,26 @@ class FabricationRow:
     """
 
     def __init__(self, key: str, what: str, quantity: str, value: float, lower: bool,
-                 lattice_kind: str, i: int = 0, j: int = 0):
+                 lattice_kind: str, i: int = 0, j: int = 0, spheres: bool = True):
         self.key, self.what, self.quantity_name = key, what, quantity
         self.value, self.lower, self.kind, self.i, self.j = float(value), lower, lattice_kind, i, j
+        self.spheres = spheres
 
     def quantity(self, p: dict):
         """The geometric quantity at the design quantities ``p`` (may be traced)."""
         i, name = self.i, self.quantity_name
         if name == "gap":
-            return _gap(p, self.kind, i, self.j)
+            return _gap(p, self.kind, i, self.j, self.spheres)
         if name == "diameter":
             return 2 * p[f"particles[{i}].radius_nm"]
         if name == "core_diameter":
             return 2 * p[f"particles[{i}].core_radius_nm"]
         if name == "shell":
             return p[f"particles[{i}].radius_nm"] - p[f"particles[{i}].core_radius_nm"]
+        if name == "height":
+            return p[f"particles[{i}].height_nm"]
+        if f"particles[{i}].height_nm" in p:  # cylinder, spheroid: height / diameter
+            return p[f"particles[{i}].height_nm"] / (2 * p[f"particles[{i}].radius_nm"])
         return 1.0 + 0.0 * p["host_index"]  # a sphere: height / width = 1
 
     def __call__(self, p: dict):
@@ -123,6 +133,7 @@ def fabrication_rows(goal: Goal) -> list[FabricationRow]:
     kind = design.lattice.kind
     rows: list[FabricationRow] = []
     n_part = len(design.particles)
+    spheres = all(part.shape == "sphere" for part in design.particles)
     for c in goal.fabrication_constraints:
         V = c.value
         if c.kind == "min_gap_nm":
@@ -130,20 +141,25 @@ def fabrication_rows(goal: Goal) -> list[FabricationRow]:
                 for j in range(i, n_part):
                     what = (f"gap between particle {i} and its lattice images [nm]" if i == j
                             else f"gap between particles {i} and {j} [nm]")
-                    rows.append(FabricationRow(c.key, what, "gap", V, True, kind, i, j))
+                    rows.append(FabricationRow(c.key, what, "gap", V, True, kind, i, j,
+                                               spheres))
         elif c.kind == "min_feature_nm":
             for i, part in enumerate(design.particles):
                 rows.append(FabricationRow(c.key, f"diameter of particle {i} [nm]", "diameter",
                                            V, True, kind, i))
+                if part.height_nm is not None:
+                    rows.append(FabricationRow(c.key, f"height of particle {i} [nm]", "height",
+                                               V, True, kind, i))
                 if part.core_radius_nm is not None:
                     rows.append(FabricationRow(c.key, f"core diameter of particle {i} [nm]",
                                                "core_diameter", V, True, kind, i))
                     rows.append(FabricationRow(c.key, f"shell thickness of particle {i} [nm]",
                                                "shell", V, True, kind, i))
         else:
-            for i in range(n_part):
-                rows.append(FabricationRow(c.key, f"aspect ratio of particle {i} (sphere)",
-                                           "aspect", V, False, kind, i))
+            for i, part in enumerate(design.particles):
+                rows.append(FabricationRow(c.key, f"aspect ratio height/diameter of particle "
+                                                  f"{i} ({part.shape})", "aspect", V, False,
+                                           kind, i))
     return rows
 
 
