@@ -100,3 +100,30 @@ def test_wavelength_outside_material_data_names_material():
     with pytest.raises(InputError, match="3000") as err:
         evaluate(d)
     assert "Si" in str(err.value)
+
+
+@pytest.mark.parametrize("particle,key,fragment", [
+    ({"shape": "cylinder", "radius_nm": 60, "material": "Si"}, "particles[0].height_nm",
+     "missing"),
+    ({"shape": "cylinder", "radius_nm": 60, "height_nm": 20, "material": "Si"},
+     "particles[0].height_nm", "allowed [0.25, 4]"),
+    ({"shape": "sphere", "radius_nm": 60, "height_nm": 20, "material": "Si"},
+     "particles[0].height_nm", "only for shape cylinder or spheroid"),
+    ({"shape": "cube", "radius_nm": 60, "material": "Si"}, "particles[0].shape",
+     "sphere, cylinder, spheroid"),
+    ({"shape": "cylinder", "radius_nm": 150, "height_nm": 300, "material": "Si"},
+     "particles[0].height_nm", "circumscribing sphere"),
+])
+def test_non_spherical_particle_errors(particle, key, fragment):
+    with pytest.raises(InputError) as err:
+        design_from_dict(dict(BASE, particles=[particle]))
+    assert err.value.key == key
+    assert fragment in str(err.value)
+
+
+def test_cylinder_parameters_and_round_trip():
+    d = design_from_dict(dict(BASE, particles=[{"shape": "cylinder", "radius_nm": 70,
+                                                "height_nm": 90, "material": "Si"}]))
+    assert d.parameters()["particles[0].height_nm"] == 90
+    assert d.particles[0].half_height_nm == 45
+    assert design_from_dict(d.to_dict()) == d
