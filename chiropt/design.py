@@ -501,6 +501,7 @@ def check_geometry(design: Design, prefix: str = "") -> None:
                              f"{2 * _circumradius(p):.4g} nm) exceeds the shortest lattice period "
                              f"{shortest:g} nm: its T-matrix expansion would not converge "
                              "between neighbours")
+    _check_expansion_limits(design, prefix)
     for i in range(len(parts)):
         for j in range(i + 1, len(parts)):
             d0 = onp.subtract(parts[i].position_nm, parts[j].position_nm)
@@ -513,6 +514,36 @@ def check_geometry(design: Design, prefix: str = "") -> None:
                 raise InputError(f"{prefix}particles[{j}].position_nm",
                                  f"particle {j} overlaps particle {i} (centre distance "
                                  f"{dist:.4g} nm < sum of circumscribing radii {reach:g} nm)")
+
+
+def _check_expansion_limits(design: Design, prefix: str) -> None:
+    """Where the T-matrix (multipole) expansion of a non-spherical particle is valid.
+
+    The outgoing expansion converges outside the particle's circumscribing sphere only.
+    Its coupling to the stack through the reflected orders needs the sphere and its
+    mirror image not to overlap (centre at least one circumradius above the stack), and
+    near-field regions must lie above the sphere's top. Spheres satisfy both by
+    construction; cylinders and spheroids need a gap and a height (raised as errors with
+    the allowed values rather than returning results that do not converge with lmax).
+    """
+    worst_gap = max(_circumradius(p) - p.half_height_nm for p in design.particles)
+    if worst_gap <= 0:
+        return
+    if design.substrate is not None and design.gap_nm < worst_gap:
+        raise InputError(prefix + "gap_nm",
+                         f"got {design.gap_nm:g} nm; a cylinder or spheroid's circumscribing "
+                         "sphere must stay above the stack for its multipole coupling to the "
+                         f"reflected waves to converge: allowed gap_nm >= {worst_gap:.4g} nm")
+    region = design.region
+    if region is not None:
+        key, low = (("region.height_nm", region.height_nm) if region.kind == "plane"
+                    else ("region.from_nm", region.from_nm))
+        if low < worst_gap:
+            raise InputError(prefix + key,
+                             f"got {low:g} nm; near fields of a cylinder or spheroid are "
+                             "computed from its multipole expansion, valid above its "
+                             f"circumscribing sphere: allowed {key.split('.')[-1]} >= "
+                             f"{worst_gap:.4g} nm")
 
 
 def _circumradius(part: ParticleSpec) -> float:

@@ -67,6 +67,9 @@ def power_fractions(sol: Solution) -> dict:
     k3 = (k ** 3 / (6 * np.pi))[:, None]
     P = sol.moments[..., :3]
     M = sol.moments[..., 3:]
+    if not all(st.spherical):  # no scalar polarizabilities (the multipole model reports
+        nan = np.full(np.shape(R), np.nan)  # the particles' absorption itself)
+        return {"R": R, "T": T, "A": 1.0 - R - T, "A_dipoles": nan}
     loss_e = -np.imag(1.0 / st.alpha_e) - k3  # (W, N)
     loss_m = -np.imag(1.0 / st.alpha_m) - k3
     absorbed = (np.sum(np.abs(P) ** 2, axis=-1) * loss_e[:, None]

@@ -93,8 +93,10 @@ class Sphere:
                                  lmax)
 
 
-def design_particles(design, values: dict | None = None) -> list[Sphere]:
-    """The particles of a Design as T-matrix sources (same parameters as build_structure).
+def design_particles(design, values: dict | None = None) -> list:
+    """The particles of a Design as T-matrix sources (same parameters as build_structure):
+    spheres (Mie, differentiable), cylinders and spheroids (EBCM, chiropt.particles.ebcm;
+    not differentiable).
 
     Parameters
     ----------
@@ -119,8 +121,20 @@ def design_particles(design, values: dict | None = None) -> list[Sphere]:
                                     key=f"particles[{i}].core_material",
                                     base_dir=design.base_dir, p=p,
                                     pkey=f"particles[{i}].core_material")
-        out.append(Sphere(radius=p[f"particles[{i}].radius_nm"] * NM, index=n_out,
-                          n_host=p["host_index"], core_radius=core_r, core_index=core_n))
+        radius = p[f"particles[{i}].radius_nm"] * NM
+        if part.shape == "cylinder":
+            from chiropt.particles.ebcm import Cylinder
+
+            out.append(Cylinder(radius, p[f"particles[{i}].height_nm"] * NM, n_out,
+                                p["host_index"]))
+        elif part.shape == "spheroid":
+            from chiropt.particles.ebcm import Spheroid
+
+            out.append(Spheroid(radius, p[f"particles[{i}].height_nm"] * NM / 2.0, n_out,
+                                p["host_index"]))
+        else:
+            out.append(Sphere(radius=radius, index=n_out, n_host=p["host_index"],
+                              core_radius=core_r, core_index=core_n))
     return out
 
 
