@@ -99,6 +99,7 @@ def fullwave_setup(design: Design) -> dict:
     parts = []
     for i, part in enumerate(design.particles):
         entry = {"shape": part.shape, "radius_nm": part.radius_nm,
+                 "height_nm": 2 * part.half_height_nm,
                  "centre_nm": (onp.asarray(st.centres[i]) * 1e9).tolist(),
                  "material": nk(part.material, f"particles[{i}].material")}
         if part.core_radius_nm is not None:
