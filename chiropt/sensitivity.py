@@ -65,10 +65,6 @@ def compute_quantities(design: Design, values: dict[str, Any] | None = None,
 
 
 def _check_paths(design: Design, paths) -> dict[str, Any]:
-    if any(part.shape != "sphere" for part in design.particles):
-        raise InputError("particles", "exact derivatives are available for spheres only: the "
-                                      "T-matrices of cylinders and spheroids (EBCM) are not "
-                                      "differentiable yet; use a derivative-free algorithm")
     params = design.parameters()
     for path in paths:
         if path not in params:

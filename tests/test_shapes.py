@@ -68,32 +68,24 @@ def test_geometry_limits_of_the_expansion():
         _design(cyl, substrate=False, region={"kind": "plane", "height_nm": 10.0})
 
 
-def test_gradients_refused_for_non_spheres():
-    d = _design({"shape": "spheroid", "radius_nm": 90.0, "height_nm": 120.0}, gap=50.0)
-    with pytest.raises(InputError, match="derivative-free"):
-        value_and_gradient(d, lambda q: q["R+1"][0], ["lattice.period_nm"])
+@pytest.mark.parametrize("shape", ["spheroid", "cylinder"])
+def test_gradients_of_non_spherical_designs_match_finite_differences(shape):
+    # exact reverse-mode derivatives through the EBCM T-matrix and the multipole solve,
+    # against central differences (common practice, no source). The EBCM's internal orders
+    # and quadrature split are integers: values jump by ~1e-6 relative where they change
+    # (measured at height 120 nm for this cylinder), so the point sits between such steps.
+    d = _design({"shape": shape, "radius_nm": 90.0, "height_nm": 116.0}, gap=50.0,
+                region={"kind": "plane", "height_nm": 50.0})
+    from chiropt.sensitivity import compute_quantities
 
+    def objective(q):
+        return q["R+1"][1] + 0.1 * q["g"][1]
 
-def test_goal_with_cylinders_needs_a_derivative_free_algorithm(tmp_path):
-    from chiropt.goals import load_goal
-
-    text = """\
-design:
-  lattice: {kind: square, period_nm: 420}
-  particles: [{shape: cylinder, radius_nm: 90, height_nm: 120, material: Si}]
-  illumination: {wavelength_nm: 700}
-  model: {lmax: 2}
-variables:
-  particles[0].height_nm: {min: 80, max: 160}
-objectives:
-  - {maximize: R, at_nm: 700}
-search: {algorithm: SLSQP}
-"""
-    f = tmp_path / "g.yaml"
-    f.write_text(text)
-    with pytest.raises(InputError, match="COBYLA") as err:
-        load_goal(f)
-    assert err.value.key == "search.algorithm"
-    f.write_text(text.replace("SLSQP", "COBYLA"))
-    goal = load_goal(f)[0]
-    assert goal.search.algorithm == "COBYLA"
+    paths = ["particles[0].height_nm", "particles[0].radius_nm", "lattice.period_nm"]
+    sens = value_and_gradient(d, objective, paths)
+    for path in paths:
+        v0 = d.parameters()[path]
+        h = 1e-4 * v0
+        fd = (objective(compute_quantities(d, {path: v0 + h}))
+              - objective(compute_quantities(d, {path: v0 - h}))) / (2 * h)
+        assert abs(sens.gradient[path] - fd) < 1e-5 * max(abs(fd), 1e-3), (path, fd)

@@ -54,8 +54,8 @@ in degrees. Every error names the key path and the line of the goal file.
     included; in-plane between footprints for cylinders and spheroids [nm]),
     ``min_feature_nm`` (smallest particle diameter, height, or shell thickness [nm]),
     ``max_aspect_ratio`` (height/diameter of every particle; 1 for spheres).
-    Designs with cylinders or spheroids need a derivative-free or global algorithm
-    (their EBCM T-matrices have no exact derivatives yet).
+    Cylinders and spheroids have exact derivatives too (differentiable EBCM), at
+    several times the cost of spheres.
     Inside the optimizer a bound ``v >= LOW`` is the scaled inequality
     ``(LOW - v) / max(|LOW|, 1) <= 0``; fabrication limits are scaled by ``V``.
 Wavelength spec (objectives and metric constraints)
@@ -609,13 +609,6 @@ def _one_goal(ctx: _Ctx, data: dict, name: str, design_dict: dict, design_base, 
     constraints = tuple(_constraint(ctx, c, f"constraints[{i}]", design, design_wl)
                         for i, c in enumerate(cons_raw))
     search = _search(ctx, data.get("search") or {}, len(objectives))
-    if get_algorithm(search.algorithm).uses_gradient and any(
-            part.shape != "sphere" for part in design.particles):
-        raise ctx.error("search.algorithm",
-                        f"{search.algorithm} needs exact gradients, which cylinders and "
-                        "spheroids do not have yet (their EBCM T-matrices are not "
-                        "differentiable); use COBYLA, BOBYQA, Subplex, DIRECT-L, CRS2, ISRES or "
-                        "ESCH")
     budget = _budget(ctx, data.get("budget") or {})
     seed = ctx.integer(data.get("seed", 1), "seed", low=0, high=2**31 - 1)
     return Goal(name=name, design=design, material=label, variables=tuple(variables),

@@ -96,7 +96,7 @@ class Sphere:
 def design_particles(design, values: dict | None = None) -> list:
     """The particles of a Design as T-matrix sources (same parameters as build_structure):
     spheres (Mie, differentiable), cylinders and spheroids (EBCM, chiropt.particles.ebcm;
-    not differentiable).
+    differentiable at fixed internal orders).
 
     Parameters
     ----------

@@ -1,4 +1,5 @@
-"""T-matrices of axisymmetric particles (spheroids, finite cylinders) by the EBCM.
+"""T-matrices of axisymmetric particles (spheroids, finite cylinders) by the EBCM,
+differentiable by autograd.
 
 Owns: the extended boundary condition (null-field) method for homogeneous particles
 with rotational symmetry about z — surface shapes r(theta) of spheroids and finite
@@ -18,9 +19,19 @@ Conventions
 - Symmetry axis along z, centre at the origin (mirror plane z = 0).
 - ``k_host`` [1/m] real (lossless host); ``m_rel = n_particle / n_host`` complex with
   Im >= 0 (exp(-i omega t)).
-- Plain numpy (NOT autograd-differentiable): inputs are detached with ``getval``. An
-  optimizer varying spheroid or cylinder dimensions must use derivative-free
-  algorithms (or finite differences) for these shapes.
+- Written with ``autograd.numpy``: the T-matrix is differentiable by autograd with
+  respect to the sizes (semi-axes; radius and height), ``k_host`` and ``m_rel`` (real
+  and imaginary parts). The complex-argument spherical Bessel functions are the
+  primitive of :mod:`chiropt.particles._spherical_bessel`. Only the integer choices
+  (n_max, the number of Gauss points and their split over the cylinder's three faces)
+  are taken from detached values; they are piecewise constant, so the derivative is
+  that of the discrete method at fixed orders. The cylinder's quadrature nodes move
+  with the edge angle theta_c = atan(2a/H): fixed Gauss-Legendre nodes are mapped
+  affinely onto [0, theta_c], [theta_c, pi - theta_c], [pi - theta_c, pi], so the
+  node positions and weights are differentiable functions of the sizes.
+- Same values as the plain-numpy version (same arithmetic; the row and column
+  equilibration of Q is a constant scaling in the derivative, which is exact since
+  T = -RgQ Q^-1 does not depend on it).
 
 Method (derived here; structure as in the published null-field equations)
 -------------------------------------------------------------------------
@@ -67,12 +78,13 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
+import autograd.numpy as np
 import numpy as onp
-import scipy.special as sps
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
 from chiropt.multipole.vsw import mode_table, spherical_harmonics, vector_harmonics
+from chiropt.particles._spherical_bessel import spherical_bessel
 
 __all__ = [
     "Cylinder",
@@ -87,23 +99,26 @@ __all__ = [
 # ------------------------------------------------------------------ shapes
 
 
-def _gauss(a: float, b: float, n: int):
+def _gauss(a, b, n: int):
+    """Gauss-Legendre nodes and weights on [a, b]; a, b may be traced (the fixed nodes
+    on [-1, 1] are mapped affinely, so nodes and weights are differentiable in a, b)."""
     x, w = onp.polynomial.legendre.leggauss(n)
     return 0.5 * (b - a) * x + 0.5 * (b + a), 0.5 * (b - a) * w
 
 
-def spheroid_surface(a: float, c: float, n_quad: int):
+def spheroid_surface(a, c, n_quad: int):
     """Quadrature of a spheroid surface: nodes theta, weights, r(theta), dr/dtheta.
 
     Parameters
     ----------
-    a : float — equatorial semi-axis (x, y) [m]
-    c : float — polar semi-axis (z) [m]
+    a : float or traced scalar — equatorial semi-axis (x, y) [m]
+    c : float or traced scalar — polar semi-axis (z) [m]
     n_quad : int — Gauss-Legendre points on [0, pi]
 
     Returns
     -------
-    theta, weight, r, r_theta : arrays (n_quad,) [rad], [rad], [m], [m]
+    theta, weight, r, r_theta : arrays (n_quad,) [rad], [rad], [m], [m]; r and r_theta
+    differentiable in a and c (the nodes do not depend on the shape).
 
     References
     ----------
@@ -112,25 +127,27 @@ def spheroid_surface(a: float, c: float, n_quad: int):
     """
     th, w = _gauss(0.0, math.pi, n_quad)
     s, co = onp.sin(th), onp.cos(th)
-    r = 1.0 / onp.sqrt(s ** 2 / a ** 2 + co ** 2 / c ** 2)
+    r = 1.0 / np.sqrt(s ** 2 / a ** 2 + co ** 2 / c ** 2)
     r_th = -r ** 3 * s * co * (1.0 / a ** 2 - 1.0 / c ** 2)
     return th, w, r, r_th
 
 
-def cylinder_surface(radius: float, height: float, n_quad: int):
+def cylinder_surface(radius, height, n_quad: int):
     """Quadrature of a finite cylinder surface (flat ends at z = +-height/2).
 
     Parameters
     ----------
-    radius : float — cylinder radius [m]
-    height : float — cylinder height [m]
+    radius : float or traced scalar — cylinder radius [m]
+    height : float or traced scalar — cylinder height [m]
     n_quad : int — total Gauss-Legendre points, split over the top face
         [0, theta_c], the side [theta_c, pi - theta_c] and the bottom face, in
-        proportion to the lengths of the three pieces of the profile (>= 8 each)
+        proportion to the lengths of the three pieces of the profile (>= 8 each; the
+        split uses detached values and is piecewise constant)
 
     Returns
     -------
-    theta, weight, r, r_theta : arrays [rad], [rad], [m], [m]
+    theta, weight, r, r_theta : arrays [rad], [rad], [m], [m]; all four differentiable
+    in radius and height (the nodes move with theta_c).
 
     References
     ----------
@@ -138,36 +155,50 @@ def cylinder_surface(radius: float, height: float, n_quad: int):
     theta_c = atan(2a/H). End faces r = H/(2|cos|), r_theta = r tan(theta) sign(cos);
     side r = a/sin, r_theta = -r cos/sin.
     """
-    tc = math.atan2(2 * radius, height)
-    lengths = onp.array([radius, height, radius])
+    tc = np.arctan2(2 * radius, height)
+    lengths = onp.array([getval(radius), getval(height), getval(radius)], dtype=float)
     counts = onp.maximum(8, onp.round(n_quad * lengths / lengths.sum()).astype(int))
     pieces = [_gauss(0.0, tc, counts[0]), _gauss(tc, math.pi - tc, counts[1]),
               _gauss(math.pi - tc, math.pi, counts[2])]
-    th = onp.concatenate([p[0] for p in pieces])
-    w = onp.concatenate([p[1] for p in pieces])
-    s, co = onp.sin(th), onp.cos(th)
-    end = onp.concatenate([onp.ones(counts[0], bool), onp.zeros(counts[1], bool),
-                           onp.ones(counts[2], bool)])
-    r_end = 0.5 * height / onp.abs(co)
-    r_side = radius / s
-    r = onp.where(end, r_end, r_side)
-    r_th = onp.where(end, r_end * s / co, -r_side * co / s)
-    return th, w, r, r_th
+    rs, rths = [], []
+    for i, (th, _) in enumerate(pieces):
+        s, co = np.sin(th), np.cos(th)
+        if i == 1:                                                  # side
+            r = radius / s
+            rs.append(r)
+            rths.append(-r * co / s)
+        else:                                                       # end faces
+            r = 0.5 * height / np.abs(co)
+            rs.append(r)
+            rths.append(r * s / co)
+    th = np.concatenate([p[0] for p in pieces])
+    w = np.concatenate([p[1] for p in pieces])
+    return th, w, np.concatenate(rs), np.concatenate(rths)
 
 
 # ------------------------------------------------------------------ waves on the surface
 
 
 def _radial(l, x, regular: bool):
-    """z_l(x) and (x z_l)'/x for orders l (L,) at arguments x (..., Q, 1)."""
-    j = sps.spherical_jn(l, x)
-    jd = sps.spherical_jn(l, x, derivative=True)
+    """z_l(x) and (x z_l)'/x for orders l (L,) at arguments x (..., Q, 1); h_l = j_l + i y_l.
+
+    The values are those of scipy (``derivative=True`` for z_l'), differentiable in x
+    through :func:`chiropt.particles._spherical_bessel.spherical_bessel`.
+    """
+    j = spherical_bessel(x, l, "j")
+    jd = spherical_bessel(x, l, "j", True)
     if regular:
         z, zd = j, jd
     else:
-        z = j + 1j * sps.spherical_yn(l, x)
-        zd = jd + 1j * sps.spherical_yn(l, x, derivative=True)
+        z = j + 1j * spherical_bessel(x, l, "y")
+        zd = jd + 1j * spherical_bessel(x, l, "y", True)
     return z, z / x + zd
+
+
+def _cross(a, b):
+    return np.stack([a[..., 1] * b[..., 2] - a[..., 2] * b[..., 1],
+                     a[..., 2] * b[..., 0] - a[..., 0] * b[..., 2],
+                     a[..., 0] * b[..., 1] - a[..., 1] * b[..., 0]], axis=-1)
 
 
 def _surface_waves(kr, Y, X, nvec, ls, regular: bool):
@@ -178,12 +209,12 @@ def _surface_waves(kr, Y, X, nvec, ls, regular: bool):
     """
     z, d = _radial(ls, kr[..., None], regular)                     # (..., Q, K)
     rhat = nvec[:, None, :]                                         # (Q, 1, 3)
-    rxX = onp.cross(rhat, X)                                        # (Q, K, 3)
+    rxX = _cross(rhat, X)                                           # (Q, K, 3)
     sq = onp.sqrt(ls * (ls + 1.0))
     M = z[..., None] * X
     N = (1j * sq * z / kr[..., None] * Y)[..., None] * rhat + d[..., None] * rxX
-    W = onp.stack([N, M], axis=-2)
-    D = onp.stack([M, N], axis=-2)
+    W = np.stack([N, M], axis=-2)
+    D = np.stack([M, N], axis=-2)
     return W, D
 
 
@@ -203,13 +234,13 @@ def _qmatrices(k, k1, th, w, r, r_th, nmax: int, ms_wanted):
     dict m -> (Q, RgQ, l_values): arrays (W, 2L, 2L) in the order (l, tau) with
     tau = 0 (N), 1 (M), rows v (test modes), columns u (interior modes).
     """
-    s, co = onp.sin(th), onp.cos(th)
-    rhat = onp.stack([s, 0 * s, co], axis=-1)                       # phi = 0
-    that = onp.stack([co, 0 * s, -s], axis=-1)
+    s, co = np.sin(th), np.cos(th)
+    rhat = np.stack([s, 0 * s, co], axis=-1)                        # phi = 0
+    that = np.stack([co, 0 * s, -s], axis=-1)
     normal = rhat - (r_th / r)[:, None] * that                      # (Q, 3)
     jac = 2 * math.pi * w * r ** 2 * s                              # (Q,)
-    Y = onp.asarray(spherical_harmonics(rhat, nmax))[:, 1:]          # (Q, K)
-    X = onp.asarray(vector_harmonics(rhat, nmax))                    # (Q, K, 3)
+    Y = spherical_harmonics(rhat, nmax)[:, 1:]                      # (Q, K)
+    X = vector_harmonics(rhat, nmax)                                # (Q, K, 3)
     _, ls2, ms2 = mode_table(nmax)
     ls, ms = ls2[0::2], ms2[0::2]                                   # (K,)
     ms_wanted = list(ms_wanted)
@@ -223,7 +254,9 @@ def _qmatrices(k, k1, th, w, r, r_th, nmax: int, ms_wanted):
     lm_of = {(int(l), int(m)): i for i, (l, m) in enumerate(zip(ls, ms, strict=True))}
     out = {}
     kk, kk1 = k[:, None, None], k1[:, None, None]
-    nW, nQ = len(k), len(th)
+    nW, nQ = len(getval(k)), len(getval(th))
+    nrm = normal[None, :, None, None, :]
+    jac5 = jac[None, :, None, None, None]
     for m in ms_wanted:
         lv = onp.arange(max(1, abs(m)), nmax + 1)
         L2 = 2 * len(lv)
@@ -231,18 +264,18 @@ def _qmatrices(k, k1, th, w, r, r_th, nmax: int, ms_wanted):
         iv = onp.array([lm_of[(int(l), -m)] for l in lv])
         sign_v = (-1.0) ** m
         A, Ad = Wi[:, :, iu], Di[:, :, iu]                           # (W, Q, L, 2, 3)
-        nA = onp.cross(normal[None, :, None, None, :], A) * jac[None, :, None, None, None]
+        nA = _cross(nrm, A) * jac5
         # rows (l_u, tau_u) x (q, xyz), columns of the contraction
-        nA = onp.moveaxis(nA, 1, 3).reshape(nW, L2, 3 * nQ)
-        Ad = onp.moveaxis(Ad * jac[None, :, None, None, None], 1, 3).reshape(nW, L2, 3 * nQ)
+        nA = np.reshape(np.moveaxis(nA, 1, 3), (nW, L2, 3 * nQ))
+        Ad = np.reshape(np.moveaxis(Ad * jac5, 1, 3), (nW, L2, 3 * nQ))
         mats = []
         for B, Bd in ((Wo[:, :, iv], Do[:, :, iv]), (Wr[:, :, iv], Dr[:, :, iv])):
             # n.(A x curl B) = k (n x A).Bd ;  n.(B x curl A) = k1 (n x B).Ad
-            nB = onp.cross(normal[None, :, None, None, :], B)
-            nB = onp.moveaxis(nB, 1, 3).reshape(nW, L2, 3 * nQ)
-            Bd = onp.moveaxis(Bd, 1, 3).reshape(nW, L2, 3 * nQ)
-            t1 = kk * onp.matmul(Bd, onp.swapaxes(nA, -1, -2))   # (W, v, u)
-            t2 = kk1 * onp.matmul(nB, onp.swapaxes(Ad, -1, -2))
+            nB = _cross(nrm, B)
+            nB = np.reshape(np.moveaxis(nB, 1, 3), (nW, L2, 3 * nQ))
+            Bd = np.reshape(np.moveaxis(Bd, 1, 3), (nW, L2, 3 * nQ))
+            t1 = kk * np.matmul(Bd, np.swapaxes(nA, -1, -2))       # (W, v, u)
+            t2 = kk1 * np.matmul(nB, np.swapaxes(Ad, -1, -2))
             mats.append(sign_v * (t1 - t2))
         out[m] = (mats[0], mats[1], lv)
     return out
@@ -259,15 +292,19 @@ def _mirror_mask(lv):
 
 
 def _solve_t(Q, RgQ):
-    """T = -RgQ Q^-1 with row and column equilibration of Q, (W, n, n)."""
-    dr = 1.0 / onp.max(onp.abs(Q), axis=-1)                          # rows
-    Qr = Q * dr[..., :, None]
-    dc = 1.0 / onp.max(onp.abs(Qr), axis=-2)                         # columns
-    Qs = Qr * dc[..., None, :]
+    """T = -RgQ Q^-1 with row and column equilibration of Q, (W, n, n).
+
+    The scale factors are detached constants: T does not depend on them, so the
+    derivative of the scaled solve is the derivative of -RgQ Q^-1.
+    """
+    Qv = getval(Q)
+    dr = 1.0 / onp.max(onp.abs(Qv), axis=-1)                          # rows
+    dc = 1.0 / onp.max(onp.abs(Qv * dr[..., :, None]), axis=-2)       # columns
+    Qs = Q * dr[..., :, None] * dc[..., None, :]
     R = RgQ * dc[..., None, :]
     # X Qs = R  ->  Qs^T X^T = R^T ; then RgQ Q^-1 = X D_r
-    Xt = onp.linalg.solve(onp.swapaxes(Qs, -1, -2), onp.swapaxes(R, -1, -2))
-    return -onp.swapaxes(Xt, -1, -2) * dr[..., None, :]
+    Xt = np.linalg.solve(np.swapaxes(Qs, -1, -2), np.swapaxes(R, -1, -2))
+    return -np.swapaxes(Xt, -1, -2) * dr[..., None, :]
 
 
 # ------------------------------------------------------------------ public API
@@ -298,6 +335,8 @@ def default_orders(x_max: float, lmax: int, aspect: float = 1.0):
     (Mishchenko et al. use a multiple of n_max). Cylinders add 8 orders (their edges
     make the convergence algebraic, not geometric). tests/test_ebcm.py checks that
     raising both changes a spheroid's T-matrix by < 1e-8 and a cylinder's by < ~1e-4.
+    These integers are piecewise constant in the sizes and k_host: a gradient is that
+    of the method at the orders chosen at the current point.
     """
     nmax = max(lmax + 4, math.ceil(x_max + 4.05 * x_max ** (1 / 3)) + 4
                + math.ceil(2 * (aspect - 1)))
@@ -305,22 +344,55 @@ def default_orders(x_max: float, lmax: int, aspect: float = 1.0):
 
 
 def _check(k_host, m_rel, sizes: dict, lmax):
-    k = onp.atleast_1d(onp.asarray(getval(k_host), dtype=float))
-    mr = onp.atleast_1d(onp.asarray(getval(m_rel), dtype=complex))
-    k, mr = onp.broadcast_arrays(k, mr)
-    if k.ndim != 1:
-        raise InputError("k_host", f"must be a 1-D array (W,); got shape {k.shape}")
-    if not onp.all(onp.isfinite(k)) or onp.any(k <= 0):
-        raise InputError("k_host", f"must be finite and > 0 [1/m]; got {k!r}")
-    if onp.any(mr.imag < 0) or not onp.all(onp.isfinite(mr)):
+    """Validate on detached values; return traced k (W,) real and m_rel (W,) complex."""
+    kv = onp.atleast_1d(onp.asarray(getval(k_host)))
+    mv = onp.atleast_1d(onp.asarray(getval(m_rel)))
+    shape = onp.broadcast_shapes(kv.shape, mv.shape)
+    if len(shape) != 1:
+        raise InputError("k_host", f"must be a 1-D array (W,); got shape {shape}")
+    kf = onp.real(kv).astype(float)
+    mc = mv.astype(complex)
+    if not onp.all(onp.isfinite(kf)) or onp.any(kf <= 0):
+        raise InputError("k_host", f"must be finite and > 0 [1/m]; got {kv!r}")
+    if onp.any(mc.imag < 0) or not onp.all(onp.isfinite(mc)):
         raise InputError("m_rel", "relative index must be finite with Im >= 0 "
-                         f"(exp(-i omega t), passive); got {mr!r}")
+                         f"(exp(-i omega t), passive); got {mv!r}")
     for key, v in sizes.items():
-        if not (onp.isfinite(v) and v > 0):
+        v = getval(v)
+        if not (onp.ndim(v) == 0 and onp.isfinite(v) and onp.isreal(v) and v > 0):
             raise InputError(key, f"must be a finite length > 0 [m]; got {v!r}")
     if isinstance(lmax, bool) or not isinstance(lmax, (int, onp.integer)) or lmax < 1:
         raise InputError("lmax", f"must be an integer >= 1; got {lmax!r}")
-    return k.copy(), mr.copy()
+    k = k_host if not onp.iscomplexobj(kv) else np.real(k_host)
+    k = k * onp.ones(shape)
+    mr = m_rel * onp.ones(shape, dtype=complex)
+    return k, mr
+
+
+def _assembly(lmax: int, blocks_lv: dict):
+    """Gather indices placing the m-blocks into the (2K, 2K) T-matrix.
+
+    Returns, for each m >= 0, the (l, tau) rows kept from the block (l <= lmax), and an
+    index (2K, 2K) into the concatenation [vec(T_0), vec(T_1), vec(T_-1), ..., 0] of the
+    flattened kept blocks followed by one zero (entries between different m).
+    """
+    tau, ls, ms = mode_table(lmax)
+    index = {(int(t), int(l), int(m)): i
+             for i, (t, l, m) in enumerate(zip(tau, ls, ms, strict=True))}
+    n = len(tau)
+    gather = onp.full((n, n), -1, dtype=int)
+    keeps = {}
+    offset = 0
+    for m, lv in blocks_lv.items():
+        keep = onp.array([2 * i + t for i, l in enumerate(lv) if l <= lmax for t in (0, 1)])
+        keeps[m] = keep
+        nk = len(keep)
+        for mm in ((m, -m) if m else (0,)):
+            dest = onp.array([index[(t, int(l), mm)] for l in lv if l <= lmax for t in (0, 1)])
+            gather[dest[:, None], dest[None, :]] = offset + onp.arange(nk * nk).reshape(nk, nk)
+            offset += nk * nk
+    gather[gather < 0] = offset                                     # the appended zero
+    return keeps, gather
 
 
 def axisymmetric_tmatrix(k_host, m_rel, surface, lmax: int, nmax: int, *, mirror=True):
@@ -335,41 +407,46 @@ def axisymmetric_tmatrix(k_host, m_rel, surface, lmax: int, nmax: int, *, mirror
     nmax : int — internal EBCM order (>= lmax); the result is truncated to lmax
     mirror : bool — the body is symmetric under z -> -z: the Q elements that vanish by
         that symmetry (same type, l + l' odd; N-M, l + l' even) are set to exactly zero
-        instead of being left at the round-off of cancelling integrals (which the
-        ill-conditioned inversion would amplify); this decouples the two parity classes
-        as in Mishchenko, Travis & Lacis (2002) §5.2
+        (multiplication by a constant 0/1 mask) instead of being left at the round-off
+        of cancelling integrals (which the ill-conditioned inversion would amplify);
+        this decouples the two parity classes as in Mishchenko, Travis & Lacis (2002)
+        §5.2
 
     Returns
     -------
-    complex array (W, 2K, 2K) in the mode order of :mod:`chiropt.multipole.vsw`.
+    complex array (W, 2K, 2K) in the mode order of :mod:`chiropt.multipole.vsw`,
+    differentiable by autograd in k_host, m_rel and the surface arrays. Entries between
+    different m are exact zeros.
 
     References
     ----------
     Module docstring (derivation); Waterman (1971); Mishchenko, Travis & Lacis (2002)
     §5.2-5.3.
     """
-    k, mr = onp.asarray(k_host, float), onp.asarray(m_rel, complex)
+    k, mr = k_host, m_rel
     th, w, r, r_th = surface
     blocks = _qmatrices(k, k * mr, th, w, r, r_th, nmax, range(0, lmax + 1))
-    tau, ls, ms = mode_table(lmax)
-    index = {(int(t), int(l), int(m)): i
-             for i, (t, l, m) in enumerate(zip(tau, ls, ms, strict=True))}
-    T = onp.zeros((len(k), len(tau), len(tau)), dtype=complex)
+    keeps, gather = _assembly(lmax, {m: b[2] for m, b in blocks.items()})
+    nW = len(getval(k))
+    flat = []
     for m, (Q, RgQ, lv) in blocks.items():
         if mirror:
             allowed = _mirror_mask(lv)
             Q, RgQ = Q * allowed, RgQ * allowed
         Tm = _solve_t(Q, RgQ)                                       # (W, 2L, 2L)
-        keep = onp.array([2 * i + t for i, l in enumerate(lv) if l <= lmax for t in (0, 1)])
+        keep = keeps[m]
         Tm = Tm[:, keep[:, None], keep[None, :]]
-        # the -m block: T_{-m} = (-1)^(tau + tau') T_m (mirror symmetry y -> -y of an
-        # axisymmetric body; checked against the direct -m block in tests/test_ebcm.py)
-        tt = keep % 2
-        flip = (-1.0) ** (tt[:, None] + tt[None, :])
-        for mm, block in ((m, Tm), (-m, flip * Tm)) if m else ((0, Tm),):
-            dest = onp.array([index[(t, int(l), mm)] for l in lv if l <= lmax for t in (0, 1)])
-            T[:, dest[:, None], dest[None, :]] = block
-    return T
+        flat.append(np.reshape(Tm, (nW, -1)))
+        if m:
+            # the -m block: T_{-m} = (-1)^(tau + tau') T_m (mirror symmetry y -> -y of
+            # an axisymmetric body; checked against the direct -m block in
+            # tests/test_ebcm.py)
+            tt = keep % 2
+            flip = (-1.0) ** (tt[:, None] + tt[None, :])
+            flat.append(np.reshape(flip * Tm, (nW, -1)))
+    flat.append(onp.zeros((nW, 1), dtype=complex))
+    flat = np.concatenate(flat, axis=1)
+    return flat[:, gather]
 
 
 def spheroid_tmatrix(k_host, m_rel, a, c, lmax: int, *, nmax=None, n_quad=None):
@@ -391,16 +468,19 @@ def spheroid_tmatrix(k_host, m_rel, a, c, lmax: int, *, nmax=None, n_quad=None):
 
     Notes
     -----
-    Plain numpy, not differentiable by autograd. Accurate to ~1e-9 (unitarity) for
-    k max(a, c) <= 3 and aspect ratios 0.5-2 (tests/test_ebcm.py).
+    Differentiable by autograd in k_host, m_rel, a and c (at the integer orders chosen
+    at the current point). Accurate to ~1e-9 (unitarity) for k max(a, c) <= 3 and
+    aspect ratios 0.5-2 (tests/test_ebcm.py); gradients agree with central finite
+    differences to ~1e-8 relative (tests/test_ebcm_ad.py).
 
     References
     ----------
     Module docstring; Mishchenko, Travis & Lacis (2002) §5.2-5.3.
     """
     k, mr = _check(k_host, m_rel, {"a": a, "c": c}, lmax)
-    a, c = float(getval(a)), float(getval(c))
-    dn, dq = default_orders(float(k.max() * max(a, c)), lmax, max(a, c) / min(a, c))
+    av, cv = float(getval(a)), float(getval(c))
+    kmax = float(onp.max(getval(k)))
+    dn, dq = default_orders(kmax * max(av, cv), lmax, max(av, cv) / min(av, cv))
     nmax = dn if nmax is None else int(nmax)
     n_quad = dq if n_quad is None else int(n_quad)
     return axisymmetric_tmatrix(k, mr, spheroid_surface(a, c, n_quad), lmax, max(nmax, lmax))
@@ -425,13 +505,17 @@ def cylinder_tmatrix(k_host, m_rel, radius, height, lmax: int, *, nmax=None, n_q
 
     Notes
     -----
-    Plain numpy, not differentiable by autograd. The edges make the convergence in
-    n_max algebraic, not geometric: measured residuals of the lossless identity and of
-    reciprocity (full internal order, tests/test_ebcm.py, benchmarks/ebcm.py) are
-    ~1e-7-1e-5 for m_rel ~ 1.5 and k r_max <= 1.5, ~1e-4 at k r_max = 3, and ~1e-3
-    for silicon-like disks (m_rel ~ 3.5, near the dipole resonances); T elements change
-    by about as much when n_max is raised. Adequate for design exploration; check
-    critical results against another method.
+    Differentiable by autograd in k_host, m_rel, radius and height (at the integer
+    orders and the node split chosen at the current point; the nodes move with the edge
+    angle). The edges make the convergence in n_max algebraic, not geometric: measured
+    residuals of the lossless identity and of reciprocity (full internal order,
+    tests/test_ebcm.py, benchmarks/ebcm.py) are ~1e-7-1e-5 for m_rel ~ 1.5 and
+    k r_max <= 1.5, ~1e-4 at k r_max = 3, and ~1e-3 for silicon-like disks (m_rel ~ 3.5,
+    near the dipole resonances); T elements change by about as much when n_max is
+    raised. Adequate for design exploration; check critical results against another
+    method. The gradient is exact for the discrete method (it agrees with central
+    finite differences at fixed orders, tests/test_ebcm_ad.py); as a derivative of the
+    physical T-matrix it carries the same truncation error.
 
     References
     ----------
@@ -439,22 +523,24 @@ def cylinder_tmatrix(k_host, m_rel, radius, height, lmax: int, *, nmax=None, n_q
     cylinders, split quadrature); Waterman (1971).
     """
     k, mr = _check(k_host, m_rel, {"radius": radius, "height": height}, lmax)
-    a, h = float(getval(radius)), float(getval(height))
-    half = 0.5 * h
-    aspect = max(a, half) / min(a, half)
-    dn, dq = default_orders(float(k.max() * math.hypot(a, half)), lmax, aspect)
+    av, hv = float(getval(radius)), float(getval(height))
+    half = 0.5 * hv
+    aspect = max(av, half) / min(av, half)
+    kmax = float(onp.max(getval(k)))
+    dn, dq = default_orders(kmax * math.hypot(av, half), lmax, aspect)
     dn += _CYLINDER_EXTRA  # edges: algebraic convergence in n_max
     dq = max(dq, 8 * dn)
     nmax = dn if nmax is None else int(nmax)
     n_quad = dq if n_quad is None else int(n_quad)
-    return axisymmetric_tmatrix(k, mr, cylinder_surface(a, h, n_quad), lmax, max(nmax, lmax))
+    return axisymmetric_tmatrix(k, mr, cylinder_surface(radius, height, n_quad), lmax,
+                                max(nmax, lmax))
 
 
 @dataclass
 class Spheroid:
     """A homogeneous spheroid, axis along z: semi-axes a (x, y) and c (z) [m],
     index (W,) complex, host index n_host (as :class:`chiropt.multipole.tmatrix.Sphere`).
-    Not autograd-differentiable (values are detached)."""
+    Differentiable by autograd in a, c, index, n_host and k_host."""
 
     a: Any
     c: Any
@@ -464,7 +550,7 @@ class Spheroid:
     n_quad: int | None = None
 
     def tmatrix(self, k_host, lmax: int):
-        m = getval(self.index) / getval(self.n_host)
+        m = self.index / self.n_host
         m = m * onp.ones(onp.shape(getval(k_host)))
         return spheroid_tmatrix(k_host, m, self.a, self.c, lmax, nmax=self.nmax,
                                 n_quad=self.n_quad)
@@ -474,7 +560,7 @@ class Spheroid:
 class Cylinder:
     """A homogeneous finite cylinder, axis along z: radius and height [m], index (W,)
     complex, host index n_host (as :class:`chiropt.multipole.tmatrix.Sphere`).
-    Not autograd-differentiable (values are detached)."""
+    Differentiable by autograd in radius, height, index, n_host and k_host."""
 
     radius: Any
     height: Any
@@ -484,7 +570,7 @@ class Cylinder:
     n_quad: int | None = None
 
     def tmatrix(self, k_host, lmax: int):
-        m = getval(self.index) / getval(self.n_host)
+        m = self.index / self.n_host
         m = m * onp.ones(onp.shape(getval(k_host)))
         return cylinder_tmatrix(k_host, m, self.radius, self.height, lmax, nmax=self.nmax,
                                 n_quad=self.n_quad)
