@@ -244,6 +244,17 @@ def background_components(st: Structure, orders: OrderSet, coef=None):
     return zeros, U0, X0
 
 
+def emission_phases(orders: OrderSet, rho, h, pref):
+    """Phase factors of the orders for particles at in-plane rho (N, 2) and heights h (N,)
+    above z_top [m]: q.rho and kz h (W, G, N), and the emission factors
+    pref exp(-i q.rho -/+ i kz h) of an upward / downward wave (pref (W, G))."""
+    W, G = np.shape(orders.kz)
+    qr = np.matmul(orders.q, np.transpose(rho))
+    kzh = np.reshape(orders.kz, (W, G, 1)) * h
+    pref3 = np.reshape(pref, (W, G, 1))
+    return qr, kzh, pref3 * np.exp(-1j * qr - 1j * kzh), pref3 * np.exp(-1j * qr + 1j * kzh)
+
+
 def combine_orders(st: Structure, coef, up_c, down_c, U0, X0):
     """Total outgoing waves from the particles' emission and the background.
 
@@ -342,11 +353,7 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
     # -- plane-wave channels of every order ------------------------------------------
     vec_up, vec_down = _sp_vectors(orders)
     pref = 1j * k[:, None] ** 2 / (2.0 * st.lattice.area * orders.kz)  # (W, G)
-    qr = np.matmul(orders.q, np.transpose(rho))                # (W, G, N)
-    kzh = np.reshape(orders.kz, (W, G, 1)) * h                # (W, G, N)
-    pref3 = np.reshape(pref, (W, G, 1))
-    ph_up = pref3 * np.exp(-1j * qr - 1j * kzh)    # emission, upward
-    ph_down = pref3 * np.exp(-1j * qr + 1j * kzh)  # emission, downward
+    qr, kzh, ph_up, ph_down = emission_phases(orders, rho, h, pref)
 
     coef = None
     if st.has_substrate:

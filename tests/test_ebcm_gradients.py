@@ -9,7 +9,6 @@ import pytest
 import scipy.special as sps
 from autograd import grad
 
-from chiropt.errors import InputError
 from chiropt.multipole.tmatrix import sphere_tmatrix
 from chiropt.multipole.vsw import mode_table, planewave_coefficients
 from chiropt.particles import ebcm
@@ -221,22 +220,3 @@ def test_classes_differentiable_in_size_and_index():
     g = grad(f)(p0)
     fd = np.array([_fd(lambda t, i=i: f(p0 + t * np.eye(3)[i]), 0.0, 1e-4) for i in range(3)])
     np.testing.assert_allclose(g, fd, rtol=1e-6, atol=1e-6 * np.abs(fd).max())
-    # same values as the plain-numpy classes (reference: chiropt.particles.ebcm)
-    c0 = ebcm.Cylinder(80 * NM, 100 * NM, (3.8 + 0.02j) * np.ones(2), N_HOST)
-    c1 = ebcm.Cylinder(80 * NM, 100 * NM, (3.8 + 0.02j) * np.ones(2), N_HOST)
-    assert np.abs(c1.tmatrix(k, 2) - c0.tmatrix(k, 2)).max() < 1e-12
-
-
-@pytest.mark.parametrize("kwargs, key", [
-    ({"m_rel": np.array([1.5 - 0.1j])}, "m_rel"),
-    ({"k_host": np.array([-1.0])}, "k_host"),
-    ({"a": -1.0}, "a"),
-    ({"lmax": 0}, "lmax"),
-])
-def test_bad_input_raises(kwargs, key):
-    # same checks as chiropt.particles.ebcm
-    args = {"k_host": np.array([1.0]), "m_rel": np.array([1.5 + 0j]), "a": 1.0, "c": 0.5,
-            "lmax": 2}
-    args.update(kwargs)
-    with pytest.raises(InputError, match=key):
-        ebcm.spheroid_tmatrix(**args)

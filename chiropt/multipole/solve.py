@@ -44,6 +44,7 @@ from chiropt.solve import (
     Solution,
     background_components,
     combine_orders,
+    emission_phases,
     far_orders_and_anomalies,
     make_orders,
     stack_for_orders,
@@ -190,11 +191,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     P = order_projections(orders.k_up, orders.s, orders.p_up, lmax)
     parity = down_parity(lmax)
     pref = 2 * np.pi / (area * k[:, None] * orders.kz)                # (W, G)
-    qr = np.matmul(orders.q, np.transpose(rho))                        # (W, G, N)
-    kzh = np.reshape(orders.kz, (W, G, 1)) * h                         # (W, G, N)
-    pref3 = np.reshape(pref, (W, G, 1))
-    ph_up = pref3 * np.exp(-1j * qr - 1j * kzh)                        # emission, upward
-    ph_dn = pref3 * np.exp(-1j * qr + 1j * kzh)                        # emission, downward
+    qr, kzh, ph_up, ph_dn = emission_phases(orders, rho, h, pref)
 
     coef = None
     if st.has_substrate:

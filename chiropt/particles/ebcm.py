@@ -536,6 +536,11 @@ def cylinder_tmatrix(k_host, m_rel, radius, height, lmax: int, *, nmax=None, n_q
                                 max(nmax, lmax))
 
 
+def _relative_index(index, n_host, k_host):
+    """Particle index over host index, broadcast to the wavelengths of ``k_host``."""
+    return index / n_host * onp.ones(onp.shape(getval(k_host)))
+
+
 @dataclass
 class Spheroid:
     """A homogeneous spheroid, axis along z: semi-axes a (x, y) and c (z) [m],
@@ -550,8 +555,7 @@ class Spheroid:
     n_quad: int | None = None
 
     def tmatrix(self, k_host, lmax: int):
-        m = self.index / self.n_host
-        m = m * onp.ones(onp.shape(getval(k_host)))
+        m = _relative_index(self.index, self.n_host, k_host)
         return spheroid_tmatrix(k_host, m, self.a, self.c, lmax, nmax=self.nmax,
                                 n_quad=self.n_quad)
 
@@ -570,7 +574,6 @@ class Cylinder:
     n_quad: int | None = None
 
     def tmatrix(self, k_host, lmax: int):
-        m = self.index / self.n_host
-        m = m * onp.ones(onp.shape(getval(k_host)))
+        m = _relative_index(self.index, self.n_host, k_host)
         return cylinder_tmatrix(k_host, m, self.radius, self.height, lmax, nmax=self.nmax,
                                 n_quad=self.n_quad)
