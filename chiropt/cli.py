@@ -47,7 +47,7 @@ def _cmd_evaluate(args) -> int:
         raise InputError("--grad", "needs --json (derivatives are reported in the JSON object)")
     from chiropt.report.spectra import plot_far_field
 
-    out_dir = Path(args.out) if args.out else Path(args.design).resolve().parent
+    out_dir = Path(args.out) if args.out else Path.cwd()
     out_dir.mkdir(parents=True, exist_ok=True)
     stem = Path(args.design).stem
     png = plot_far_field(response, out_dir / f"{stem}-spectrum.png")
@@ -143,9 +143,11 @@ def _cmd_run(args) -> int:
     summaries = run_goal_file(args.goal, out=args.out, workers=args.workers,
                               progress=not args.quiet)
     for s in summaries:
-        print(f"{s.run_dir}: {s.status}; {s.n_evaluations} evaluations, front of "
-              f"{len(s.front)} designs, {len(s.candidates)} candidates")
+        print(f"{s.run_dir}: {s.status}; {s.n_evaluations} evaluations ({s.n_failed} failed), "
+              f"front of {len(s.front)} design{'' if len(s.front) == 1 else 's'}, "
+              f"{len(s.candidates)} candidates")
     if any(s.status == "interrupted" for s in summaries):
+        print("chiropt: interrupted; run the same command to resume", file=sys.stderr)
         return 130
     return EXIT_OK if all(s.status == "complete" for s in summaries) else EXIT_FAILED
 
@@ -179,7 +181,7 @@ def build_parser() -> argparse.ArgumentParser:
     ev = sub.add_parser("evaluate", help="solve one design file and report its spectra")
     ev.add_argument("design", help="design file (YAML)")
     ev.add_argument("--json", action="store_true", help="print one JSON object on stdout")
-    ev.add_argument("--out", help="folder for plots (default: beside the design file)")
+    ev.add_argument("--out", help="folder for plots (default: the current folder)")
     ev.add_argument("--grad", metavar="PATH[,PATH...]",
                     help="with --json: exact derivatives of every spectrum with respect to these "
                          "design quantities, e.g. particles[0].radius_nm,lattice.period_nm")
@@ -217,7 +219,7 @@ def build_parser() -> argparse.ArgumentParser:
     ma.set_defaults(func=_cmd_materials)
     ru = sub.add_parser("run", help="optimize a goal file into a run folder (resumes)")
     ru.add_argument("goal", help="goal file (YAML); see `chiropt goal --explain`")
-    ru.add_argument("--out", help="folder of run folders (default: runs/ at the repository root)")
+    ru.add_argument("--out", help="folder of run folders (default: runs/ in the current folder)")
     ru.add_argument("--workers", type=int, default=None,
                     help="worker processes (default: all cores; 0: in this process)")
     ru.add_argument("--quiet", action="store_true", help="no progress display")

@@ -27,7 +27,24 @@ Searches
 - Resume: the same command replays the stored evaluations (``CachedProblem``) and goes on.
   The wall-time budget counts per invocation; when it runs out, fresh evaluations stop
   (``DeadlineReached``, never stored) and the report is written from what is stored.
+- Resume identity (``goal_identity``): everything that changes evaluations; not the
+  ``description`` and not the budgets (``max_evals_per_start``, ``budget.evaluations``,
+  ``budget.wall_time``), which may grow to extend a finished run (see the store's
+  ``supersede``).
 - Feasible: status ok and every scaled constraint ``<= FEASIBILITY_TOL``.
+- Front rows that coincide within ``merge_tolerance`` (every variable within
+  ``max(xtol_rel |x|, MERGE_FRACTION (max - min))``) are merged into one row.
+
+Processes (common practice, no source)
+--------------------------------------
+- Everything is validated (workers, goals of every material, the pre-run checks) before
+  any run folder is created: a rejected run leaves no files.
+- A run folder is locked (``fcntl.flock`` on ``.lock``, holding the pid and host) for the
+  whole run; a second run on it is refused (``RunFolderBusy``). The kernel drops the lock
+  of a dead process, so a stale lock is taken over.
+- Workers die with the run (``search.executor``); one Ctrl-C stops every search of every
+  material (status ``interrupted``, resumable); a search that raises is a failed search
+  (status ``failed: ...``), and so is a store that changed under the report.
 """
 
 from __future__ import annotations
@@ -35,10 +52,11 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import socket
 import sqlite3
 import sys
 import time
-from concurrent.futures import FIRST_EXCEPTION, wait
+from concurrent.futures import FIRST_COMPLETED, wait
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -57,7 +75,13 @@ from chiropt.search.fronts import Scalarized, epsilon_constraint, weighted_sum
 from chiropt.search.multistart import sobol_starts, start_seed
 from chiropt.search.pareto import hypervolume, non_dominated
 from chiropt.sensitivity import compute_quantities
-from chiropt.store.evaluations import CachingWrap, EvaluationStore
+from chiropt.report.labels import objective_label, spec_label
+from chiropt.store.evaluations import CachingWrap, EvaluationStore, close_all
+
+try:
+    import fcntl
+except ImportError:  # not a POSIX system: no folder lock
+    fcntl = None
 
 __all__ = ["FEASIBILITY_TOL", "RunSummary", "plan_searches", "run_goal", "run_goal_file",
            "write_report"]
@@ -65,7 +89,9 @@ __all__ = ["FEASIBILITY_TOL", "RunSummary", "plan_searches", "run_goal", "run_go
 FEASIBILITY_TOL = 1e-6
 STORE_NAME = "evaluations.sqlite"
 STOP_NAME = ".stop"
+LOCK_NAME = ".lock"
 REPRODUCE_TOL = 1e-9
+MERGE_FRACTION = 1e-3
 
 
 # ---------------------------------------------------------------------------------------------
@@ -84,6 +110,7 @@ class SearchTask:
     max_evals: int
     deadline: float | None
     stop_file: str | None = None
+    supersede_tag: str | None = None
 
 
 @dataclass
@@ -96,9 +123,18 @@ class TaskOutcome:
 
 
 def _run_task(task: SearchTask) -> TaskOutcome:
+    try:
+        return _search(task)
+    except Exception as exc:  # a search that dies is a failed search, never a silent one
+        return TaskOutcome(task.index, "error", f"{type(exc).__name__}: {exc}")
+    finally:
+        close_all()  # leaves no -wal/-shm behind once the last connection closes
+
+
+def _search(task: SearchTask) -> TaskOutcome:
     goal = task.goal
     problem = GoalProblem(goal, deadline=task.deadline, stop_file=task.stop_file)
-    wrap = CachingWrap(task.store_path)
+    wrap = CachingWrap(task.store_path, task.supersede_tag)
     s = goal.search
     options = dict(max_evals=task.max_evals, xtol_rel=s.xtol_rel, ftol_rel=s.ftol_rel,
                    feasibility_tol=FEASIBILITY_TOL)
@@ -129,13 +165,74 @@ def plan_searches(goal: Goal) -> tuple[int, int]:
     return n, cap
 
 
-def goal_hash(goal: Goal) -> str:
-    """Hash of everything that decides the evaluations of a run (not the wall time)."""
+def goal_identity(goal: Goal) -> str:
+    """Hash of what decides a run's evaluations: not its description, not its budgets."""
     d = goal.to_dict()
-    d["budget"] = {k: v for k, v in d["budget"].items() if k != "wall_time"}
-    d["evaluation_cap"] = plan_searches(goal)[1]
+    for key in ("description", "budget"):
+        d.pop(key, None)
+    d["search"] = {k: v for k, v in d["search"].items() if k != "max_evals_per_start"}
     text = json.dumps(d, sort_keys=True, default=str)
     return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+def merge_tolerance(goal: Goal, x: onp.ndarray) -> onp.ndarray:
+    """Per-variable distance under which two designs count as one [user units]."""
+    width = onp.array([v.upper - v.lower for v in goal.variables], float)
+    return onp.maximum(goal.search.xtol_rel * onp.abs(x), MERGE_FRACTION * width)
+
+
+def merge_coinciding(goal: Goal, X: onp.ndarray, order) -> list[int]:
+    """Indices of ``order`` kept after dropping designs that coincide with an earlier one."""
+    kept: list[int] = []
+    for i in order:
+        if not any(onp.all(onp.abs(X[i] - X[j]) <= merge_tolerance(goal, X[j])) for j in kept):
+            kept.append(i)
+    return kept
+
+
+def front_indices(goal: Goal, X: onp.ndarray, F: onp.ndarray, pool: onp.ndarray) -> list[int]:
+    """Two objectives: the merged non-dominated rows of ``F`` within ``pool``, best first."""
+    senses = tuple(o.sense for o in goal.objectives)
+    if len(F) == 0:
+        return []
+    sign = onp.array([1.0 if s == "max" else -1.0 for s in senses])
+    mask = non_dominated(onp.where(pool[:, None], F, onp.nan), senses)
+    order = sorted(onp.flatnonzero(mask), key=lambda i: -sign[0] * F[i, 0])
+    return merge_coinciding(goal, X, order)
+
+
+class RunFolderBusy(InputError):
+    """Another live process runs the same run folder."""
+
+
+class RunLock:
+    """Exclusive OS lock of a run folder (see the module notes); ``release`` frees it."""
+
+    def __init__(self, run_dir: Path):
+        self.path = run_dir / LOCK_NAME
+        self.fd: int | None = None
+        self.previous = ""
+        if fcntl is None:
+            return
+        fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            holder = os.pread(fd, 200, 0).decode(errors="replace").strip() or "unknown"
+            os.close(fd)
+            raise RunFolderBusy("run", f"{run_dir} is being run by another process ({holder}); "
+                                       "wait for it to finish or stop it first") from None
+        self.previous = os.pread(fd, 200, 0).decode(errors="replace").strip()
+        os.ftruncate(fd, 0)
+        os.pwrite(fd, f"pid {os.getpid()} on {socket.gethostname()}\n".encode(), 0)
+        self.fd = fd
+
+    def release(self) -> None:
+        if self.fd is not None:
+            os.ftruncate(self.fd, 0)
+            fcntl.flock(self.fd, fcntl.LOCK_UN)
+            os.close(self.fd)
+            self.fd = None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -145,78 +242,129 @@ def goal_hash(goal: Goal) -> str:
 class Progress:
     """Reads new rows of the store and reports evaluations, best values, front, ETA.
 
-    ``emit`` receives one line of text (``None``: silent). Reads with its own read-only
-    connection, so it never competes with the writers.
+    ``emit`` receives one line of text (``None``: silent); ``bar`` is a tqdm bar on a
+    terminal (or None). Reads with its own read-only connection, so it never competes with
+    the writers. The front is the one the report will write (``front_indices``); the ETA
+    is the remaining evaluations of the unfinished searches (their caps, or the mean use
+    of the finished searches once some have finished) at the measured rate of this run.
     """
 
-    def __init__(self, store_path: str, goal: Goal, total: int, deadline: float | None,
-                 emit=None):
-        self.path, self.goal, self.total, self.deadline, self.emit = (
-            store_path, goal, total, deadline, emit)
+    def __init__(self, store_path: str, goal: Goal, tasks: list[str], task_cap: int,
+                 deadline: float | None, emit=None, bar=None):
+        self.path, self.goal, self.deadline, self.emit, self.bar = (
+            store_path, goal, deadline, emit, bar)
+        self.tasks, self.task_cap = tasks, task_cap
+        self.total = len(tasks) * task_cap
+        self.finished: set[str] = set()
         self.senses = tuple(o.sense for o in goal.objectives)
+        self.problem = GoalProblem(goal)
         self.last_id = 0
         self.count = 0
         self.failed = 0
-        self.front = onp.zeros((0, len(self.senses)))
+        self.per_task: dict[str, int] = {}
+        self.X = onp.zeros((0, len(goal.variables)))
+        self.F = onp.zeros((0, len(self.senses)))
+        self.front: list[int] = []
         self.worst = None
         self.t0 = time.time()
         self.n0: int | None = None
 
+    @staticmethod
+    def task_key(stage: str, start: int) -> str:
+        return stage if stage.startswith("front-") else f"start-{start}"
+
     def poll(self) -> None:
         try:
             conn = sqlite3.connect(f"file:{self.path}?mode=ro", uri=True, timeout=5.0)
-            rows = conn.execute("SELECT id, metrics, status FROM evaluations WHERE id > ? "
-                                "ORDER BY id", (self.last_id,)).fetchall()
-            conn.close()
+            try:
+                rows = conn.execute("SELECT id, stage, start, x, metrics, status FROM "
+                                    "evaluations WHERE id > ? ORDER BY id",
+                                    (self.last_id,)).fetchall()
+            finally:
+                conn.close()
         except sqlite3.Error:
             return
-        new = []
-        for id_, metrics, status in rows:
+        X, F = [], []
+        for id_, stage, start, x, metrics, status in rows:
             self.last_id = max(self.last_id, id_)
             self.count += 1
+            key = self.task_key(stage, start)
+            self.per_task[key] = self.per_task.get(key, 0) + 1
             if status != "ok":
                 self.failed += 1
                 continue
             m = json.loads(metrics)
             f, g = m.get("objectives"), m.get("constraints", [])
             if f is not None and all(v <= FEASIBILITY_TOL for v in g):
-                new.append(f)
+                X.append(json.loads(x))
+                F.append(f)
         if self.n0 is None:
             self.n0 = self.count
-        if new:
-            F = onp.concatenate([self.front, onp.asarray(new, float)])
+        if F:
+            self.X = onp.concatenate([self.X, onp.asarray(X, float)])
+            self.F = onp.concatenate([self.F, onp.asarray(F, float)])
             sign = onp.array([1.0 if s == "max" else -1.0 for s in self.senses])
-            worst = onp.min(F * sign, axis=0) * sign
-            self.worst = worst if self.worst is None else onp.where(
-                sign > 0, onp.minimum(self.worst, worst), onp.maximum(self.worst, worst))
-            self.front = F[non_dominated(F, self.senses)]
+            self.worst = onp.min(self.F * sign, axis=0) * sign
+            if len(self.senses) == 2:
+                # the same rule as the report, over every feasible evaluation so far
+                self.front = front_indices(self.goal, self.X, self.F,
+                                           onp.ones(len(self.F), bool))
+            else:
+                self.front = [int(onp.argmax(sign[0] * self.F[:, 0]))]
 
-    def line(self) -> str:
+    def remaining(self) -> tuple[int, bool]:
+        """(evaluations left, estimated from finished searches?)"""
+        used = [self.per_task.get(k, 0) for k in self.finished]
+        per = self.task_cap
+        est = bool(used)
+        if est:
+            per = min(self.task_cap, max(1, int(round(sum(used) / len(used)))))
+        left = sum(max(0, per - self.per_task.get(k, 0)) for k in self.tasks
+                   if k not in self.finished)
+        return left, est
+
+    def eta(self) -> str:
         el = time.time() - self.t0
         fresh = self.count - (self.n0 or 0)
-        eta = ""
-        if fresh > 0 and el > 0:
-            left = max(0, self.total - self.count) * el / fresh
-            if self.deadline is not None:
-                left = min(left, max(0.0, self.deadline - time.time()))
-            eta = f", ETA <= {_duration(left)}"
+        if fresh <= 0 or el <= 0:
+            return ""
+        left_n, est = self.remaining()
+        left = left_n * el / fresh
+        capped = self.deadline is not None and left > self.deadline - time.time()
+        if capped:
+            left = max(0.0, self.deadline - time.time())
+        word = "ETA ~" if est and not capped else "ETA <= "
+        return f"{word}{_duration(left)}"
+
+    def status(self) -> str:
         best = ""
-        if len(self.front):
+        if self.front:
             parts = []
             for k, o in enumerate(self.goal.objectives):
-                col = self.front[:, k]
+                col = self.F[self.front, k]
                 v = col.max() if o.sense == "max" else col.min()
-                parts.append(f"{o.label()} {v:.4g}")
-            best = "; best " + ", ".join(parts)
+                parts.append(f"{objective_label(o, self.problem)} {v:.4g}")
+            best = "best " + ", ".join(parts)
             if len(self.senses) == 2 and self.worst is not None:
-                hv = hypervolume(self.front, self.senses, self.worst)
+                hv = hypervolume(self.F[self.front], self.senses, self.worst)
                 best += f"; front {len(self.front)}, HV {hv:.4g}"
+        return best
+
+    def line(self) -> str:
+        best, eta = self.status(), self.eta()
         return (f"{self.count} evaluations ({self.failed} failed) of <= {self.total}"
-                f"{best}{eta}")
+                + (f"; {best}" if best else "") + (f", {eta}" if eta else ""))
 
     def report(self) -> None:
         self.poll()
-        if self.emit is not None:
+        if self.bar is not None:
+            self.bar.total = max(self.count, self.count + self.remaining()[0])
+            self.bar.n = self.count
+            self.bar.set_postfix_str(", ".join(
+                t for t in (f"{self.failed} failed", self.status(), self.eta()) if t),
+                refresh=False)
+            self.bar.refresh()
+        elif self.emit is not None:
             self.emit(self.line())
 
 
@@ -268,8 +416,22 @@ class RunSummary:
     front_objectives: onp.ndarray | None = None
 
 
+def _workers(workers) -> int:
+    n = (os.cpu_count() or 1) if workers is None else workers
+    if not isinstance(n, int) or isinstance(n, bool) or n < 0:
+        raise InputError("--workers", f"got {workers}, allowed an integer >= 0")
+    return n
+
+
+def validate_run(goal: Goal, workers: int | None = None) -> dict[str, Any]:
+    """Every check of a run that needs no run folder; return the base design's quantities."""
+    _workers(workers)
+    return check_goal(goal)
+
+
 def run_goal(goal: Goal, *, out: str | Path = "runs", workers: int | None = None,
-             progress: bool = True, interval_s: float = 2.0) -> RunSummary:
+             progress: bool = True, interval_s: float = 2.0,
+             base: dict[str, Any] | None = None) -> RunSummary:
     """Run one goal (one material) into ``out/<run_name>/``, resuming what is stored.
 
     Parameters
@@ -277,20 +439,44 @@ def run_goal(goal: Goal, *, out: str | Path = "runs", workers: int | None = None
     goal : Goal
     out : folder that holds run folders
     workers : worker processes (default: the number of cores); 0 runs in this process
-    progress : print progress lines to stderr (always written to run.log)
-    interval_s : seconds between progress lines [s]
+    progress : print progress to stderr (always written to run.log)
+    interval_s : seconds between progress updates [s]
+    base : result of ``validate_run`` when the caller already ran it
+
+    Raises
+    ------
+    InputError
+        Before anything is written (invalid settings, pre-run checks); ``RunFolderBusy``
+        when another process runs the same folder.
     """
+    n_workers = _workers(workers)
+    if base is None:
+        base = validate_run(goal, workers)
     run_dir = Path(out) / goal.run_name
     run_dir.mkdir(parents=True, exist_ok=True)
+    lock = RunLock(run_dir)
+    store = None
+    try:
+        store = EvaluationStore(run_dir / STORE_NAME)
+        return _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_s)
+    finally:
+        if store is not None:
+            store.close()
+        close_all()
+        lock.release()
+
+
+def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_s):
     tty = progress and sys.stderr.isatty()
-    log = _Log(run_dir / "run.log", echo=progress)
-    base = check_goal(goal)
-    store_path = str(run_dir / STORE_NAME)
-    store = EvaluationStore(store_path)
-    store.ensure_meta({"goal_hash": goal_hash(goal), "seed": goal.seed})
+    log = _Log(run_dir / "run.log", echo=progress and not tty)
+    store_path = store.path
+    identity = goal_identity(goal)
+    if store.get_meta("identity") is None and store.get_meta("goal_hash") is not None:
+        store.set_meta("identity", identity)  # a store of an older chiropt: replay checks it
+    store.ensure_meta({"identity": identity, "seed": goal.seed})
     problem = GoalProblem(goal)
-    store.set_meta("layout", {"variables": problem.paths,
-                              "objectives": [o.label() for o in goal.objectives],
+    olabels = [objective_label(o, problem) for o in goal.objectives]
+    store.set_meta("layout", {"variables": problem.paths, "objectives": olabels,
                               "senses": list(problem.senses),
                               "constraints": problem.constraint_labels,
                               "wavelength_nm": problem.wavelengths_nm.tolist()})
@@ -299,8 +485,21 @@ def run_goal(goal: Goal, *, out: str | Path = "runs", workers: int | None = None
         f"# resolved goal of run {goal.run_name} (source: {goal.source or 'inline'})\n"
         + yaml.safe_dump(resolved, sort_keys=False))
     n_search, cap = plan_searches(goal)
+    per_task = n_search // goal.search.starts
     starts = sobol_starts(problem.lower, problem.upper, goal.search.starts, seed=goal.seed)
     resumed = store.count()
+    if lock.previous:
+        log(f"note: took over the lock of a process that is gone ({lock.previous})")
+    old_caps = list(store.get_meta("earlier_caps", []))
+    stored_cap = store.get_meta("evaluation_cap")
+    if stored_cap is not None and stored_cap != cap:
+        old_caps.append(stored_cap)
+        store.set_meta("earlier_caps", old_caps)
+        log(f"note: the evaluation cap of each search changed from {stored_cap} to {cap}: "
+            "searches are continued (rows that no longer lie on a search's path are kept "
+            "as superseded evaluations)")
+    store.set_meta("evaluation_cap", cap)
+    tag = f"superseded{len(old_caps)}" if old_caps else None
     log(f"run {goal.run_name}: {len(goal.variables)} variables, {len(goal.objectives)} "
         f"objective(s), {problem.n_constraints} constraint rows, {len(problem.wavelengths_nm)} "
         f"wavelengths; {goal.search.algorithm}, {goal.search.starts} starts, {n_search} "
@@ -316,49 +515,78 @@ def run_goal(goal: Goal, *, out: str | Path = "runs", workers: int | None = None
     stop_file = run_dir / STOP_NAME
     stop_file.unlink(missing_ok=True)
     tasks = [SearchTask(task_goal, store_path, k, starts[k], start_seed(goal.seed, k), cap,
-                        deadline, str(stop_file)) for k in range(goal.search.starts)]
-    n_workers = (os.cpu_count() or 1) if workers is None else int(workers)
-    if n_workers < 0:
-        raise InputError("--workers", f"got {workers}, allowed an integer >= 0")
-    prog = Progress(store_path, goal, n_search * cap, deadline,
-                    emit=(lambda s: print("\r" + s + " " * 8, end="", file=sys.stderr,
-                                          flush=True)) if tty else (log if progress else None))
+                        deadline, str(stop_file), tag) for k in range(goal.search.starts)]
+    keys = [f"front-{k}" if len(goal.objectives) == 2 else f"start-{k}" for k in range(len(tasks))]
+    bar = None
+    if tty:
+        from tqdm import tqdm
+
+        bar = tqdm(total=n_search * cap, file=sys.stderr, unit="eval", dynamic_ncols=True,
+                   desc=goal.run_name, leave=True)
+    prog = Progress(store_path, goal, keys, per_task * cap, deadline,
+                    emit=log if progress else None, bar=bar)
     prog.poll()
     status = "complete"
     executor = (SerialExecutor() if n_workers == 0
                 else ProcessExecutor(min(n_workers, len(tasks))))
-    outcomes: list[TaskOutcome] = []
+    outcomes: dict[int, TaskOutcome] = {}
     try:
-        futures = [executor.submit(_run_task, t) for t in tasks]
+        futures = {executor.submit(_run_task, t): t.index for t in tasks}
+        if hasattr(executor, "pids") and executor.pids():
+            log(f"workers: pid {', '.join(map(str, executor.pids()))} (parent {os.getpid()})")
         last = time.time()
         pending = set(futures)
         while pending:
-            done, pending = wait(pending, timeout=interval_s, return_when=FIRST_EXCEPTION)
+            done, pending = wait(pending, timeout=interval_s, return_when=FIRST_COMPLETED)
             for f in done:
-                f.result()  # a bug in a worker propagates
+                k = futures[f]
+                try:
+                    outcomes[k] = f.result()
+                except Exception as exc:  # a worker process that died (BrokenProcessPool)
+                    outcomes[k] = TaskOutcome(k, "error", f"{type(exc).__name__}: {exc}")
+                prog.finished.add(keys[k])
             if time.time() - last >= (interval_s if tty else 10 * interval_s) or not pending:
                 prog.report()
                 last = time.time()
-        outcomes = [f.result() for f in futures]
     except KeyboardInterrupt:
         status = "interrupted"
         stop_file.touch()  # workers stop at their next fresh evaluation
-        log("\ninterrupted: the store keeps every finished evaluation; run the same command "
+        log("interrupted: the store keeps every finished evaluation; run the same command "
             "to resume")
     finally:
-        executor.close()
+        try:
+            executor.close()
+        except KeyboardInterrupt:  # a second Ctrl-C: stop the workers now
+            if hasattr(executor, "terminate"):
+                executor.terminate()
+            status = "interrupted"
         stop_file.unlink(missing_ok=True)
-    if tty:
-        print(file=sys.stderr)
-    if status == "complete" and any(o.status == "deadline" for o in outcomes):
-        status = "stopped: wall-time budget spent (run the same command to continue)"
-    for o in outcomes:
-        if o.status == "error":
-            log(f"start {o.index}: {o.message}")
+        if bar is not None:
+            bar.close()
+    errors = [o for o in outcomes.values() if o.status == "error"]
+    for o in sorted(errors, key=lambda o: o.index):
+        log(f"search {o.index} failed: {o.message}")
+    if status == "complete":
+        if errors:
+            status = (f"failed: {len(errors)} of {len(tasks)} searches failed (first: search "
+                      f"{errors[0].index}: {errors[0].message[:200]})")
+        elif len(outcomes) < len(tasks):
+            status = f"failed: {len(tasks) - len(outcomes)} searches did not report back"
+        elif any(o.status == "deadline" for o in outcomes.values()):
+            status = "stopped: wall-time budget spent (run the same command to continue)"
     store.set_meta("status", status)
     summary = write_report(run_dir, goal, store=store, status=status, log=log)
+    after = store.count()
+    if after != summary.n_evaluations:  # never report a front the store contradicts
+        summary.status = status = (f"failed: the store changed while the report was written "
+                                   f"({summary.n_evaluations} -> {after} evaluations): another "
+                                   "process writes into this run folder")
+        store.set_meta("status", status)
+    if progress and tty:
+        print(prog.line(), file=sys.stderr)
     log(f"{status}: {summary.n_evaluations} evaluations ({summary.n_failed} failed, "
-        f"{summary.n_feasible} feasible); front of {len(summary.front)} points"
+        f"{summary.n_feasible} feasible); front of {len(summary.front)} "
+        f"{'point' if len(summary.front) == 1 else 'points'}"
         + (f", hypervolume {summary.hypervolume:.6g}" if len(goal.objectives) == 2 else "")
         + f"; re-evaluated front reproduces the store to {summary.reproduce_max_dev:.2e}")
     return summary
@@ -368,11 +596,19 @@ def run_goal_file(path: str | Path, *, out: str | Path | None = None, workers: i
                   progress: bool = True) -> list[RunSummary]:
     """Run every material of a goal file; with several, also write ``<name>-compare.png``.
 
-    ``out`` defaults to ``runs/`` at the repository root (the parent of the package).
+    ``out`` defaults to ``runs/`` of the current folder. Every material is validated before
+    the first run folder is made; an interrupted material ends the whole run (the
+    summaries so far are returned, the last with status ``interrupted``).
     """
     goals = load_goal(path)
-    root = Path(out) if out is not None else Path(__file__).resolve().parent.parent / "runs"
-    summaries = [run_goal(g, out=root, workers=workers, progress=progress) for g in goals]
+    _workers(workers)
+    bases = [validate_run(g, workers) for g in goals]
+    root = Path(out) if out is not None else Path.cwd() / "runs"
+    summaries = []
+    for g, base in zip(goals, bases, strict=True):
+        summaries.append(run_goal(g, out=root, workers=workers, progress=progress, base=base))
+        if summaries[-1].status == "interrupted":
+            return summaries
     if len(summaries) > 1:
         from chiropt.report.front import plot_comparison
 
@@ -397,15 +633,16 @@ def _columns(problem: GoalProblem) -> list[tuple[str, str, Any]]:
     for o in goal.objectives:
         if o.weighted:
             for m, _, _ in o.terms:
-                lab = f"{m}@{o.spec.label()}"
+                lab = f"{m}@{spec_label(o.spec, problem)}"
                 if lab not in seen:
                     cols.append((lab, m, o.spec))
                     seen.add(lab)
     spec = goal.objectives[0].spec
     names = ("u", "g", "docp+1", "docp-1") if goal.design.region is not None else ("R", "T", "A")
+    own = {objective_label(o, problem) for o in goal.objectives}
     for m in names:
-        lab = f"{m}@{spec.label()}"
-        if lab not in seen and lab not in {o.label() for o in goal.objectives}:
+        lab = f"{m}@{spec_label(spec, problem)}"
+        if lab not in seen and lab not in own:
             cols.append((lab, m, spec))
             seen.add(lab)
     return cols
@@ -447,21 +684,21 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
     summary.n_feasible = int(feas.sum())
     pool = feas if feas.any() else onp.ones(len(uniq), bool)
     sign = onp.array([1.0 if s == "max" else -1.0 for s in senses])
+    X = onp.array([r.x for r in uniq], float).reshape(len(uniq), len(goal.variables))
     if len(uniq) == 0:
         chosen: list[int] = []
     elif M == 2:
-        mask = non_dominated(onp.where(pool[:, None], F, onp.nan), senses)
-        chosen = list(onp.flatnonzero(mask))
-        chosen.sort(key=lambda i: -sign[0] * F[i, 0])
-    else:  # best design of each search
+        chosen = front_indices(goal, X, F, pool)
+    else:  # best design of each search (superseded rows belong to no current search)
         best: dict[tuple, int] = {}
         for i, r in enumerate(uniq):
-            if not pool[i]:
+            if not pool[i] or ":" in r.stage:
                 continue
             key = (r.stage, r.start)
             if key not in best or sign[0] * F[i, 0] > sign[0] * F[best[key], 0]:
                 best[key] = i
-        chosen = sorted(set(best.values()), key=lambda i: -sign[0] * F[i, 0])
+        chosen = merge_coinciding(goal, X, sorted(set(best.values()),
+                                                   key=lambda i: -sign[0] * F[i, 0]))
     ref = []
     if feas.any():
         ref = list(onp.min(F[feas] * sign, axis=0) * sign)
@@ -470,7 +707,7 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         summary.reference = [float(v) for v in ref]
     # table
     extra = _columns(problem)
-    olabels = [o.label() for o in goal.objectives]
+    olabels = [objective_label(o, problem) for o in goal.objectives]
     hi_problem, hi_labels = _higher_lmax_problem(goal), [f"{lab} (lmax+1)" for lab in olabels]
     columns = (["index"] + problem.paths + olabels + [c[0] for c in extra]
                + ["feasible", "max_violation", "stage", "search", "seq"]
@@ -521,7 +758,14 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
                       f"feasible value of each objective in the run: "
                       f"{[float(v) for v in ref]})")
     header.append("variables in user units (nm, deg); metric columns are averages over each "
-                  "spec's wavelengths; max_violation in scaled constraint units")
+                  "spec's wavelengths; max_violation in scaled constraint units; designs that "
+                  f"coincide within max(xtol_rel |x|, {MERGE_FRACTION:g} x bound width) in every "
+                  "variable are one row")
+    if problem.shift_index is not None:
+        header.append(f"the wavelength is a variable: metrics are read at the design's own "
+                      f"wavelength (column {WAVELENGTH_PATH}) or at the offsets in their "
+                      f"labels ('design-wavelength+50nm'); nominal reference "
+                      f"{problem.reference_nm:g} nm")
     write_front_csv(run_dir / "front.csv", columns, rows, header=header)
     summary.front = front_rows
     summary.front_objectives = F[chosen] if chosen else onp.zeros((0, M))
@@ -542,10 +786,12 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         lines = [f"candidate {j} of run {goal.run_name} (front.csv index {j}); "
                  f"{'feasible' if feas[i] else 'INFEASIBLE'}"]
         lines += [f"{lab} = {float(F[i, m])!r}" for m, lab in enumerate(olabels)]
-        lines += [f"{p} = {float(v)!r}" for p, v in zip(problem.paths, r.x, strict=True)
-                  if p != WAVELENGTH_PATH]
-        lines.append("wavelengths are the ones the goal reads; `chiropt evaluate` on this "
-                     "file reproduces the stored values")
+        lines += [f"{p} = {float(v)!r}" + (" (operating wavelength)" if p == WAVELENGTH_PATH
+                                            else "")
+                  for p, v in zip(problem.paths, r.x, strict=True)]
+        lines.append("wavelengths solved: " + ", ".join(
+            f"{w:g}" for w in problem.wavelengths_at(r.x)) + " nm (the ones the goal reads); "
+            "`chiropt evaluate` on this file reproduces the stored values")
         summary.candidates.append(write_candidate(cand_dir / f"c{j:03d}.yaml", data,
                                                   comments=lines))
     # plots

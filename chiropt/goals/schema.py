@@ -569,6 +569,7 @@ def _one_goal(ctx: _Ctx, data: dict, name: str, design_dict: dict, design_base, 
             raise ctx.error(f"{vkey}.min", f"min = {lo:g} is not below max = {hi:g}; did you "
                                            "swap min and max?")
         variables.append(Variable(path, lo, hi))
+    _check_bound_ranges(ctx, design, variables)
 
     # links
     links_raw = data.get("links") or {}
@@ -758,3 +759,21 @@ def _budget(ctx: _Ctx, raw: Any) -> Budget:
     if "evaluations" in raw:
         evals = ctx.integer(raw["evaluations"], "budget.evaluations", low=1, high=10**9)
     return Budget(wall_time_s=wall, evaluations=evals, wall_time_text=text)
+
+
+def _check_bound_ranges(ctx: _Ctx, design: Design, variables) -> None:
+    """Each variable's bounds inside the quantity's own allowed range (design validation).
+
+    The base design with that one quantity at ``min`` (then ``max``) is validated; only the
+    quantity's own range check counts here (its message starts with "got"), not limits that
+    involve other quantities (those are the search's business, e.g. overlapping particles).
+    """
+    for v in variables:
+        for which, value in (("min", v.lower), ("max", v.upper)):
+            try:
+                design_with(design, {v.path: [value] if v.path == WAVELENGTH_PATH else value})
+            except InputError as exc:
+                if exc.key.endswith(v.path) and exc.message.startswith("got "):
+                    raise ctx.error(f"variables.{v.path}.{which}",
+                                    f"bound {value:g} is outside the allowed range of "
+                                    f"{v.path}: {exc.message}") from None

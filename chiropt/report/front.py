@@ -15,6 +15,7 @@ from typing import Any
 
 import numpy as onp
 
+from chiropt.report.labels import axis_where, objective_label, spec_label
 from chiropt.report.style import PALETTE, new_figure, save
 
 __all__ = ["plot_comparison", "plot_convergence", "plot_front"]
@@ -34,7 +35,7 @@ def _axis_label(label: str) -> str:
     nice = words.get(base, name)
     if name != base:
         nice += f" (helicity {name[-2:]})"
-    where = label.split("@")[1] if "@" in label else ""
+    where = axis_where(label.split("@", 1)[1]) if "@" in label else ""
     return f"{nice} at {where} {unit}" if where else f"{nice} {unit}"
 
 
@@ -86,7 +87,7 @@ def plot_front(path, problem, records, F, feasible, chosen, picks) -> Path:
     M = F.shape[1] if F.size else len(goal.objectives)
     fig, axes = new_figure(1, 2 if region else 1, width=5.2, height=4.2)
     ax = axes[0, 0]
-    labels = [o.label() for o in goal.objectives]
+    labels = [objective_label(o, problem) for o in goal.objectives]
     fe = onp.asarray(feasible, bool)
     if M == 2:
         ax.scatter(F[~fe, 0], F[~fe, 1], s=6, marker="x", color=CLOUD_COLOR, lw=0.6,
@@ -153,9 +154,10 @@ def plot_front(path, problem, records, F, feasible, chosen, picks) -> Path:
             if note:
                 ax.text(0.02, 0.02, note, transform=ax.transAxes, fontsize=6, color="0.4")
         cb = fig.colorbar(sc, ax=ax)
-        cb.set_label(f"intensity enhancement u at {spec.label()} [-]")
-        ax.set_xlabel(f"DOCP, helicity average, at {spec.label()} [-]")
-        ax.set_ylabel(f"CD enhancement g at {spec.label()} [-]")
+        where = axis_where(spec_label(spec, problem))
+        cb.set_label(f"intensity enhancement u at {where} [-]")
+        ax.set_xlabel(f"DOCP, helicity average, at {where} [-]")
+        ax.set_ylabel(f"CD enhancement g at {where} [-]")
         ax.set_title("(DOCP, g) plane")
         ax.legend(loc="best")
     fig.suptitle(f"run {goal.run_name}", fontsize=10, color=PALETTE["c"])
@@ -178,6 +180,8 @@ def plot_convergence(path, problem, records, *, reference) -> Path:
     ax = axes[0, 0]
     streams: dict[str, list[Any]] = {}
     for r in records:
+        if ":" in r.stage:  # rows superseded by a grown budget: not on a search's path
+            continue
         key = r.stage if r.stage.startswith("front-") else f"start-{r.start}"
         streams.setdefault(key, []).append(r)
     sign = 1.0 if senses[0] == "max" else -1.0
@@ -209,8 +213,8 @@ def plot_convergence(path, problem, records, *, reference) -> Path:
             ax.plot(x, ys, ".", color=color, ms=2.5, alpha=0.5)
         ax.plot(x, best_y, "-", color=color, lw=1.3, label=f"start {key.split('-')[1]}")
     if M == 1:
-        ax.set_ylabel(f"{_axis_label(goal.objectives[0].label())}\n(dots: every evaluation, "
-                      "line: best feasible)")
+        ylab = _axis_label(objective_label(goal.objectives[0], problem))
+        ax.set_ylabel(f"{ylab}\n(dots: every evaluation, line: best feasible)")
     else:
         ax.set_ylabel("hypervolume of the feasible front [objective units²]")
     ax.set_xlabel("evaluation of this start [-]")
@@ -225,8 +229,11 @@ def plot_comparison(summaries, path) -> Path:
     """The fronts of several runs (materials) in one objective-space figure."""
     fig, axes = new_figure(1, 1, width=6.0, height=4.4)
     ax = axes[0, 0]
+    from chiropt.goals.objectives import GoalProblem
+
     goal = summaries[0].goal
-    labels = [o.label() for o in goal.objectives]
+    problem = GoalProblem(goal)
+    labels = [objective_label(o, problem) for o in goal.objectives]
     for n, s in enumerate(summaries):
         F = s.front_objectives
         color = START_COLORS[n % len(START_COLORS)]

@@ -14,11 +14,22 @@ Conventions
 - ``ProcessExecutor`` uses the ``spawn`` start method, so behaviour is the same on every
   platform: ``fn`` and every argument must be picklable (module-level functions, plain
   objects), and workers start with a fresh interpreter (no state shared with the parent).
+- Workers die with their parent: each worker asks the kernel for SIGKILL when its parent
+  dies (Linux ``prctl(PR_SET_PDEATHSIG)``) and, on every platform, a watchdog thread exits
+  the worker within ``WATCHDOG_S`` seconds once its parent pid is gone. Workers ignore
+  SIGINT: the parent alone decides how an interrupted run stops (a Ctrl-C on a terminal
+  reaches the whole process group).
 """
 
 from __future__ import annotations
 
+import ctypes
 import multiprocessing
+import os
+import signal
+import sys
+import threading
+import time
 from collections.abc import Callable, Iterable
 from concurrent.futures import Future, ProcessPoolExecutor
 from typing import Any, Protocol, runtime_checkable
@@ -26,6 +37,36 @@ from typing import Any, Protocol, runtime_checkable
 from chiropt.errors import InputError
 
 __all__ = ["Executor", "ProcessExecutor", "SerialExecutor"]
+
+WATCHDOG_S = 0.5
+_PR_SET_PDEATHSIG = 1  # <linux/prctl.h>
+
+
+def _parent_alive(parent_pid: int) -> bool:
+    # a re-parented orphan sees another ppid (init or a subreaper)
+    return os.getppid() == parent_pid
+
+
+def _watchdog(parent_pid: int) -> None:
+    while True:
+        time.sleep(WATCHDOG_S)
+        if not _parent_alive(parent_pid):
+            os._exit(1)
+
+
+def _worker_init(parent_pid: int) -> None:
+    """Pool initializer: die with the parent, leave SIGINT to the parent."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if sys.platform.startswith("linux"):
+        try:  # common practice, no source: prctl(2), PR_SET_PDEATHSIG
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
+        except (OSError, AttributeError):
+            pass  # the watchdog below still works
+    if not _parent_alive(parent_pid):  # the parent died before prctl took effect
+        os._exit(1)
+    threading.Thread(target=_watchdog, args=(parent_pid,), daemon=True,
+                     name="chiropt-parent-watchdog").start()
 
 
 @runtime_checkable
@@ -94,7 +135,8 @@ class ProcessExecutor:
     def _get_pool(self) -> ProcessPoolExecutor:
         if self._pool is None:
             self._pool = ProcessPoolExecutor(
-                max_workers=self.workers, mp_context=multiprocessing.get_context("spawn")
+                max_workers=self.workers, mp_context=multiprocessing.get_context("spawn"),
+                initializer=_worker_init, initargs=(os.getpid(),),
             )
         return self._pool
 
@@ -112,6 +154,23 @@ class ProcessExecutor:
         if self._pool is not None:
             self._pool.shutdown(wait=True, cancel_futures=True)
             self._pool = None
+
+    def pids(self) -> list[int]:
+        """Process ids of the live workers (empty before the pool starts)."""
+        procs = getattr(self._pool, "_processes", None) or {}
+        return sorted(int(p) for p in procs)
+
+    def terminate(self) -> None:
+        """Stop the workers now (SIGTERM), without waiting for their tasks."""
+        if self._pool is None:
+            return
+        procs = list((getattr(self._pool, "_processes", None) or {}).values())
+        for p in procs:
+            p.terminate()
+        for p in procs:
+            p.join(5.0)
+        self._pool.shutdown(wait=False, cancel_futures=True)
+        self._pool = None
 
     def __enter__(self):
         return self

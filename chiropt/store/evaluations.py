@@ -20,7 +20,13 @@ Conventions
 - Resume: nlopt is deterministic given the same answers, so a re-run asks for the same
   ``x`` in the same order; ``CachedProblem`` replays the stored answers and evaluates only
   what is missing. A stored ``x`` that differs from the requested one means the run folder
-  belongs to another goal or other settings: ``StoreMismatchError``.
+  belongs to another goal or other settings: ``StoreMismatchError``. When the run's
+  evaluation cap changed (a budget grown to extend a finished run), a search whose
+  stored tail no longer matches is continued instead: its mismatching rows are kept under
+  the stage ``superseded<n>:<stage>`` (still real evaluations of the same goal) and the
+  search evaluates afresh from there.
+- ``close`` checkpoints the WAL into the database and closes, so a finished run leaves no
+  ``-wal``/``-shm`` files (SQLite removes them when the last connection closes cleanly).
 """
 
 from __future__ import annotations
@@ -44,6 +50,7 @@ __all__ = [
     "EvaluationStore",
     "StoreMismatchError",
     "StoredEvaluation",
+    "close_all",
 ]
 
 SCHEMA_VERSION = 1
@@ -189,12 +196,16 @@ class EvaluationStore:
     def __init__(self, path, *, timeout_s: float = 60.0):
         self.path = os.fspath(path)
         self.timeout_s = float(timeout_s)
-        self._conn = _connection(self.path, self.timeout_s)
         if self.get_meta("schema_version") is None:
             self._conn.execute(
                 "INSERT OR IGNORE INTO meta (key, value) VALUES (?, ?)",
                 ("schema_version", _dumps(SCHEMA_VERSION)),
             )
+
+    @property
+    def _conn(self) -> sqlite3.Connection:
+        # looked up on every use: a closed connection (``close_all``) is reopened
+        return _connection(self.path, self.timeout_s)
 
     # -- metadata ---------------------------------------------------------------------------
     def set_meta(self, key: str, value: Any) -> None:
@@ -347,12 +358,42 @@ class EvaluationStore:
             "created": np.array([r.created for r in recs], dtype=str),
         }
 
+    def supersede(self, stage: str, start: int, seq: int, tag: str) -> int:
+        """Move rows ``seq, seq + 1, ...`` of search ``(stage, start)`` to ``tag:stage``.
+
+        Returns the number of rows moved. Used when a grown budget changes a search's path.
+        """
+        new = f"{tag}:{stage}"
+        while True:
+            try:
+                cur = self._conn.execute(
+                    "UPDATE evaluations SET stage = ? WHERE stage = ? AND start = ? AND seq >= ?",
+                    (new, str(stage), int(start), int(seq)))
+                return int(cur.rowcount)
+            except sqlite3.IntegrityError:  # that tag already holds such rows: a new tag
+                new = f"{tag}.{time.time_ns()}:{stage}"
+
     def close(self) -> None:
-        """Close this process's connection to the file."""
-        key = (os.getpid(), os.path.abspath(self.path))
-        conn = _CONNECTIONS.pop(key, None)
-        if conn is not None:
-            conn.close()
+        """Checkpoint the WAL and close this process's connection to the file."""
+        _close(os.path.abspath(self.path))
+
+
+def _close(abspath: str) -> None:
+    conn = _CONNECTIONS.pop((os.getpid(), abspath), None)
+    if conn is None:
+        return
+    try:
+        conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+    except sqlite3.Error:
+        pass  # another process holds the database: it checkpoints when it closes
+    conn.close()
+
+
+def close_all() -> None:
+    """Close every connection of this process (a worker at the end of its task)."""
+    for pid, path in list(_CONNECTIONS):
+        if pid == os.getpid():
+            _close(path)
 
 
 class CachedProblem:
@@ -384,8 +425,10 @@ class CachedProblem:
     other exception propagates without storing anything.
     """
 
-    def __init__(self, problem: Problem, path, stage: str, start: int):
+    def __init__(self, problem: Problem, path, stage: str, start: int,
+                 supersede_tag: str | None = None):
         self.problem = problem
+        self.supersede_tag = supersede_tag
         self.path = os.fspath(path)
         self.stage = str(stage)
         self.start = int(start)
@@ -418,6 +461,10 @@ class CachedProblem:
         rec = store.get(self.stage, self.start, self.seq)
         if rec is not None:
             same = rec.x.shape == x.shape and rec.x.tobytes() == x.tobytes()
+            if not same and self.supersede_tag is not None:
+                store.supersede(self.stage, self.start, self.seq, self.supersede_tag)
+                rec = None
+        if rec is not None:
             if not same:
                 raise StoreMismatchError(
                     "run",
@@ -456,10 +503,13 @@ class CachingWrap:
     ----------
     path : str
         Store file.
+    supersede_tag : str, optional
+        Set when the run's evaluation cap changed: see ``CachedProblem``.
     """
 
     path: str
+    supersede_tag: str | None = None
 
     def __call__(self, problem: Problem, stage: str, start: int) -> CachedProblem:
         """Wrap ``problem`` for search ``start`` of ``stage``."""
-        return CachedProblem(problem, self.path, stage, start)
+        return CachedProblem(problem, self.path, stage, start, self.supersede_tag)
