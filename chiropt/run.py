@@ -376,18 +376,22 @@ def _duration(s: float) -> str:
 
 
 class _Log:
-    """run.log writer that can echo to stderr."""
+    """run.log writer that can echo to stderr (above a live progress bar, if any)."""
 
     def __init__(self, path: Path, echo: bool):
         self.path, self.echo = path, echo
+        self.bar = None
 
-    def __call__(self, text: str) -> None:
+    def __call__(self, text: str, echo: bool = True) -> None:
         stamp = time.strftime("%Y-%m-%d %H:%M:%S")
         with self.path.open("a") as fh:
             for line in text.splitlines() or [""]:
                 fh.write(f"{stamp}  {line}\n")
-        if self.echo:
-            print(text, file=sys.stderr, flush=True)
+        if self.echo and echo:
+            if self.bar is not None:
+                self.bar.write(text, file=sys.stderr)
+            else:
+                print(text, file=sys.stderr, flush=True)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -468,7 +472,7 @@ def run_goal(goal: Goal, *, out: str | Path = "runs", workers: int | None = None
 
 def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_s):
     tty = progress and sys.stderr.isatty()
-    log = _Log(run_dir / "run.log", echo=progress and not tty)
+    log = _Log(run_dir / "run.log", echo=progress)
     store_path = store.path
     identity = goal_identity(goal)
     if store.get_meta("identity") is None and store.get_meta("goal_hash") is not None:
@@ -523,6 +527,7 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
 
         bar = tqdm(total=n_search * cap, file=sys.stderr, unit="eval", dynamic_ncols=True,
                    desc=goal.run_name, leave=True)
+        log.bar = bar
     prog = Progress(store_path, goal, keys, per_task * cap, deadline,
                     emit=log if progress else None, bar=bar)
     prog.poll()
@@ -534,7 +539,7 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
         futures = {executor.submit(_run_task, t): t.index for t in tasks}
         if hasattr(executor, "pids") and executor.pids():
             log(f"workers: pid {', '.join(map(str, executor.pids()))} (parent {os.getpid()})")
-        last = time.time()
+        last = logged = time.time()
         pending = set(futures)
         while pending:
             done, pending = wait(pending, timeout=interval_s, return_when=FIRST_COMPLETED)
@@ -548,6 +553,9 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
             if time.time() - last >= (interval_s if tty else 10 * interval_s) or not pending:
                 prog.report()
                 last = time.time()
+                if tty and (last - logged >= 10 * interval_s or not pending):
+                    log(prog.line(), echo=False)  # run.log keeps the progress lines too
+                    logged = last
     except KeyboardInterrupt:
         status = "interrupted"
         stop_file.touch()  # workers stop at their next fresh evaluation
@@ -563,6 +571,7 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
         stop_file.unlink(missing_ok=True)
         if bar is not None:
             bar.close()
+            log.bar = None
     errors = [o for o in outcomes.values() if o.status == "error"]
     for o in sorted(errors, key=lambda o: o.index):
         log(f"search {o.index} failed: {o.message}")
@@ -582,8 +591,6 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
                                    f"({summary.n_evaluations} -> {after} evaluations): another "
                                    "process writes into this run folder")
         store.set_meta("status", status)
-    if progress and tty:
-        print(prog.line(), file=sys.stderr)
     log(f"{status}: {summary.n_evaluations} evaluations ({summary.n_failed} failed, "
         f"{summary.n_feasible} feasible); front of {len(summary.front)} "
         f"{'point' if len(summary.front) == 1 else 'points'}"
