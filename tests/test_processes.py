@@ -282,6 +282,23 @@ def test_a_search_that_dies_is_a_failed_search(tmp_path, monkeypatch, capsys):
     assert "failed: 1 of 2 searches failed" in out and "simulated defect" in out
 
 
+def test_a_store_that_changes_under_the_report_is_not_complete(tmp_path, monkeypatch):
+    import chiropt.run as run
+    from chiropt.search.problem import Evaluation
+
+    real = run.write_report
+
+    def other_writer(run_dir, goal, **kw):
+        summary = real(run_dir, goal, **kw)
+        kw["store"].put("intruder", 0, 0, [80.0, 400.0], Evaluation.failed("elsewhere", 0))
+        return summary
+
+    monkeypatch.setattr(run, "write_report", other_writer)
+    (goal,) = load_goal(_write(tmp_path, SMALL))
+    s = run_goal(goal, out=tmp_path / "runs", workers=0, progress=False)
+    assert s.status.startswith("failed: the store changed")
+
+
 def test_merge_joins_designs_within_the_tolerance():
     (goal,) = load_goal_text(SMALL)
     tol = merge_tolerance(goal, onp.array([80.0, 400.0]))

@@ -409,6 +409,10 @@ class CachedProblem:
         Stage label of the search.
     start : int
         Index of the search within the stage.
+    supersede_tag : str, optional
+        Set when the run's evaluation cap changed: a stored row that does not match the
+        requested ``x`` is moved, with the rest of this search, to ``tag:stage`` instead of
+        raising ``StoreMismatchError``.
 
     Attributes
     ----------
