@@ -55,6 +55,7 @@ import os
 import socket
 import sqlite3
 import sys
+import threading
 import time
 from concurrent.futures import FIRST_COMPLETED, wait
 from dataclasses import dataclass, field, replace
@@ -535,8 +536,20 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
     executor = (SerialExecutor() if n_workers == 0
                 else ProcessExecutor(min(n_workers, len(tasks))))
     outcomes: dict[int, TaskOutcome] = {}
+    # in this process (workers 0) the searches run inside submit: report from a thread
+    stop_reports = threading.Event()
+    reporter = None
+    if n_workers == 0 and progress:
+        reporter = threading.Thread(target=_report_every, daemon=True, args=(
+            prog, stop_reports, interval_s if tty else 10 * interval_s), name="chiropt-progress")
+        reporter.start()
     try:
-        futures = {executor.submit(_run_task, t): t.index for t in tasks}
+        try:
+            futures = {executor.submit(_run_task, t): t.index for t in tasks}
+        finally:
+            stop_reports.set()
+            if reporter is not None:
+                reporter.join()
         if hasattr(executor, "pids") and executor.pids():
             log(f"workers: pid {', '.join(map(str, executor.pids()))} (parent {os.getpid()})")
         last = logged = time.time()
@@ -597,6 +610,11 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
         + (f", hypervolume {summary.hypervolume:.6g}" if len(goal.objectives) == 2 else "")
         + f"; re-evaluated front reproduces the store to {summary.reproduce_max_dev:.2e}")
     return summary
+
+
+def _report_every(prog: Progress, stop: threading.Event, period_s: float) -> None:
+    while not stop.wait(period_s):
+        prog.report()
 
 
 def run_goal_file(path: str | Path, *, out: str | Path | None = None, workers: int | None = None,
