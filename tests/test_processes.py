@@ -364,3 +364,24 @@ def test_wavelength_variable_labels_are_truthful(tmp_path):
         # the labelled value is g at the row's own wavelength (a fresh solve of the file)
         g = float(onp.real(compute_quantities(design)["g"][0]))
         assert abs(g - float(row["g@design-wavelength"])) <= 1e-9 * max(1.0, abs(g))
+
+
+def _current_rows(run_dir: Path) -> dict:
+    return {(r.stage, r.start, r.seq): r.x.tolist()
+            for r in EvaluationStore(run_dir / "evaluations.sqlite").records()
+            if ":" not in r.stage}
+
+
+def test_a_front_extended_by_a_grown_budget_equals_a_fresh_run(tmp_path):
+    # the anchors of a front move when their budget grows, so later searches change path:
+    # their old rows are kept as superseded, and the current rows are a fresh run's
+    (small,) = load_goal(_write(tmp_path, TWO.replace("max_evals_per_start: 8",
+                                                      "max_evals_per_start: 3")))
+    assert run_goal(small, out=tmp_path / "a", workers=0, progress=False).status == "complete"
+    (goal,) = load_goal(_write(tmp_path, TWO))
+    extended = run_goal(goal, out=tmp_path / "a", workers=0, progress=False)
+    fresh = run_goal(goal, out=tmp_path / "b", workers=0, progress=False)
+    assert extended.status == "complete"
+    assert _current_rows(extended.run_dir) == _current_rows(fresh.run_dir)
+    stages = {r.stage for r in EvaluationStore(extended.run_dir / "evaluations.sqlite").records()}
+    assert any(st.startswith("superseded1:front-") for st in stages)  # the path did change
