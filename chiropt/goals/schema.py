@@ -106,7 +106,8 @@ __all__ = [
     "Variable", "WavelengthSpec", "goal_from_dict", "load_goal", "parse_wall_time",
 ]  # fmt: skip
 
-EXPLAIN = __doc__
+# the user reference only: from its heading on (the module notes above it are for developers)
+EXPLAIN = __doc__[__doc__.index("Goal file reference"):].rstrip() + "\n"
 
 AVERAGED = ("docp", "s0", "R", "T", "A")  # helicity averages of the +1/-1 quantities
 METRIC_NAMES = FAR_FIELD + NEAR_FIELD + AVERAGED
