@@ -500,7 +500,8 @@ def check_geometry(design: Design, prefix: str = "") -> None:
             raise InputError(f"{prefix}particles[{i}].radius_nm",
                              f"diameter {2 * p.radius_nm:g} nm exceeds the shortest lattice "
                              f"period {shortest:g} nm (spheres would overlap their neighbours); "
-                             f"allowed radius <= {shortest / 2:g} nm")
+                             f"allowed radius <= {shortest / 2:g} nm, or {prefix}lattice.period_nm "
+                             f"of at least {2 * p.radius_nm:g} nm")
         if 2 * _circumradius(p) > shortest:
             raise InputError(f"{prefix}particles[{i}].height_nm",
                              f"the circumscribing sphere of this {p.shape} (diameter "
