@@ -329,3 +329,4 @@ def test_inspect_names_and_warnings(tmp_path, capsys):
     assert "a_near-field-spectra.png" in names
     assert not any("near-field-near-field" in n for n in names)
     assert all((tmp_path / "o" / n).exists() for n in names)
+    assert "file names use 'a_near-field'" in err

@@ -46,6 +46,9 @@ def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64,
         warnings.simplefilter("always")
         sol = run_model(design.with_wavelengths([at_nm]), warn=True).solution
     if notes is not None:
+        if design.name and stem != design.name:
+            notes.append(f"file names use {stem!r} for the design name {design.name!r} (only "
+                         "ASCII letters, digits and ._+- are kept in file names)")
         for note in list(response.warnings) + [str(w.message) for w in caught]:
             if note not in notes:
                 notes.append(note)
