@@ -15,6 +15,41 @@ from pathlib import Path
 from chiropt.errors import ChiroptError, InputError
 
 EXIT_OK, EXIT_FAILED, EXIT_INPUT = 0, 1, 2
+GRID_RANGE = (2, 1024)  # --grid of evaluate --fields and inspect
+TABLE_ROWS = 12         # wavelengths shown in the text table
+
+
+def _check_grid(grid: int) -> None:
+    lo, hi = GRID_RANGE
+    if not lo <= grid <= hi:
+        raise InputError("--grid", f"got {grid}, allowed an integer in [{lo}, {hi}]")
+
+
+def _output_file(option: str, path: str) -> None:
+    """Refuse an output file whose folder is missing or not writable (before any work)."""
+    import os
+
+    target = Path(path)
+    folder = target.parent if str(target.parent) else Path(".")
+    if target.is_dir():
+        raise InputError(option, f"{path} is a folder; give a file name")
+    if not folder.is_dir():
+        raise InputError(option, f"cannot write {path}: folder {folder} does not exist")
+    if not os.access(folder, os.W_OK):
+        raise InputError(option, f"cannot write {path}: folder {folder} is not writable")
+
+
+def _output_folder(option: str, path: Path) -> Path:
+    """Create an output folder, or refuse it in one line."""
+    import os
+
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(option, f"cannot create folder {path}: {exc.strerror}") from None
+    if not os.access(path, os.W_OK):
+        raise InputError(option, f"cannot write into folder {path}")
+    return path
 
 
 def _cmd_evaluate(args) -> int:
@@ -25,6 +60,14 @@ def _cmd_evaluate(args) -> int:
     if (args.at_nm is not None or args.fields) and design.region is None:
         raise InputError("region", "--at-nm and --fields need a region in the design, e.g. "
                                    "region: {kind: plane, height_nm: 10}")
+    if args.fields:
+        _check_grid(args.grid)
+        _output_file("--fields", args.fields)
+    if args.grad and not args.json:
+        raise InputError("--grad", "needs --json (derivatives are reported in the JSON object)")
+    out_dir = Path(args.out) if args.out else Path.cwd()
+    if not args.json:
+        _output_folder("--out", out_dir)
     response = evaluate(design, keep_solution=bool(args.fields), with_validity=args.validity)
     for note in response.warnings:
         print(f"warning: {note}", file=sys.stderr)
@@ -43,15 +86,15 @@ def _cmd_evaluate(args) -> int:
         json.dump(payload, sys.stdout)
         sys.stdout.write("\n")
         return EXIT_OK
-    if args.grad:
-        raise InputError("--grad", "needs --json (derivatives are reported in the JSON object)")
     from chiropt.report.spectra import plot_far_field
 
-    out_dir = Path(args.out) if args.out else Path.cwd()
-    out_dir.mkdir(parents=True, exist_ok=True)
     stem = Path(args.design).stem
     png = plot_far_field(response, out_dir / f"{stem}-spectrum.png")
     _print_table(response)
+    if response.validity is not None:
+        _print_validity(response.validity)
+    if args.at_nm is not None:
+        _print_orders(_orders_at(design, args.at_nm), args.at_nm)
     print(f"spectrum plot: {png}")
     return EXIT_OK
 
@@ -70,8 +113,6 @@ def _orders_at(design, at_nm: float) -> list:
 def _write_fields(design, response, args) -> None:
     from chiropt.fields import representative_plane_nm, write_fields_npz
 
-    if not 2 <= args.grid <= 1024:
-        raise InputError("--grid", f"got {args.grid}, allowed an integer in [2, 1024]")
     sol = response.solution
     z_nm = representative_plane_nm(sol.structure, design.region)
     write_fields_npz(args.fields, sol, z_nm=z_nm, n=args.grid)
@@ -81,11 +122,11 @@ def _write_fields(design, response, args) -> None:
 def _print_table(response) -> None:
     wl = response.wavelength_nm
     m = response.metrics
-    step = max(1, len(wl) // 12)
+    step = max(1, len(wl) // TABLE_ROWS)
     head = (f"{'lambda (nm)':>12} {'R(+1)':>8} {'T(+1)':>8} {'A(+1)':>8} "
             f"{'R(-1)':>8} {'T(-1)':>8} {'A(-1)':>8}")
     if m is not None:
-        head += f" {'u':>8} {'g':>8} {'DOCP(+1)':>9}"
+        head += f" {'u':>8} {'g':>8} {'DOCP(+1)':>9} {'DOCP(-1)':>9}"
     print(head)
     rows = list(range(0, len(wl), step))
     if rows[-1] != len(wl) - 1:
@@ -94,10 +135,39 @@ def _print_table(response) -> None:
         line = f"{wl[i]:12.2f} " + " ".join(
             f"{getattr(response, q)[i, h]:8.4f}" for h in (0, 1) for q in ("R", "T", "A"))
         if m is not None:
-            line += f" {m['u'][i]:8.4f} {m['g'][i]:8.4f} {m['docp']['+1'][i]:9.4f}"
+            line += (f" {m['u'][i]:8.4f} {m['g'][i]:8.4f} {m['docp']['+1'][i]:9.4f}"
+                     f" {m['docp']['-1'][i]:9.4f}")
         print(line)
+    if len(rows) < len(wl):
+        print(f"{len(rows)} of {len(wl)} wavelengths shown; --json for all")
     if m is not None:
         print("u, g, DOCP: averages over the design's region (see `chiropt inspect`)")
+
+
+def _print_validity(check: dict) -> None:
+    from chiropt.response import VALIDITY_TOLERANCE
+
+    print(f"validity: change of each quantity from lmax = {check['lmax']} to "
+          f"lmax = {check['lmax_check']} (largest over wavelengths)")
+    for name, change in sorted(check["change"].items(), key=lambda kv: -kv[1]):
+        flag = "  above the tolerance" if change > VALIDITY_TOLERANCE else ""
+        print(f"  {name:16s} {change:10.3g}{flag}")
+    print(f"  worst {check['worst']:.3g} (tolerance {VALIDITY_TOLERANCE:g})")
+
+
+def _print_orders(rows: list, at_nm: float) -> None:
+    print(f"diffraction orders at {at_nm:g} nm (share of the region-averaged intensity):")
+    print(f"{'(m,n)':>9} {'kind':>11} {'share':>9} {'g':>9} {'DOCP(+1)':>9} {'DOCP(-1)':>9} "
+          f"{'CD bound':>9}")
+    shown = sorted(rows, key=lambda r: -r["share"])[:TABLE_ROWS]
+    for r in shown:
+        bound = f"{r['bound']:9.4f}" if r.get("bound") is not None else f"{'-':>9}"
+        kind = "evanescent" if r["evanescent"] else "propagating"
+        order = f"({r['m']},{r['n']})"
+        print(f"{order:>9} {kind:>11} {r['share']:9.3g} {r['g']:9.4f} "
+              f"{r['docp']['+1']:9.4f} {r['docp']['-1']:9.4f} {bound}")
+    if len(shown) < len(rows):
+        print(f"{len(shown)} of {len(rows)} orders shown (the strongest); --json for all")
 
 
 def _cmd_inspect(args) -> int:
@@ -108,9 +178,13 @@ def _cmd_inspect(args) -> int:
     if design.region is None:
         raise InputError("region", "inspect needs a region in the design, e.g. "
                                    "region: {kind: plane, height_nm: 10}")
-    out_dir = Path(args.out) if args.out else Path(args.design).resolve().parent
-    for path in inspect_design(design, args.at_nm, out_dir, grid=args.grid):
+    _check_grid(args.grid)
+    out_dir = _output_folder("--out", Path(args.out) if args.out else Path.cwd())
+    notes: list[str] = []
+    for path in inspect_design(design, args.at_nm, out_dir, grid=args.grid, notes=notes):
         print(path)
+    for note in notes:
+        print(f"warning: {note}", file=sys.stderr)
     return EXIT_OK
 
 
@@ -121,6 +195,9 @@ def _cmd_export(args) -> int:
     design = load_design(args.design)
     if not (args.gds or args.setup):
         raise InputError("export", "give --gds FILE.gds and/or --setup FILE.json")
+    for option, path in (("--gds", args.gds), ("--setup", args.setup)):
+        if path:
+            _output_file(option, path)
     if args.gds:
         print(f"layout: {write_gds(design, args.gds, cells=args.cells)}")
     if args.setup:
@@ -131,6 +208,7 @@ def _cmd_export(args) -> int:
 def _cmd_materials(args) -> int:
     from chiropt.materials import list_short_names
 
+    print(f"{'name':8s} {'database entry':32s} {'data range':18s} source")
     for row in list_short_names():
         name, ident, rng, ref = row[:4]
         print(f"{name:8s} {ident:32s} {rng[0]:7.0f}-{rng[1]:<7.0f} nm  {ref.splitlines()[0]}")
@@ -140,16 +218,25 @@ def _cmd_materials(args) -> int:
 def _cmd_run(args) -> int:
     from chiropt.run import run_goal_file
 
+    from chiropt.goals import load_goal
+
+    for g in load_goal(args.goal):
+        if g.name_note:
+            print(g.name_note, file=sys.stderr)
     summaries = run_goal_file(args.goal, out=args.out, workers=args.workers,
                               progress=not args.quiet)
     for s in summaries:
         print(f"{s.run_dir}: {s.status}; {s.n_evaluations} evaluations ({s.n_failed} failed), "
-              f"front of {len(s.front)} design{'' if len(s.front) == 1 else 's'}, "
-              f"{len(s.candidates)} candidates")
+              f"front of {_count(len(s.front), 'design')}, "
+              f"{_count(len(s.candidates), 'candidate')}")
     if any(s.status == "interrupted" for s in summaries):
         print("chiropt: interrupted; run the same command to resume", file=sys.stderr)
         return 130
     return EXIT_OK if all(s.status == "complete" for s in summaries) else EXIT_FAILED
+
+
+def _count(n: int, word: str) -> str:
+    return f"{n} {word}" if n == 1 else f"{n} {word}s"
 
 
 def _cmd_goal(args) -> int:
@@ -162,6 +249,8 @@ def _cmd_goal(args) -> int:
         from chiropt.goals import check_goal, load_goal
 
         for g in load_goal(args.check):
+            if g.name_note:
+                print(g.name_note, file=sys.stderr)
             check_goal(g)
             print(f"{g.run_name}: valid ({len(g.variables)} variables, "
                   f"{len(g.objectives)} objective(s), {len(g.constraints)} constraint(s))")
@@ -189,21 +278,24 @@ def build_parser() -> argparse.ArgumentParser:
                     help="also solve with one more multipole order and report the change of "
                          "every quantity (warns when it exceeds 0.01)")
     ev.add_argument("--at-nm", type=float, metavar="L",
-                    help="with --json and a region: add the per-order table at wavelength L (nm)")
+                    help="with a region: the per-order table at wavelength L (nm); in the JSON "
+                         "object with --json")
     ev.add_argument("--fields", metavar="FILE.npz",
                     help="write complex E and Z0 H on a grid over the cell at the region's plane "
                          "(a slab's mid-plane)")
     ev.add_argument("--grid", type=int, default=32, metavar="N",
-                    help="grid points per lattice vector for --fields (default 32)")
+                    help="grid points per lattice vector for --fields (default 32, allowed "
+                         f"{GRID_RANGE[0]}-{GRID_RANGE[1]})")
     ev.set_defaults(func=_cmd_evaluate)
     ins = sub.add_parser("inspect", help="near-field maps, spectra and diffraction-order "
                                          "analysis of one design at one wavelength")
     ins.add_argument("design", help="design file (YAML) with a region")
     ins.add_argument("--at-nm", type=float, required=True, metavar="L",
                      help="wavelength (nm) of the maps and order analysis")
-    ins.add_argument("--out", help="folder for the figures (default: beside the design file)")
+    ins.add_argument("--out", help="folder for the figures (default: the current folder)")
     ins.add_argument("--grid", type=int, default=64, metavar="N",
-                     help="grid points per lattice vector of the maps (default 64)")
+                     help="grid points per lattice vector of the maps (default 64, allowed "
+                          f"{GRID_RANGE[0]}-{GRID_RANGE[1]})")
     ins.set_defaults(func=_cmd_inspect)
     ex = sub.add_parser("export", help="write a design (e.g. a run's candidate) as a GDSII "
                                        "layout and/or a full-wave set-up file")

@@ -11,6 +11,8 @@ User-facing units: lengths and wavelengths in nm, angles in degrees.
 from __future__ import annotations
 
 import math
+import re
+import unicodedata
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -304,6 +306,10 @@ def design_from_dict(data: dict, *, base_dir: str | Path = ".", located: Located
 
 def _design_from_dict(data: dict, *, base_dir, prefix: str) -> Design:
     P = prefix
+    if (not prefix and isinstance(data, dict) and "lattice" not in data
+            and {"objectives", "variables"} & set(data)):
+        raise InputError("", "this is a goal file (it has objectives/variables), not a design "
+                             "file; use chiropt run (or chiropt goal --check) with it")
     check_keys(data, TOP_KEYS, prefix.rstrip("."))
     for required in ("lattice", "particles", "illumination"):
         if required not in data:
@@ -494,7 +500,8 @@ def check_geometry(design: Design, prefix: str = "") -> None:
             raise InputError(f"{prefix}particles[{i}].radius_nm",
                              f"diameter {2 * p.radius_nm:g} nm exceeds the shortest lattice "
                              f"period {shortest:g} nm (spheres would overlap their neighbours); "
-                             f"allowed radius <= {shortest / 2:g} nm")
+                             f"allowed radius <= {shortest / 2:g} nm, or {prefix}lattice.period_nm "
+                             f"of at least {2 * p.radius_nm:g} nm")
         if 2 * _circumradius(p) > shortest:
             raise InputError(f"{prefix}particles[{i}].height_nm",
                              f"the circumscribing sphere of this {p.shape} (diameter "
@@ -551,6 +558,17 @@ def _circumradius(part: ParticleSpec) -> float:
     if part.shape == "cylinder":
         return math.hypot(part.radius_nm, part.height_nm / 2.0)
     return max(part.radius_nm, part.half_height_nm)
+
+
+def file_safe_name(label: str) -> str:
+    """``label`` made safe as a file or folder name: ASCII letters, digits and ``._+-``.
+
+    Accents are dropped (``café`` -> ``cafe``), other characters (``/``, spaces, ``..``
+    at the ends) become ``_`` or are stripped; an empty result becomes ``design``.
+    """
+    ascii_ = unicodedata.normalize("NFKD", str(label)).encode("ascii", "ignore").decode()
+    safe = re.sub(r"[^A-Za-z0-9._+-]+", "_", ascii_).strip("._-")
+    return safe[:120] or "design"
 
 
 def load_design(path: str | Path) -> Design:

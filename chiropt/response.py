@@ -66,6 +66,10 @@ class Response:
                 if k in m:
                     out["metrics"][k] = {h: onp.asarray(v).tolist() for h, v in m[k].items()}
             out["metrics"]["n_orders"] = int(m["n_orders"])
+        # absorbed in the particles themselves (null where the model does not separate it)
+        a_p = onp.broadcast_to(onp.asarray(self.A_dipoles, float), self.R.shape)
+        out["A_particles"] = {h: [v if onp.isfinite(v) else None for v in a_p[:, j].tolist()]
+                              for j, h in enumerate(("+1", "-1"))}
         out["lmax"] = self.lmax
         if self.validity is not None:
             out["validity"] = self.validity

@@ -17,6 +17,7 @@ from typing import Any
 import autograd.numpy as np
 from autograd.tracer import getval
 
+from chiropt.errors import MaterialRangeError
 from chiropt.design import Design
 from chiropt.lattice import Lattice
 from chiropt.materials import get_material
@@ -120,7 +121,14 @@ def material_index(spec: Any, wavelength_nm, *, key: str, base_dir: str, p: dict
     """
     if p is not None and pkey and f"{pkey}.n" in p:
         return (p[f"{pkey}.n"] + 1j * p[f"{pkey}.k"]) * np.ones_like(wavelength_nm)
-    return get_material(spec, key=key, base_dir=base_dir).index(wavelength_nm)
+    material = get_material(spec, key=key, base_dir=base_dir)
+    try:
+        return material.index(wavelength_nm)
+    except MaterialRangeError as exc:  # name both keys: the wavelengths and the material
+        err = MaterialRangeError("illumination.wavelength_nm", f"{exc.message} (the material "
+                                                              f"of {key})")
+        err.range_nm = getattr(exc, "range_nm", None)
+        raise err from None
 
 
 def build_structure(design: Design, values: dict[str, Any] | None = None) -> Structure:

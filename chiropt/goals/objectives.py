@@ -455,9 +455,23 @@ def check_goal(goal: Goal) -> dict[str, Any]:
     try:
         q = compute_quantities(problem.eval_design)
     except MaterialRangeError as exc:
-        raise goal.error("design", str(exc)) from None
+        raise goal.error(_wavelength_key(goal, getattr(exc, "range_nm", None)),
+                         exc.message) from None
     except InputError:
         raise
     except (ComputationError, onp.linalg.LinAlgError) as exc:
         return {"error": f"{type(exc).__name__}: {exc}"}
     return {"wavelength_nm": problem.wavelengths_nm.tolist(), "quantities": _plain(q)}
+
+
+def _wavelength_key(goal, range_nm) -> str:
+    """Key path of the first goal wavelength (``at_nm``/``band_nm``) outside ``range_nm``."""
+    if range_nm is not None:
+        lo, hi = range_nm
+        for group in ("objectives", "constraints"):
+            for i, item in enumerate(getattr(goal, group)):
+                wl = getattr(item, "wavelengths_nm", None)
+                if wl and any(not lo <= w <= hi for w in wl):
+                    word = "band_nm" if getattr(item, "band_nm", None) else "at_nm"
+                    return f"{group}[{i}].{word}"
+    return "design.illumination.wavelength_nm"

@@ -94,7 +94,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
-from chiropt.design import Design, design_from_dict, load_design
+from chiropt.design import Design, design_from_dict, file_safe_name, load_design
 from chiropt.errors import InputError
 from chiropt.search.algorithms import get_algorithm
 from chiropt.sensitivity import FAR_FIELD, NEAR_FIELD
@@ -106,7 +106,8 @@ __all__ = [
     "Variable", "WavelengthSpec", "goal_from_dict", "load_goal", "parse_wall_time",
 ]  # fmt: skip
 
-EXPLAIN = __doc__
+# the user reference only: from its heading on (the module notes above it are for developers)
+EXPLAIN = __doc__[__doc__.index("Goal file reference"):].rstrip() + "\n"
 
 AVERAGED = ("docp", "s0", "R", "T", "A")  # helicity averages of the +1/-1 quantities
 METRIC_NAMES = FAR_FIELD + NEAR_FIELD + AVERAGED
@@ -299,8 +300,19 @@ class Goal:
     @property
     def run_name(self) -> str:
         """Folder name of the run: ``<name>-<material>`` (file-system safe)."""
-        label = f"{self.name}-{self.material}" if self.material else self.name
-        return re.sub(r"[^A-Za-z0-9._+-]+", "_", label)
+        return file_safe_name(self._label)
+
+    @property
+    def _label(self) -> str:
+        return f"{self.name}-{self.material}" if self.material else self.name
+
+    @property
+    def name_note(self) -> str:
+        """A note when the run folder's name differs from the goal's name ('' otherwise)."""
+        if self.run_name == self._label:
+            return ""
+        return (f"note: run folder named {self.run_name!r} (from {self._label!r}: only ASCII "
+                "letters, digits and ._+- are kept in file names)")
 
     @property
     def metric_constraints(self) -> tuple[MetricConstraint, ...]:
@@ -408,6 +420,9 @@ def goal_from_dict(data: dict, *, base_dir: str | Path = ".", located: Located |
                    default_name: str = "goal") -> list[Goal]:
     """Validate plain goal data into one :class:`Goal` per material (see module docstring)."""
     ctx = _Ctx(located)
+    if isinstance(data, dict) and "design" not in data and {"lattice", "particles"} & set(data):
+        raise InputError("", "this is a design file (it has lattice/particles), not a goal "
+                             "file; use chiropt evaluate (or chiropt inspect) with it")
     ctx.keys(data, TOP_KEYS, "")
     for required in ("design", "variables", "objectives"):
         if required not in data:

@@ -127,12 +127,14 @@ class Material:
             lo, hi = self.wavelength_range_nm
             bad = raw[out]
             count = f" ({bad.size} of {raw.size} values)" if raw.size > 1 else ""
-            raise MaterialRangeError(
+            err = MaterialRangeError(
                 key="",
                 message=(f"material {self.label()} has data for {lo:g}-{hi:g} nm only; "
                          f"requested {_describe(bad)} nm{count}. Narrow the wavelength "
                          f"range or choose a material entry that covers it"),
             )
+            err.range_nm = (float(lo), float(hi))
+            raise err
         return wavelength_nm if isbox(wavelength_nm) else raw
 
     def index(self, wavelength_nm):

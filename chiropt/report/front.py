@@ -63,7 +63,8 @@ def _order_overlay(ax, problem, rec, spec) -> str:
         K = top["K"]
         d, g = attainable_boundary(K)
         ax.plot(d, g, color="0.35", lw=0.9, ls=(0, (3, 2)),
-                label=f"attainable, order ({top['m']},{top['n']}), K = {K:.3g}")
+                label=f"attainable, order ({top['m']},{top['n']}) of the largest-g front "
+                      f"design (evaluation {getattr(rec, 'id', '?')}), K = {K:.3g}")
         ax.axhline(top["bound"], color="0.35", lw=0.8, ls=":",
                    label=f"CD bound of that order, K²/√(2K²−1) = {top['bound']:.3g}")
         return f"bound:{top['bound']}"

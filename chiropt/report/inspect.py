@@ -22,10 +22,12 @@ from chiropt.report.style import HELICITY_LABEL, HELICITY_STYLE, PALETTE, new_fi
 MAP = "cividis"
 
 
-def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64) -> list[Path]:
+def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64,
+                   notes: list[str] | None = None) -> list[Path]:
     """Draw the inspection figures of ``design`` (which must have a region) at ``at_nm``.
 
-    Returns the list of PNG paths written.
+    Returns the list of PNG paths written; the model's warnings (validity of the model,
+    as ``chiropt evaluate`` prints them) are appended to ``notes`` when given.
     """
     from chiropt.fields import representative_plane_nm
     from chiropt.metrics import order_table, plane_maps
@@ -34,19 +36,29 @@ def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64)
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
-    stem = design.name or "design"
+    from chiropt.design import file_safe_name
+
+    stem = file_safe_name(design.name or "design")
     region = design.region
     tol = metrics_tolerance(design)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        response = evaluate(design)
-        sol = run_model(design.with_wavelengths([at_nm])).solution
+    response = evaluate(design)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        sol = run_model(design.with_wavelengths([at_nm]), warn=True).solution
+    if notes is not None:
+        if design.name and stem != design.name:
+            notes.append(f"file names use {stem!r} for the design name {design.name!r} (only "
+                         "ASCII letters, digits and ._+- are kept in file names)")
+        for note in list(response.warnings) + [str(w.message) for w in caught]:
+            if note not in notes:
+                notes.append(note)
     z_nm = representative_plane_nm(sol.structure, region)
     maps = plane_maps(sol, z_nm, grid, tol=tol)
     table = order_table(sol, region, 0, tol=tol)
+    spectra = "spectra" if stem.endswith("near-field") else "near-field-spectra"
     paths = [
         _plot_maps(maps, design, at_nm, z_nm, out_dir / f"{stem}-maps-{at_nm:g}nm.png"),
-        _plot_spectra(response, at_nm, out_dir / f"{stem}-near-field-spectra.png"),
+        _plot_spectra(response, at_nm, out_dir / f"{stem}-{spectra}.png"),
         _plot_order_shares(table, at_nm, out_dir / f"{stem}-orders-{at_nm:g}nm.png"),
         _plot_order_plane(table, at_nm, out_dir / f"{stem}-orders-plane-{at_nm:g}nm.png"),
     ]
@@ -185,8 +197,13 @@ def _plot_order_plane(table, at_nm, path, *, top: int = 6):
                     label=f"attainable, K = {r['K']:.2f}")
             ax.axhline(r["bound"], color=str(seen[K]), linewidth=0.6, linestyle="--")
         ax.plot(r["docp"]["+1"], r["g"], "o", color=PALETTE["g"], mec="black", mew=0.5)
-    for (d, g), labels in groups.items():
-        ax.annotate(" ".join(labels), (d, g), fontsize=7, xytext=(4, 4),
+    # labels of points close together are stacked upwards so that they do not overlap
+    placed: list[tuple[float, float]] = []
+    for (d, g), labels in sorted(groups.items(), key=lambda kv: (kv[0][1], kv[0][0])):
+        near = sum(1 for (d0, g0) in placed if abs(d - d0) < 0.08 and abs(g - g0) < 0.08 *
+                   max(1.0, abs(g)))
+        placed.append((d, g))
+        ax.annotate(" ".join(labels), (d, g), fontsize=7, xytext=(4, 4 + 9 * near),
                     textcoords="offset points")
     ax.axhline(0.0, color="0.6", linewidth=0.6)
     ax.axvline(0.0, color="0.6", linewidth=0.6)
