@@ -112,10 +112,12 @@ def _orders_at(design, at_nm: float) -> list:
 
 def _write_fields(design, response, args) -> None:
     from chiropt.fields import representative_plane_nm, write_fields_npz
+    from chiropt.model import maps_tolerance
 
     sol = response.solution
     z_nm = representative_plane_nm(sol.structure, design.region)
-    write_fields_npz(args.fields, sol, z_nm=z_nm, n=args.grid)
+    # point values: the orders the solve kept for maps (evaluate(keep_solution=True))
+    write_fields_npz(args.fields, sol, z_nm=z_nm, n=args.grid, tol=maps_tolerance(design))
     print(f"fields: {args.fields} (z = {z_nm:.2f} nm)", file=sys.stderr)
 
 

@@ -355,12 +355,16 @@ def _design_from_dict(data: dict, *, base_dir, prefix: str) -> Design:
                             low=-360.0, high=360.0, unit="deg"),
         side=side)
     region = _region(data["region"], P + "region") if data.get("region") is not None else None
-    lmax: int | str = 1
+    # Non-spherical particles couple every multipole order to the next: a truncated
+    # T-matrix loses energy (a lossless Si-like disk at lmax 2: |R + T - 1| ~ 4e-4), so
+    # their default order is chosen by convergence ('auto'), spheres keep the dipoles.
+    default_lmax: int | str = 1 if all(p.shape == "sphere" for p in particles) else "auto"
+    lmax: int | str = default_lmax
     lmax_tol, tol = 1e-6, 1e-8
     if data.get("model") is not None:
         model = data["model"]
         check_keys(model, {"lmax", "tolerance", "lmax_tolerance"}, P + "model")
-        lmax = model.get("lmax", 1)
+        lmax = model.get("lmax", default_lmax)
         if lmax != "auto" and (isinstance(lmax, bool) or not isinstance(lmax, int)
                                or not 1 <= lmax <= 8):
             raise InputError(P + "model.lmax", f"got {lmax!r}, allowed an integer in [1, 8] "
@@ -545,12 +549,15 @@ def _check_expansion_limits(design: Design, prefix: str) -> None:
     if region is not None:
         key, low = (("region.height_nm", region.height_nm) if region.kind == "plane"
                     else ("region.from_nm", region.from_nm))
-        if low < worst_gap:
+        # heights are counted from the tallest top; every particle's bottom is at gap_nm
+        tallest = max(2.0 * p.half_height_nm for p in design.particles)
+        need = max(p.half_height_nm + _circumradius(p) for p in design.particles) - tallest
+        if low < need:
             raise InputError(prefix + key,
                              f"got {low:g} nm; near fields of a cylinder or spheroid are "
                              "computed from its multipole expansion, valid above its "
                              f"circumscribing sphere: allowed {key.split('.')[-1]} >= "
-                             f"{worst_gap:.4g} nm")
+                             f"{need:.4g} nm")
 
 
 def _circumradius(part: ParticleSpec) -> float:

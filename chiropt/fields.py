@@ -33,7 +33,7 @@ import autograd.numpy as np
 import numpy as onp
 from autograd.tracer import getval
 
-from chiropt.errors import InputError
+from chiropt.errors import ComputationError, InputError
 from chiropt.lattice import order_indices, order_wavevectors
 from chiropt.lattice.orders import KZ_FLOOR
 from chiropt.planewaves import cross, kz_branch, order_basis
@@ -427,8 +427,9 @@ def _multipole_content(solution, mn, g_norm, q_all, kz_all, k, down0, z):
     st = solution.structure
     G = mn.shape[0]
     if len(solution.orders.mn) < G or not onp.array_equal(solution.orders.mn[:G], mn):
-        raise InputError("region", "the multipole solution keeps too few orders for this "
-                                   "region; solve it with the region's g_max")
+        raise ComputationError("internal: the multipole solution keeps fewer diffraction "
+                               "orders than this plane needs; solve it with the plane's "
+                               "g_max (region_g_max)")
     up = solution.up_sp[:, :, :G, :] * np.exp(1j * solution.orders.kz[:, :G] *
                                                (z - st.z_top))[:, None, :, None]
     return OrderContent(mn, g_norm, q_all, kz_all, k, np.transpose(up, (0, 1, 3, 2)), down0, z,

@@ -58,6 +58,8 @@ class Response:
         for name in ("R", "T", "A"):
             arr = getattr(self, name)
             out[name] = {"+1": arr[:, 0].tolist(), "-1": arr[:, 1].tolist()}
+        out["A_particles"] = {"+1": self.A_dipoles[:, 0].tolist(),
+                              "-1": self.A_dipoles[:, 1].tolist()}
         if self.metrics is not None:
             m = self.metrics
             out["metrics"] = {k: onp.asarray(m[k]).tolist()
@@ -94,7 +96,7 @@ def evaluate(design: Design, *, keep_solution: bool = False,
     notes: list[str] = []
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        out = run_model(design, area_grid=AREA_GRID, warn=True)
+        out = run_model(design, area_grid=AREA_GRID, warn=True, maps=keep_solution)
         check = validity(design, out) if with_validity else None
     st, sol, frac, metrics = out.structure, out.solution, out.fractions, out.metrics
     if check is not None and check["worst"] > VALIDITY_TOLERANCE:

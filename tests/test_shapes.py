@@ -89,3 +89,20 @@ def test_gradients_of_non_spherical_designs_match_finite_differences(shape):
         fd = (objective(compute_quantities(d, {path: v0 + h}))
               - objective(compute_quantities(d, {path: v0 - h}))) / (2 * h)
         assert abs(sens.gradient[path] - fd) < 1e-5 * max(abs(fd), 1e-3), (path, fd)
+
+
+@pytest.mark.parametrize("radius, height, n", [(90, 120, 3.5), (60, 150, 2.0), (100, 60, 3.0)])
+def test_lossless_cylinder_conserves_energy_at_the_default_order(radius, height, n):
+    # energy conservation of a lossless array (Poynting's theorem); common practice
+    from chiropt.design import design_from_dict
+    from chiropt.model import run_model
+    from chiropt.yamlio import parse_yaml
+
+    text = (f"lattice: {{kind: square, period_nm: 420}}\n"
+            f"particles: [{{shape: cylinder, radius_nm: {radius}, height_nm: {height}, "
+            f"material: {{n: {n}, k: 0}}}}]\n"
+            "illumination: {wavelength_nm: [450, 600, 750, 900]}\n")
+    out = run_model(design_from_dict(parse_yaml(text)))
+    f = out.fractions
+    assert out.lmax >= 2
+    assert np.max(np.abs(f["R"] + f["T"] - 1.0)) < 1e-6

@@ -32,7 +32,7 @@ def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64,
     from chiropt.fields import representative_plane_nm
     from chiropt.metrics import order_table, plane_maps
     from chiropt.response import evaluate
-    from chiropt.model import metrics_tolerance, run_model
+    from chiropt.model import maps_tolerance, metrics_tolerance, run_model
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -44,7 +44,7 @@ def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64,
     response = evaluate(design)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        sol = run_model(design.with_wavelengths([at_nm]), warn=True).solution
+        sol = run_model(design.with_wavelengths([at_nm]), warn=True, maps=True).solution
     if notes is not None:
         if design.name and stem != design.name:
             notes.append(f"file names use {stem!r} for the design name {design.name!r} (only "
@@ -53,7 +53,7 @@ def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64,
             if note not in notes:
                 notes.append(note)
     z_nm = representative_plane_nm(sol.structure, region)
-    maps = plane_maps(sol, z_nm, grid, tol=tol)
+    maps = plane_maps(sol, z_nm, grid, tol=maps_tolerance(design))
     table = order_table(sol, region, 0, tol=tol)
     spectra = "spectra" if stem.endswith("near-field") else "near-field-spectra"
     paths = [
@@ -213,3 +213,4 @@ def _plot_order_plane(table, at_nm, path, *, top: int = 6):
     ax.legend(loc="lower left", fontsize=7)
     save(fig, path)
     return path
+
