@@ -95,7 +95,7 @@ def test_no_reference_outside_the_repository():
 def test_cited_markdown_files_exist():
     # every *.md named in code, tests and docs is in the repository
     names = set()
-    for n in _tracked():
+    for n in [n for n in _tracked() if not n.endswith(Path(__file__).name)]:
         names |= set(re.findall(r"\b((?:docs/)?[\w-]+\.md)\b", (ROOT / n).read_text()))
     missing = [m for m in names if not ((ROOT / m).is_file() or (ROOT / "docs" / m).is_file()
                                         or m in ("README.md",))]
