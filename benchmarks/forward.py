@@ -1,7 +1,7 @@
 """Forward-model speed: time per (design, wavelength) point, one sphere per cell.
 
 Run by hand: ``python benchmarks/forward.py``. Prints figures; asserts nothing.
-Target (issue: foundation): < 0.5 ms per point on one core, lattice sums to 1e-8.
+Target: < 0.5 ms per point on one core, lattice sums to 1e-8.
 """
 
 from __future__ import annotations

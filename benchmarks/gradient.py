@@ -1,7 +1,7 @@
 """Gradient cost over forward cost (reverse mode, all design quantities at once).
 
 Run by hand: ``python benchmarks/gradient.py``. Prints figures; asserts nothing.
-Target (issue: gradients): gradient <= 4x forward, one sphere per cell, with substrate,
+Target: gradient <= 4x forward, one sphere per cell, with substrate,
 for one wavelength and for a 31-point band average.
 """
 

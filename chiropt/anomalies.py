@@ -26,7 +26,7 @@ def rayleigh_wavelengths_nm(design: Design, *, max_index: int = 2) -> list[tuple
 
     References
     ----------
-    FORMULAS.md §3 (Rayleigh anomaly condition); square lattice at normal incidence:
+    docs/theory.md §5 (Rayleigh anomaly condition); square lattice at normal incidence:
     lambda = n a (common practice).
     """
     from chiropt.structure import material_index

@@ -100,7 +100,7 @@ def _cmd_evaluate(args) -> int:
 
 
 def _orders_at(design, at_nm: float) -> list:
-    """Per-order table at the wavelength ``at_nm`` itself (CONTRACT.md)."""
+    """Per-order table at the wavelength ``at_nm`` itself (docs/cli.md)."""
     from chiropt.metrics import order_table
     from chiropt.model import metrics_tolerance, run_model
 

@@ -53,7 +53,7 @@ def power_fractions(sol: Solution) -> dict:
     ----------
     Absorbed power of a dipole with radiative correction:
     W_abs = (omega/2) eps |P|^2 (-Im(1/alpha) - k^3/(6 pi)) (Draine, ApJ 333, 848 (1988);
-    FORMULAS.md §2); fluxes from the Poynting vector of each order (FORMULAS.md §3).
+    docs/theory.md §7); fluxes from the Poynting vector of each order (docs/theory.md §11).
     """
     st = sol.structure
     inc = incident_flux(sol)[:, None]

@@ -3,10 +3,10 @@
 Owns: the vertical extent of a region above the particles, the number of evanescent
 orders a region needs for a tolerance, the plane-wave amplitudes of every order at any
 height above the particle tops, field maps on a grid over the unit cell, and the
-fields ``.npz`` file (CONTRACT.md, ``--fields``).
+fields ``.npz`` file (docs/cli.md, ``--fields``).
 Must not import: metrics, search, store, report, cli.
 
-Conventions (PHYSICS.md §1, §3; FORMULAS.md §0, §3): SI units, ``exp(-i omega t)``,
+Conventions (docs/theory.md §1, §5): SI units, ``exp(-i omega t)``,
 heights ``z`` measured like :attr:`chiropt.structure.Structure.centres` (from the
 substrate top, or from the particle bottoms without a substrate). Above every particle
 the field is exactly
@@ -96,7 +96,7 @@ def decay_exponent(tol: float) -> float:
 
     The power in a ring of evanescent orders at |q| seen at distance d from a dipole sheet
     falls like |q|^3 exp(-2 |q| d) (pref ~ 1/|q|, (I - k k) P ~ q^2, ring size ~ |q|;
-    FORMULAS.md §3), hence x = 2 |q| d.
+    docs/theory.md §5), hence x = 2 |q| d.
     """
     if not (0.0 < tol < 1.0):
         raise InputError("tolerance", f"got {tol!r}, allowed a number in (0, 1)")
@@ -245,7 +245,7 @@ def order_content(solution: Solution, z, *, g_max: float | None = None,
 
     References
     ----------
-    FORMULAS.md §3 (sheet emission E_g = pref [(I - k k) P - k x M], substrate
+    docs/theory.md §5, §10 (sheet emission E_g = pref [(I - k k) P - k x M], substrate
     reflection per order); García de Abajo, Rev. Mod. Phys. 79, 1267 (2007), Sec. II.
     """
     st = solution.structure
@@ -336,7 +336,7 @@ def order_fields(content: OrderContent):
 
     References
     ----------
-    FORMULAS.md §3 (ZH_g = k_hat x E_g; basis (p, s, k) right-handed).
+    docs/theory.md §5 (ZH_g = k_hat x E_g; basis (p, s, k) right-handed).
     """
     s, pu, pd, ku, kd = content.basis()
     up = content.up
@@ -357,7 +357,7 @@ def order_fields(content: OrderContent):
 def cell_grid(lattice, n: int):
     """Grid points (i a1 + j a2)/n, i, j = 0..n-1, of the unit cell, (n, n, 2) [m].
 
-    A plain average over this grid is the cell average (CONTRACT.md, ``--grid N``).
+    A plain average over this grid is the cell average (docs/cli.md, ``--grid N``).
     """
     n = _check_grid(n)
     i = onp.arange(n) / n
@@ -400,7 +400,7 @@ def field_maps(content: OrderContent, lattice, n: int):
 
     References
     ----------
-    PHYSICS.md §3 (fields as sums of orders).
+    docs/theory.md §5 (fields as sums of orders).
     """
     n = _check_grid(n)
     E, ZH = order_fields(content)
@@ -438,7 +438,7 @@ def _multipole_content(solution, mn, g_norm, q_all, kz_all, k, down0, z):
 
 def write_fields_npz(path, solution: Solution, *, z_nm: float, n: int,
                      tol: float | None = None) -> dict:
-    """Write the fields file of CONTRACT.md (``--fields FILE.npz --grid N``).
+    """Write the fields file of docs/cli.md (``--fields FILE.npz --grid N``).
 
     Parameters
     ----------

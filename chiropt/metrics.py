@@ -4,10 +4,10 @@ Owns: the incident reference (the unit circular wave in the host), the quadratic
 field quantities (energy density, optical chirality, lab-frame Stokes S0 and S3) as
 local maps, as exact region averages over a plane or a slab above the particles
 (Parseval over diffraction orders, closed-form z integrals), and per diffraction order;
-the single-wave CD bound and the attainable (DOCP, g) region of an order (PHYSICS.md §5).
+the single-wave CD bound and the attainable (DOCP, g) region of an order (docs/theory.md §14).
 Must not import: search, store, report, cli.
 
-Definitions (PHYSICS.md §4; FORMULAS.md §5), for an incident wave of unit amplitude:
+Definitions (docs/theory.md §12), for an incident wave of unit amplitude:
 
 - ``|E|^2`` (energy density ``U = eps |E|^2/4``), ``C_hat = -Im(conj(E) . Z H)``
   (optical chirality ``C = -(eps omega/2) Im(conj(E) . B)`` in units of ``k U`` of a
@@ -18,7 +18,7 @@ Definitions (PHYSICS.md §4; FORMULAS.md §5), for an incident wave of unit ampl
   per helicity h: ``s0 = <S0>/S0_inc``, ``docp = (<S3>/<S0>)/(S3_inc/S0_inc)``.
 - The incident reference is the incident circular wave alone, in the host, unit
   amplitude, at the Bloch vector of the illumination: ``S0_inc = (1 + cos^2 t)/2``,
-  ``S3_inc = -h cos t`` for host-side illumination (wave going -z; PHYSICS.md §1 worked
+  ``S3_inc = -h cos t`` for host-side illumination (wave going -z; docs/theory.md §2 worked
   check), ``+h cos t`` for substrate-side illumination (wave going +z, t its polar angle
   in the host). If the Bloch vector is beyond the host light line (substrate-side
   illumination past the critical angle) no such host wave exists: the reference is then
@@ -77,7 +77,7 @@ def incident_reference(structure: Structure) -> dict:
 
     References
     ----------
-    PHYSICS.md §1 (Stokes sign, worked check), §4 (DOCP normalization).
+    docs/theory.md §2 (Stokes sign, worked check), §12 (DOCP normalization).
     """
     st = structure
     k = st.k
@@ -99,8 +99,8 @@ def quadratic_maps(E, ZH) -> dict:
 
     References
     ----------
-    Tang & Cohen, PRL 104, 163901 (2010) (optical chirality; FORMULAS.md §5 for the
-    time-harmonic form ``C = -(eps omega/2) Im(E* . B)``); PHYSICS.md §1 (Stokes).
+    Tang & Cohen, PRL 104, 163901 (2010) (optical chirality; docs/theory.md §12 for the
+    time-harmonic form ``C = -(eps omega/2) Im(E* . B)``); docs/theory.md §2 (Stokes).
     """
     def dot(a, b):  # explicit: numpy reductions over a length-3 last axis are slow
         return a[..., 0] * b[..., 0] + a[..., 1] * b[..., 1] + a[..., 2] * b[..., 2]
@@ -147,7 +147,7 @@ def local_metrics(E, ZH, structure: Structure) -> dict:
 
     References
     ----------
-    PHYSICS.md §4.
+    docs/theory.md §12.
     """
     return _metrics_from(quadratic_maps(E, ZH), incident_reference(structure))
 
@@ -189,7 +189,7 @@ def order_averages(content: OrderContent, thickness, *, side: str = "host") -> d
 
     References
     ----------
-    PHYSICS.md §3, §5 (single-wave forms); FORMULAS.md §3, §5.
+    docs/theory.md §5, §12, §14 (single-wave forms).
     """
     up = content.up
     a_s, a_p = up[:, :, 0], up[:, :, 1]                      # (W, 2, G)
@@ -266,7 +266,7 @@ def region_averages(solution: Solution, region, *, tol: float | None = None) -> 
 
     References
     ----------
-    PHYSICS.md §3 (Parseval: cross terms of different orders vanish on the cell average).
+    docs/theory.md §13 (Parseval: cross terms of different orders vanish on the cell average).
     """
     content, L = region_content(solution, region, tol=tol)
     per = order_averages(content, L, side=solution.structure.side)
@@ -297,7 +297,7 @@ def _truncation(per: dict, content: OrderContent):
 
 def region_metrics(solution: Solution, region, *, tol: float | None = None,
                    area_grid: int = 48, area_planes: int = 4) -> dict:
-    """Metrics of PHYSICS.md §4 averaged over a plane or slab above the particles.
+    """Metrics of docs/theory.md §12 averaged over a plane or slab above the particles.
 
     Parameters
     ----------
@@ -327,7 +327,7 @@ def region_metrics(solution: Solution, region, *, tol: float | None = None,
 
     References
     ----------
-    PHYSICS.md §3, §4; Tang & Cohen, PRL 104, 163901 (2010).
+    docs/theory.md §5, §12; Tang & Cohen, PRL 104, 163901 (2010).
     """
     st = solution.structure
     avg = region_averages(solution, region, tol=tol)
@@ -405,7 +405,7 @@ def cd_bound(K):
 
     References
     ----------
-    PHYSICS.md §5 (our derivation: |E|^2 = |s|^2 + (2K^2-1)|p|^2, C ~ 2K^2 Im(conj(s) p);
+    docs/theory.md §14 (our derivation: |E|^2 = |s|^2 + (2K^2-1)|p|^2, C ~ 2K^2 Im(conj(s) p);
     tested in tests/test_metrics.py).
     """
     ev = onp.asarray(getval(K)) > 1.0
@@ -444,7 +444,7 @@ def attainable_fill(K, docp, g):
 
     References
     ----------
-    PHYSICS.md §5.
+    docs/theory.md §14.
     """
     K = onp.asarray(getval(K), dtype=float)
     D = onp.asarray(getval(docp), dtype=float)
@@ -490,7 +490,7 @@ def attainable_boundary(K: float, n: int = 721):
 
     References
     ----------
-    PHYSICS.md §5 (see :func:`attainable_fill`).
+    docs/theory.md §14 (see :func:`attainable_fill`).
     """
     K = float(K)
     if K > 1.0:
@@ -521,7 +521,7 @@ def order_metrics(solution: Solution, region, *, tol: float | None = None) -> di
 
     References
     ----------
-    PHYSICS.md §4 (per-order metrics), §5 (bounds).
+    docs/theory.md §12 (per-order metrics), §14 (bounds).
     """
     st = solution.structure
     avg = region_averages(solution, region, tol=tol)
@@ -547,7 +547,7 @@ def order_metrics(solution: Solution, region, *, tol: float | None = None) -> di
 
 def order_table(solution: Solution, region, wavelength_index: int, *,
                 tol: float | None = None, min_share: float = 0.0) -> list[dict]:
-    """JSON-ready per-order table at one wavelength (CONTRACT.md ``"orders"``).
+    """JSON-ready per-order table at one wavelength (docs/cli.md ``"orders"``).
 
     Parameters
     ----------

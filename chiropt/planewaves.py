@@ -1,11 +1,11 @@
 """Plane waves of the diffraction orders: wavevectors, polarization basis, helicity vectors.
 
-Owns: the (p, s, k) basis of every order (FORMULAS.md §3), the kz branch, the
+Owns: the (p, s, k) basis of every order (docs/theory.md §5), the kz branch, the
 circular (helicity) polarization vectors, and the z-directed power flux of a plane
 wave. Pure array functions, autograd-differentiable.
 Must not import: solve, fields, metrics, search, store, report, cli.
 
-Conventions (PHYSICS.md §1, §3): ``s = z x q_hat`` (``q_hat`` = the incidence azimuth
+Conventions (docs/theory.md §1, §5): ``s = z x q_hat`` (``q_hat`` = the incidence azimuth
 direction when q = 0), ``p± = s x k_hat±`` with ``k_hat± = (q, ±kz)/k``, so that
 (p, s, k_hat) is right-handed; ``kz = sqrt(k^2 - |q|^2)`` with ``Im kz >= 0`` and
 ``kz > 0`` when real. A helicity-``h`` wave has the polarization ``(p + i h s)/sqrt(2)``:
@@ -29,7 +29,7 @@ def kz_branch(k, qq):
     -----
     The principal square root has ``Re >= 0``; its argument ``k^2 - qq`` has
     ``Im >= 0`` for passive media (``+0j`` for lossless ones), so the principal
-    branch is the physical one (PHYSICS.md §3).
+    branch is the physical one (docs/theory.md §5).
     """
     arg = k ** 2 - qq + 0j
     return np.sqrt(arg)
@@ -49,7 +49,7 @@ def order_basis(q, kz, k, azimuth):
     -------
     s, p_up, p_down, k_up, k_down : (..., 3) complex vectors. ``k_up = (q, kz)/k``;
         p vectors are complex for evanescent waves; dot products with them are
-        bilinear (no conjugation), FORMULAS.md §3.
+        bilinear (no conjugation), docs/theory.md §5.
     """
     qq = np.sum(q ** 2, axis=-1)
     nonzero = (qq > 0)[..., None]

@@ -29,7 +29,7 @@ class Response:
     Attributes
     ----------
     wavelength_nm : (W,) [nm]
-    metrics : near-field region metrics (PHYSICS.md §4) when the design has a region:
+    metrics : near-field region metrics (docs/theory.md §12) when the design has a region:
         u, c, g, background (W,); s0, docp, area_fraction {"+1", "-1"} (W,);
         truncation (W,) estimated relative truncation error; n_orders
     R, T, A : power fractions reflected (into the medium of incidence), transmitted,

@@ -6,7 +6,7 @@ the solution for the induced moments of both incident helicities, and the outgoi
 amplitudes of every diffraction order. Pure array code, autograd-differentiable.
 Must not import: metrics, search, store, report, cli.
 
-Normalization (FORMULAS.md §0, §2): ``P = p/(eps0 n_h^2)``, ``M = Z m`` [V m];
+Normalization (docs/theory.md §1, §7): ``P = p/(eps0 n_h^2)``, ``M = Z m`` [V m];
 ``P = alpha_e E_loc``, ``M = alpha_m Z H_loc``;
 ``E_loc = E_bg + k^2 (S P + i C M) + E_refl``, ``Z H_loc = Z H_bg + k^2 (S M - i C P) + ZH_refl``
 with ``C v = c x v``. Incident amplitude |E_inc| = 1 V/m, phase referenced at the origin.
@@ -43,7 +43,7 @@ class OrderSet:
     mn : (G, 2) integer order indices, (0, 0) first
     q : (W, G, 2) in-plane wavevectors [1/m]; qn : (W, G) |q| [1/m]
     kz : (W, G) normal wavenumber in the host [1/m]
-    s, p_up, p_down, k_up, k_down : (W, G, 3) basis vectors (FORMULAS.md §3)
+    s, p_up, p_down, k_up, k_down : (W, G, 3) basis vectors (docs/theory.md §5)
     """
 
     mn: Any
@@ -133,7 +133,7 @@ def orders_radius(structure: Structure, k_par=None) -> float:
     orders the reflected interaction needs to ``structure.tolerance``.
 
     Evanescent orders reflected back to particles at heights h_i, h_j above the stack
-    decay as exp(-|q|(h_i + h_j)) (FORMULAS.md §3): keep |q| <= (ln(1/tol) + 3)/(2 h_min).
+    decay as exp(-|q|(h_i + h_j)) (docs/theory.md §5): keep |q| <= (ln(1/tol) + 3)/(2 h_min).
     The count is capped at about ``MAX_ORDERS`` (tiny particles touching the stack would
     need millions); the cap and its error estimate exp(-2 |q|max h_min) are warned about.
     """
@@ -169,7 +169,7 @@ def _sp_vectors(orders: OrderSet):
     components (a_s, a_p) on (s, p±) has the 6-field (E, Z H) = a_s sigma± + a_p pi±
     (since k± x s = -p±, k± x p± = s), and a dipole sheet (P, M) radiates into it
     a_s = pref sigma±.x, a_p = pref pi±.x with pref = i k^2/(2 A kz)
-    (FORMULAS.md §3: E_g = pref [(I - k k) P - k x M]).
+    (docs/theory.md §5: E_g = pref [(I - k k) P - k x M]).
     """
     s, pu, pd = orders.s, orders.p_up, orders.p_down
     W, G = np.shape(getval(s))[:2]
@@ -225,7 +225,7 @@ def background_components(st: Structure, orders: OrderSet, coef=None):
     background wave below the stack (transmitted, or specularly reflected in the
     substrate; the incident wave itself without a stack). ``coef``: the stack seen from
     the host for the orders (None without substrate). Incident helicity h has the
-    components (i h, 1)/sqrt(2) on (s, p) (PHYSICS.md §1, checked in test_conventions).
+    components (i h, 1)/sqrt(2) on (s, p) (docs/theory.md §2, checked in test_conventions).
     """
     W = len(getval(st.k0))
     hel = np.array([[1j, 1.0], [-1j, 1.0]]) / np.sqrt(2.0)  # (helicity, [s, p]) of (p + i h s)
@@ -317,11 +317,11 @@ def solve(structure: Structure, *, warn: bool = True, g_max: float | None = None
     The stack-reflected interaction is a sum over orders of rank-2 operators
     (s and p channels), assembled as one batched matrix product
     (W, 6N, G) @ (W, G, 6N) per channel. The sum over all orders contains each
-    particle's own image (FORMULAS.md §3).
+    particle's own image (docs/theory.md §10).
 
     References
     ----------
-    FORMULAS.md §2 (coupled equations; validated by R + T = 1), §3 (orders, substrate);
+    docs/theory.md §7 (coupled equations; validated by R + T = 1), §5, §10 (orders, substrate);
     García de Abajo, Rev. Mod. Phys. 79, 1267 (2007); Evlyukhin et al., PRB 82, 045404 (2010).
     """
     st = structure

@@ -20,12 +20,12 @@ def test_evaluate_json_contract(tmp_path):
                       "illumination: {wavelength_nm: [600, 650, 700], polar_deg: 10}\n")
     res = _run("evaluate", str(design), "--json")
     assert res.returncode == 0, res.stderr
-    data = json.loads(res.stdout)  # CONTRACT.md: one JSON object, nothing else on stdout
+    data = json.loads(res.stdout)  # docs/cli.md: one JSON object, nothing else on stdout
     assert data["wavelength_nm"] == [600.0, 650.0, 700.0]
     for q in ("R", "T", "A"):
         assert set(data[q]) == {"+1", "-1"}
         assert len(data[q]["+1"]) == 3
-    # lossless particles: A = 0 within the energy-conservation accuracy (PHYSICS.md §2)
+    # lossless particles: A = 0 within the energy-conservation accuracy (docs/theory.md §8)
     assert max(abs(a) for a in data["A"]["+1"] + data["A"]["-1"]) < 1e-9
 
 
@@ -50,7 +50,7 @@ def test_invalid_input_one_line_exit_2(tmp_path):
 
 
 def test_evaluate_grad_contract(tmp_path):
-    # CONTRACT.md "--grad": "grad": {QUANTITY: {PATH: [...]}}, one value per wavelength;
+    # docs/cli.md "--grad": "grad": {QUANTITY: {PATH: [...]}}, one value per wavelength;
     # checked against a central finite difference of the JSON spectra (common practice).
     text = ("lattice: {kind: square, period_nm: %s}\n"
             "particles: [{radius_nm: 70, material: Si}]\n"
@@ -78,7 +78,7 @@ def test_evaluate_grad_unknown_path(tmp_path):
 
 
 def test_evaluate_metrics_orders_fields_contract(tmp_path):
-    # CONTRACT.md: "metrics" per wavelength, "orders" at --at-nm, npz layout of --fields.
+    # docs/cli.md: "metrics" per wavelength, "orders" at --at-nm, npz layout of --fields.
     import numpy as np
 
     design = tmp_path / "d.yaml"
@@ -97,14 +97,14 @@ def test_evaluate_metrics_orders_fields_contract(tmp_path):
         assert len(m[key]) == 2
     for key in ("s0", "docp"):
         assert set(m[key]) == {"+1", "-1"}
-    # g = c/u by definition (PHYSICS.md §4)
+    # g = c/u by definition (docs/theory.md §12)
     assert all(abs(g - c / u) < 1e-12 for g, c, u in zip(m["g"], m["c"], m["u"], strict=True))
     rows = data["orders"]
     assert rows[0]["m"] == 0 and rows[0]["n"] == 0 and rows[0]["bound"] is None
     assert abs(sum(r["share"] for r in rows) - 1.0) < 1e-6
     for r in rows[1:]:
         assert {"m", "n", "K", "evanescent", "share", "g", "docp", "bound"} <= set(r)
-        if r["evanescent"]:  # PHYSICS.md §5 bound
+        if r["evanescent"]:  # docs/theory.md §14 bound
             assert abs(r["g"]) <= r["bound"] + 1e-12
     f = np.load(npz)
     assert f["E"].shape == (2, 2, 8, 8, 3) and f["H"].shape == (2, 2, 8, 8, 3)

@@ -19,17 +19,17 @@ def _plane_wave(polar_deg, azimuth_deg, helicity):
 
 @pytest.mark.parametrize("polar_deg,azimuth_deg", [(0, 0), (0, 37), (30, 0), (55, 120)])
 def test_positive_helicity_has_positive_optical_chirality(polar_deg, azimuth_deg):
-    # PHYSICS.md §1: a +1 plane wave in the host has C > 0, with
+    # docs/theory.md §2: a +1 plane wave in the host has C > 0, with
     # C ∝ -Im(E* . Z H) (Tang & Cohen, PRL 104, 163901 (2010), e^{-i omega t}).
     for h in (+1, -1):
         e, zh = _plane_wave(polar_deg, azimuth_deg, h)
         chirality = -np.imag(np.vdot(e, zh))
         assert np.sign(chirality) == h
-        assert abs(abs(chirality) - 1.0) < 1e-12  # |C| = k U for circular light (FORMULAS §5)
+        assert abs(abs(chirality) - 1.0) < 1e-12  # |C| = k U for circular light (docs/theory.md §2)
 
 
 def test_worked_example_jones_minus_i_travelling_down():
-    # PHYSICS.md §1 worked check: a wave along -z with Jones vector (1, -i)/sqrt(2)
+    # docs/theory.md §2 worked check: a wave along -z with Jones vector (1, -i)/sqrt(2)
     # has C > 0 and lab-frame S3 = 2 Im(conj(Ex) Ey) < 0.
     e = np.array([1.0, -1j, 0.0]) / np.sqrt(2)
     zh = cross(np.array([0.0, 0.0, -1.0]) + 0j, e)
@@ -41,7 +41,7 @@ def test_worked_example_jones_minus_i_travelling_down():
 
 
 def test_basis_is_right_handed_and_transverse():
-    # FORMULAS.md §3: (p, s, k_hat) right-handed, p = s x k_hat; bilinear products.
+    # docs/theory.md §5: (p, s, k_hat) right-handed, p = s x k_hat; bilinear products.
     q = np.array([[0.3, -0.2], [1.7, 0.4]])  # second one evanescent for k = 1
     kz = kz_branch(1.0, np.sum(q ** 2, axis=-1))
     assert np.all(np.imag(kz) >= 0)

@@ -62,7 +62,7 @@ def test_spheroid_with_equal_axes_is_mie(x, m):
 
 @pytest.mark.parametrize("dims, m", SPHEROIDS)
 def test_spheroid_lossless_unitarity(dims, m):
-    # FORMULAS.md §6: T + T^† + 2 T^† T = 0 for lossless particles (unitary S matrix);
+    # docs/theory.md §4: T + T^† + 2 T^† T = 0 for lossless particles (unitary S matrix);
     # on the full internal order so that no coupling to omitted orders is cut off
     T = spheroid_tmatrix(np.array([1.0]), np.array([m + 0j]), *dims, 16, nmax=20)
     assert _unitarity(T) < 1e-9
@@ -70,7 +70,7 @@ def test_spheroid_lossless_unitarity(dims, m):
 
 @pytest.mark.parametrize("dims, m", SPHEROIDS)
 def test_spheroid_reciprocity(dims, m):
-    # FORMULAS.md §6: T^ij_{mn,m'n'} = (-1)^(m+m') T^ji_{-m'n',-mn}
+    # docs/theory.md §4: T^ij_{mn,m'n'} = (-1)^(m+m') T^ji_{-m'n',-mn}
     T = spheroid_tmatrix(np.array([1.0]), np.array([m + 0.1j]), *dims, 5)
     assert _reciprocity(T, 5) < 1e-10
 
@@ -88,7 +88,7 @@ CYLINDERS = [
 
 @pytest.mark.parametrize("r, h, m, tol", CYLINDERS)
 def test_cylinder_lossless_unitarity_and_reciprocity(r, h, m, tol):
-    # FORMULAS.md §6 (lossless identity and reciprocity)
+    # docs/theory.md §4 (lossless identity and reciprocity)
     T = cylinder_tmatrix(np.array([1.0]), np.array([m + 0j]), r, h, 12, nmax=20)
     assert _unitarity(T) < tol
     assert _reciprocity(T, 12) < tol
@@ -96,7 +96,7 @@ def test_cylinder_lossless_unitarity_and_reciprocity(r, h, m, tol):
 
 @pytest.mark.parametrize("shape, tol", [("spheroid", 1e-11), ("cylinder", 1e-5)])
 def test_mirror_symmetry_selection_rules(shape, tol):
-    # FORMULAS.md §6: z -> -z symmetric body: same-type blocks vanish for l + l' odd,
+    # docs/theory.md §4: z -> -z symmetric body: same-type blocks vanish for l + l' odd,
     # cross (N-M) blocks for l + l' even. Checked on the raw quadrature (mirror=False:
     # nothing enforced; the cylinder's forbidden entries are cancelling integrals whose
     # round-off the ill-conditioned Q amplifies) and compared with the enforced solve.
@@ -118,7 +118,7 @@ def test_mirror_symmetry_selection_rules(shape, tol):
 
 
 def test_axisymmetry_block_structure_and_minus_m_blocks():
-    # rotational symmetry: T couples only equal m (FORMULAS.md §6); the -m blocks used by
+    # rotational symmetry: T couples only equal m (docs/theory.md §4); the -m blocks used by
     # ebcm (T_-m = (-1)^(tau+tau') T_m, y -> -y mirror symmetry) against direct ones
     k, mr = np.array([1.0, 1.3]), np.array([1.5 + 0.1j, 3.0 + 0.01j])
     surf = ebcm.cylinder_surface(0.7, 1.1, 120)
@@ -181,7 +181,7 @@ def _depolarization(a, c):
 def test_small_spheroid_matches_electrostatic_polarizability(a, c):
     # Bohren & Huffman (1983) §5.3: alpha_j = V (eps - 1)/(1 + L_j (eps - 1)) (SI, per
     # eps0 eps_host); l = 1 block: alpha = -6 pi i T_N1m / k^3 (vsw dipole map,
-    # FORMULAS.md §2: alpha_e = 6 pi i a1/k^3); relative corrections O((k a)^2)
+    # docs/theory.md §3: alpha_e = 6 pi i a1/k^3); relative corrections O((k a)^2)
     scale = 0.01 / max(a, c)                    # k max(a, c) = 0.01
     a, c = a * scale, c * scale
     m = 1.5 + 0.5j

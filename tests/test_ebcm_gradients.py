@@ -93,7 +93,7 @@ def test_sphere_limit_and_mirror_zeros():
     k, mr = np.array([1.0, 1.2]), np.array([2.0 + 0.5j, 2.0 + 0.5j])
     T = ebcm.spheroid_tmatrix(k, mr, 1.1, 1.1, 4)
     assert np.abs(T - sphere_tmatrix(k * 1.1, mr, 4)).max() < 1e-12
-    # FORMULAS.md §6 selection rules, enforced as exact zeros
+    # docs/theory.md §4 selection rules, enforced as exact zeros
     T = ebcm.cylinder_tmatrix(k, mr, 0.8, 0.5, 4)
     tau, ls, ms = mode_table(4)
     same = tau[:, None] == tau[None, :]
@@ -115,7 +115,7 @@ def _label(t, l, m):
 
 
 # allowed entries (row, column) as (tau, l, m): N10-N10, M21-M21 (diagonal), N11-M21 and
-# M1-1-N2-1 (cross-type, l + l' odd; FORMULAS.md §6 selection rules)
+# M1-1-N2-1 (cross-type, l + l' odd; docs/theory.md §4 selection rules)
 ENTRIES = [(_label(0, 1, 0), _label(0, 1, 0)), (_label(1, 2, 1), _label(1, 2, 1)),
            (_label(0, 1, 1), _label(1, 2, 1)), (_label(1, 1, -1), _label(0, 2, -1))]
 NAMES = ["size1_nm", "size2_nm", "wavelength_nm", "n_re", "n_im"]

@@ -2,7 +2,7 @@
 
 Three kinds of evidence: independent slow references kept here (a literal Weyl spectral
 sum, a literal real-space sum with a Gaussian cutoff extrapolated in the cutoff radius),
-the energy identities of FORMULAS.md §4, and symmetries / independence of the splitting.
+the energy identities of docs/theory.md §8, and symmetries / independence of the splitting.
 """
 
 import autograd.numpy as anp
@@ -63,7 +63,7 @@ D_EWALD = np.array([
 @pytest.mark.parametrize("lattice", LATTICES)
 @pytest.mark.parametrize("kpar", [(0.0, 0.0), (0.2, 0.1)])
 def test_independent_of_splitting_low_frequency(lattice, kpar):
-    # FORMULAS.md §1 (Linton 2010 Ewald method): the sum does not depend on E
+    # docs/theory.md §6 (Linton 2010 Ewald method): the sum does not depend on E
     lat = LATTICES[lattice]()
     k = wavenumbers(1.35, 2.0)
     kp = bloch(k, *kpar)
@@ -80,7 +80,7 @@ def test_independent_of_splitting_low_frequency(lattice, kpar):
 @pytest.mark.parametrize("lattice", LATTICES)
 @pytest.mark.parametrize("kpar", [(0.0, 0.0), (0.15, -0.25)])
 def test_independent_of_splitting_high_frequency(lattice, kpar):
-    # FORMULAS.md §1: at period >> lambda, E >= k/(2H) keeps exp(k^2/4E^2) bounded;
+    # docs/theory.md §6: at period >> lambda, E >= k/(2H) keeps exp(k^2/4E^2) bounded;
     # E-independence still holds (Linton 2010 Ewald method)
     lat = LATTICES[lattice]()
     k = wavenumbers(0.46)
@@ -96,7 +96,7 @@ def test_independent_of_splitting_high_frequency(lattice, kpar):
 
 
 def test_default_splitting_parameter():
-    # FORMULAS.md §1: E = max(sqrt(pi/A), k/(2H)); chiropt's choice H = sqrt(3)
+    # docs/theory.md §6: E = max(sqrt(pi/A), k/(2H)); chiropt's choice H = sqrt(3)
     lat = LATTICES["hexagonal"]()
     k = wavenumbers(2.0, 0.3)
     E = splitting_parameter(k, lat)
@@ -108,7 +108,7 @@ def test_default_splitting_parameter():
 def weyl_reference(k, k_par, lat, d, n_max=40):
     """Literal spectral (Weyl) sum of S and c for one wavelength, z != 0 (slow reference).
 
-    G = (i/2A) sum_g exp(i q.rho + i kz |z|)/kz (FORMULAS.md §1), so that
+    G = (i/2A) sum_g exp(i q.rho + i kz |z|)/kz (docs/theory.md §6), so that
     S = sum (i/2A) e^(...)/kz [I - kv kv / k^2] and c = sum (i/2A) e^(...)/kz (i kv / k),
     kv = (q, kz sign z) the order's wavevector.
     """
@@ -139,7 +139,7 @@ def weyl_reference(k, k_par, lat, d, n_max=40):
     ],
 )
 def test_agrees_with_weyl_sum_off_plane(lattice, ratio, kpar, d):
-    # independent reference: literal Weyl spectral sum (FORMULAS.md §1, Linton 2010)
+    # independent reference: literal Weyl spectral sum (docs/theory.md §6, Linton 2010)
     lat = LATTICES[lattice]()
     k = wavenumbers(ratio)
     kp = bloch(k, *kpar)
@@ -227,7 +227,7 @@ ENERGY_CASES = [(lat, ratio, kpar) for lat in ("square", "hexagonal")
 
 @pytest.mark.parametrize(("lattice", "ratio", "kpar"), ENERGY_CASES)
 def test_energy_identities(lattice, ratio, kpar):
-    # FORMULAS.md §4 (García de Abajo, RMP 79, 1267 (2007)), below and above threshold
+    # docs/theory.md §8 (García de Abajo, RMP 79, 1267 (2007)), below and above threshold
     lat = LATTICES[lattice]()
     k = wavenumbers(ratio)
     kp = bloch(k, *kpar)
@@ -255,7 +255,7 @@ def test_energy_identities(lattice, ratio, kpar):
 
 
 def test_below_threshold_normal_incidence_closed_form():
-    # FORMULAS.md §4: Im(k^2 S_xx) = k/(2A) - k^3/(6 pi), Im(k^2 S_zz) = -k^3/(6 pi)
+    # docs/theory.md §8: Im(k^2 S_xx) = k/(2A) - k^3/(6 pi), Im(k^2 S_zz) = -k^3/(6 pi)
     lat = Lattice.square(A0)
     k = wavenumbers(1.5)
     S, _ = lattice_green_dyadics(k, np.zeros((1, 2)), lat, np.zeros((1, 3)), tol=1e-13)
@@ -281,7 +281,7 @@ def test_self_dyadic_symmetric_and_z_decoupled():
 
 @pytest.mark.parametrize("lattice", LATTICES)
 def test_no_magnetoelectric_self_coupling_at_normal_incidence(lattice):
-    # c = 0 at k_par = 0 for d = 0 on a centrosymmetric lattice (FORMULAS.md §2)
+    # c = 0 at k_par = 0 for d = 0 on a centrosymmetric lattice (docs/theory.md §7)
     lat = LATTICES[lattice]()
     k = wavenumbers(1.3, 0.7)
     S, c = lattice_green_dyadics(k, np.zeros((2, 2)), lat, np.zeros((1, 3)))
@@ -304,7 +304,7 @@ def test_reciprocity(d):
 
 @pytest.mark.parametrize("d", [(0.3, -0.1, 0.0), (0.2, 0.1, 0.3), (0.0, 0.0, 0.0)])
 def test_quasi_periodicity(d):
-    # convention check G(r + R) = exp(i k_par.R) G(r) (FORMULAS.md §1 definition)
+    # convention check G(r + R) = exp(i k_par.R) G(r) (docs/theory.md §6 definition)
     lat = LATTICES["oblique"]()
     k = wavenumbers(1.2)
     kp = bloch(k, 0.25, 0.1)
@@ -330,7 +330,7 @@ def test_batch_equals_single_wavelengths():
 
 # ---------------------------------------------------------------- Rayleigh anomaly
 def test_rayleigh_anomaly_finite_and_growing_like_inverse_kz():
-    # the sum diverges like 1/kz of the grazing order (FORMULAS.md §1); the (+-1,0) orders
+    # the sum diverges like 1/kz of the grazing order (docs/theory.md §6); the (+-1,0) orders
     # of a square lattice at normal incidence feed S_yy and S_zz
     lat = Lattice.square(A0)
     eps = np.array([1e-4, 1e-6, 0.0])

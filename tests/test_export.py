@@ -62,7 +62,7 @@ def test_fullwave_setup_contents():
     # particles sit on the film: centre z = film thickness + radius
     assert data["particles"][1]["centre_nm"][2] == pytest.approx(40 + 50)
     # the incident +1 Jones vector is transverse and has positive optical chirality
-    # (PHYSICS.md §1): -Im(E* . (k x E)) > 0
+    # (docs/theory.md §2): -Im(E* . (k x E)) > 0
     k = np.array(data["illumination"]["direction"])
     e = np.array(data["illumination"]["jones"]["+1"]["re"]) + 1j * np.array(
         data["illumination"]["jones"]["+1"]["im"])

@@ -38,7 +38,7 @@ STACK = {"substrate": {"material": "SiO2"}, "gap_nm": 20,
 
 @pytest.mark.parametrize("extra", [{}, STACK], ids=["no-substrate", "film-on-substrate"])
 def test_order_amplitudes_match_the_solver_orders(extra):
-    # Two implementations of FORMULAS.md §3 (sheet emission + per-order stack reflection):
+    # Two implementations of docs/theory.md §5, §10 (sheet emission + per-order stack reflection):
     # ours from the moments, the solver's when asked to keep the same orders.
     st = _structure(extra, particles=TWO)
     z = float(particle_top(st)) + 10e-9
@@ -53,7 +53,7 @@ def test_order_amplitudes_match_the_solver_orders(extra):
 
 
 def test_bare_plane_wave_map_is_the_incident_wave():
-    # PHYSICS.md §1: incident k = k (sin t cos f, sin t sin f, -cos t), helicity vector
+    # docs/theory.md §1, §2: incident k = k (sin t cos f, sin t sin f, -cos t), helicity vector
     # (p + i h s)/sqrt(2) on the downward basis, unit amplitude, phase 0 at the origin.
     host = 1.33
     st = _structure(particles=[{"radius_nm": 60, "material": {"n": host}}], host=host,
@@ -78,7 +78,7 @@ def test_bare_plane_wave_map_is_the_incident_wave():
 
 def test_every_order_is_transverse():
     # Gauss's law for each plane wave: k . E = 0 (bilinear, also for evanescent orders),
-    # FORMULAS.md §3 basis.
+    # docs/theory.md §5 basis.
     st = _structure(particles=TWO)
     z = float(particle_top(st)) + 5e-9
     content = order_content(solve(st, warn=False), z, tol=1e-4)
@@ -90,7 +90,7 @@ def test_every_order_is_transverse():
 
 
 def test_grid_follows_the_contract():
-    # CONTRACT.md: grid points (i a1 + j a2)/N, i, j = 0..N-1, starting at the origin.
+    # docs/cli.md: grid points (i a1 + j a2)/N, i, j = 0..N-1, starting at the origin.
     st = build_structure(design_from_dict({
         "lattice": {"kind": "oblique", "period_nm": [400, 380], "angle_deg": 70},
         "particles": [{"radius_nm": 50, "material": "Si"}],
@@ -102,7 +102,7 @@ def test_grid_follows_the_contract():
 
 
 def test_fields_file(tmp_path):
-    # CONTRACT.md `--fields`: keys, shapes, H stored as Z0 H = n_host Z H.
+    # docs/cli.md `--fields`: keys, shapes, H stored as Z0 H = n_host Z H.
     host = 1.33
     st = _structure(host=host, wl=(700.0, 800.0))
     sol = solve(st, warn=False)

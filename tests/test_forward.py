@@ -1,4 +1,4 @@
-"""The far field of sphere arrays: energy, limits, anomalies (issue: foundation)."""
+"""The far field of sphere arrays: energy, limits, anomalies (docs/theory.md §8)."""
 
 import warnings
 
@@ -33,7 +33,7 @@ HEX = {"kind": "hexagonal", "period_nm": 420}
                                      {"kind": "oblique", "period_nm": [400, 380], "angle_deg": 70}])
 @pytest.mark.parametrize("polar,azimuth", [(0, 0), (20, 0), (25, 33)])
 def test_lossless_energy_conservation_below_diffraction(lattice, polar, azimuth):
-    # PHYSICS.md §2: R + T = 1 to 1e-10 for lossless particles below the diffraction
+    # docs/theory.md §8: R + T = 1 to 1e-10 for lossless particles below the diffraction
     # threshold; holds only if Im(lattice sum) cancels the radiative term
     # (García de Abajo, RMP 79, 1267 (2007)).
     r = _design(lattice, wl=(820.0, 900.0, 1000.0), polar=polar, azimuth=azimuth)
@@ -44,13 +44,13 @@ def test_lossless_energy_conservation_below_diffraction(lattice, polar, azimuth)
 
 def test_lossless_energy_conservation_with_diffraction():
     # Above the threshold several orders propagate; energy is still conserved
-    # (PHYSICS.md §2; FORMULAS.md §4 identities hold above threshold too).
+    # (docs/theory.md §8 identities hold above threshold too).
     res = evaluate(_design(SQUARE, wl=(450.0, 500.0, 560.0), polar=10))
     assert np.all(np.abs(res.R + res.T - 1.0) < 1e-10)
 
 
 def test_two_particles_per_cell_energy():
-    # PHYSICS.md §2, several particles per cell (common practice, no source).
+    # docs/theory.md §8, several particles per cell (common practice, no source).
     parts = [{"radius_nm": 60, "material": {"n": 3.5}, "position_nm": [0, 0]},
              {"radius_nm": 45, "material": {"n": 2.4}, "position_nm": [230, 170]}]
     res = evaluate(_design({"kind": "square", "period_nm": 460}, particles=parts,
@@ -60,7 +60,7 @@ def test_two_particles_per_cell_energy():
 
 @pytest.mark.parametrize("material", [{"n": 3.5, "k": 0.1}, "Si", "Ag", "Au"])
 def test_lossy_absorption_equals_dipole_losses(material):
-    # PHYSICS.md §2: with loss, 1 - R - T equals the power absorbed by the dipoles
+    # docs/theory.md §8: with loss, 1 - R - T equals the power absorbed by the dipoles
     # (Draine, ApJ 333, 848 (1988) radiative correction; to 1e-8).
     res = evaluate(_design(HEX, radius=60, material=material, wl=(550.0, 650.0, 760.0),
                            polar=12))
@@ -69,7 +69,7 @@ def test_lossy_absorption_equals_dipole_losses(material):
 
 
 def test_vanishing_particles_transmit_everything():
-    # PHYSICS.md §6 limits: radius -> 0 gives R -> 0, T -> 1 (R ~ r^6).
+    # docs/theory.md §8 limits: radius -> 0 gives R -> 0, T -> 1 (R ~ r^6).
     res = evaluate(_design(SQUARE, radius=0.5, wl=(600.0, 700.0)))
     assert np.all(res.R < 1e-12)
     assert np.all(np.abs(res.T - 1) < 1e-6)
@@ -102,7 +102,7 @@ def test_sparse_lattice_approaches_isolated_sphere(m, x):
 
 
 def test_rayleigh_anomaly_warns_never_nan():
-    # PHYSICS.md §2: at the Rayleigh anomaly (lambda = period x host index at normal
+    # docs/theory.md §5: at the Rayleigh anomaly (lambda = period x host index at normal
     # incidence; common practice) a warning, never NaN.
     period, host = 400.0, 1.33
     des = _design({"kind": "square", "period_nm": period}, host=host,

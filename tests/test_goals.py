@@ -90,7 +90,7 @@ def test_minimal_goal_resolves_with_defaults(tmp_path):
      ["8h"]),
 ])  # fmt: skip
 def test_schema_errors_name_key_line_and_fix(tmp_path, text, key, words):
-    # STYLE.md "Actionable errors": key path, file:line, allowed values, closest key
+    # DEVELOPERS.md (errors for users): key path, file:line, allowed values, closest key
     with pytest.raises(InputError) as info:
         _load(tmp_path, text)
     assert info.value.key == key
@@ -243,7 +243,7 @@ def test_links_follow_their_source(tmp_path):
 
 
 def test_a_failed_evaluation_is_reported_not_raised(tmp_path):
-    # period 700/1 nm at 700 nm: the (1,0) order grazes (Rayleigh anomaly), PHYSICS.md §6
+    # period 700/1 nm at 700 nm: the (1,0) order grazes (Rayleigh anomaly), docs/theory.md §5
     text = (DESIGN.replace("  substrate: {material: SiO2}\n", "")
             + "variables:\n  lattice.period_nm: {min: 300, max: 800}\n" + OBJECTIVES)
     (goal,) = _load(tmp_path, text)

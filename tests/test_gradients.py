@@ -1,4 +1,4 @@
-"""Exact gradients of far-field quantities through the whole forward model (issue: gradients).
+"""Exact gradients of far-field quantities through the whole forward model (autograd).
 
 Reference: central finite differences (common practice, no source), with a step-size study.
 """
@@ -53,7 +53,7 @@ def _free_design(rng):
 
 
 def _near_mie(_rng):
-    # n = 3.5 sphere at its magnetic dipole resonance x = 0.8612 (FORMULAS.md §8)
+    # n = 3.5 sphere at its magnetic dipole resonance x = 0.8612 (docs/theory.md §3)
     wl = 700.0
     return design_from_dict({
         "lattice": {"kind": "hexagonal", "period_nm": 420.0},

@@ -30,7 +30,7 @@ LATTICES = {
 # ---------------------------------------------------------------- Bravais lattices
 @pytest.mark.parametrize("name", LATTICES)
 def test_reciprocal_vectors_are_dual(name):
-    # definition b_i . a_j = 2 pi delta_ij (FORMULAS.md §0)
+    # definition b_i . a_j = 2 pi delta_ij (docs/theory.md §5)
     lat = LATTICES[name]()
     b1, b2 = lat.reciprocal()
     dots = np.array([[b1 @ lat.a1, b1 @ lat.a2], [b2 @ lat.a1, b2 @ lat.a2]])
@@ -118,7 +118,7 @@ def test_order_indices_rejects_negative():
 
 
 def test_order_wavevectors():
-    # q = k_par + m b1 + n b2 (FORMULAS.md §0)
+    # q = k_par + m b1 + n b2 (docs/theory.md §5)
     lat = Lattice.oblique(A0, 1.3 * A0, 1.1)
     b1, b2 = lat.reciprocal()
     k_par = np.array([[1e6, 2e6], [-3e6, 0.5e6]])
@@ -134,7 +134,7 @@ def _q_line(values):
 
 
 def test_kz_branch_real_k():
-    # PHYSICS.md §3: kz > 0 propagating, Im kz > 0 evanescent
+    # docs/theory.md §5: kz > 0 propagating, Im kz > 0 evanescent
     k = np.array([1.0e7])
     q = _q_line([0.0, 0.6e7, 1.5e7])
     kz = kz_branch(k, q)[0]
@@ -143,7 +143,7 @@ def test_kz_branch_real_k():
 
 @pytest.mark.parametrize("qx", [0.0, 0.9e7, 1.0e7, 3.0e7])
 def test_kz_branch_lossy_k(qx):
-    # Im kz >= 0 for a passive medium (PHYSICS.md §3); kz^2 = k^2 - q^2 (definition)
+    # Im kz >= 0 for a passive medium (docs/theory.md §5); kz^2 = k^2 - q^2 (definition)
     k = np.array([1.0e7 + 2e5j])
     kz = kz_branch(k, _q_line([qx]))[0, 0]
     assert kz.imag >= 0
@@ -184,7 +184,7 @@ def test_square_lattice_only_zeroth_order_propagates(n, ratio, expected):
 
 @pytest.mark.parametrize(("ratio", "expected"), [(1.001, 1), (0.999, 7)])
 def test_hexagonal_first_anomaly(ratio, expected):
-    # hexagonal lattice first anomaly at lambda = n a sqrt3/2 (FORMULAS.md §3)
+    # hexagonal lattice first anomaly at lambda = n a sqrt3/2 (docs/theory.md §5)
     n = 1.33
     lam_ra = n * A0 * np.sqrt(3) / 2
     lat = Lattice.hexagonal(A0)
@@ -197,7 +197,7 @@ def test_hexagonal_first_anomaly(ratio, expected):
 
 
 def test_rayleigh_proximity_oblique_incidence():
-    # order (-1,0) anomaly at lambda = a (n + n sin theta), incidence in xz (FORMULAS.md §3)
+    # order (-1,0) anomaly at lambda = a (n + n sin theta), incidence in xz (docs/theory.md §5)
     n, theta = 1.0, np.deg2rad(20.0)
     lam = A0 * (n + n * np.sin(theta))
     k = 2 * np.pi * n / lam

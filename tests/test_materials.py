@@ -43,10 +43,10 @@ def test_fused_silica_malitson1965_589nm():
 @pytest.mark.parametrize(
     "wavelength_nm, n_expected",
     [
-        (589.3, 1.458403),  # FORMULAS.md sec. 8, computed from Malitson's Sellmeier coefficients
-        (632.8, 1.457018),  # FORMULAS.md sec. 8 (idem)
-        (500.0, 1.462326),  # FORMULAS.md sec. 8 (idem)
-        (800.0, 1.453317),  # FORMULAS.md sec. 8 (idem)
+        (589.3, 1.458403),  # docs/theory.md §17, computed from Malitson's Sellmeier coefficients
+        (632.8, 1.457018),  # docs/theory.md §17 (idem)
+        (500.0, 1.462326),  # docs/theory.md §17 (idem)
+        (800.0, 1.453317),  # docs/theory.md §17 (idem)
     ],
 )
 def test_fused_silica_sellmeier_formulas_md(wavelength_nm, n_expected):
@@ -56,7 +56,7 @@ def test_fused_silica_sellmeier_formulas_md(wavelength_nm, n_expected):
 
 
 def test_fused_silica_published_coefficients_vs_database():
-    # Malitson, JOSA 55, 1205 (1965), coefficients as printed in FORMULAS.md sec. 8
+    # Malitson, JOSA 55, 1205 (1965), coefficients as printed in docs/theory.md §17
     b = (0.6961663, 0.4079426, 0.8974794)
     c = (0.0684043, 0.1162414, 9.896161)
     wl = np.linspace(300.0, 2000.0, 9)
@@ -69,9 +69,9 @@ def test_fused_silica_published_coefficients_vs_database():
 @pytest.mark.parametrize(
     "wavelength_nm, n_expected, k_expected",
     [
-        (630.0, 3.879, 0.016),  # Green 2008, Table 1 (FORMULAS.md sec. 8)
-        (500.0, 4.294, 0.044),  # Green 2008, Table 1 (FORMULAS.md sec. 8)
-        (800.0, 3.675, 0.005),  # Green 2008, Table 1 (FORMULAS.md sec. 8)
+        (630.0, 3.879, 0.016),  # Green 2008, Table 1 (docs/theory.md §17)
+        (500.0, 4.294, 0.044),  # Green 2008, Table 1 (docs/theory.md §17)
+        (800.0, 3.675, 0.005),  # Green 2008, Table 1 (docs/theory.md §17)
     ],
 )
 def test_silicon_green2008_table1(wavelength_nm, n_expected, k_expected):
@@ -83,8 +83,8 @@ def test_silicon_green2008_table1(wavelength_nm, n_expected, k_expected):
 @pytest.mark.parametrize(
     "wavelength_nm, n_expected, k_expected",
     [
-        (619.9, 3.906, 0.022),  # Aspnes & Studna 1983 via FORMULAS.md sec. 8
-        (826.6, 3.673, 0.005),  # Aspnes & Studna 1983 via FORMULAS.md sec. 8
+        (619.9, 3.906, 0.022),  # Aspnes & Studna 1983 via docs/theory.md §17
+        (826.6, 3.673, 0.005),  # Aspnes & Studna 1983 via docs/theory.md §17
     ],
 )
 def test_silicon_aspnes_full_id(wavelength_nm, n_expected, k_expected):
@@ -303,7 +303,7 @@ def test_constant_index_gradients_in_n_and_k():
 @pytest.mark.parametrize("short", SHORT_NAMES, ids=lambda s: s.name)
 def test_short_names_cover_visible_nir_and_are_passive(short):
     # catalogue requirement (materials brief): each short name covers about 400-1000 nm;
-    # convention exp(-i omega t): Im n >= 0 (FORMULAS.md sec. 0)
+    # convention exp(-i omega t): Im n >= 0 (docs/theory.md §1)
     mat = get_material(short.name)
     assert mat.name == short.name
     wl = np.linspace(400.0, 1000.0, 61)

@@ -57,7 +57,7 @@ def _solve(design, values=None):
 @pytest.mark.parametrize("polar,host", [(0.0, 1.0), (40.0, 1.0), (25.0, 1.33)])
 @pytest.mark.parametrize("region", [PLANE, SLAB], ids=["plane", "slab"])
 def test_bare_plane_wave_gives_unit_metrics(polar, host, region):
-    # PHYSICS.md §4: the bare incident circular wave has u = 1, g = 1, DOCP = +1,
+    # docs/theory.md §12: the bare incident circular wave has u = 1, g = 1, DOCP = +1,
     # background = 0 (and s0 = 1); spheres of the host's own index scatter nothing.
     sol = _solve(_design([{"radius_nm": 60, "material": {"n": host}}], polar=polar, host=host,
                          azimuth=30.0))
@@ -73,7 +73,7 @@ def test_bare_plane_wave_gives_unit_metrics(polar, host, region):
 def test_substrate_side_illumination_of_matched_stack_is_the_bare_wave():
     # Module convention (metrics.py docstring): for substrate-side illumination the
     # reference is the unit circular wave in the host going +z; with a substrate and
-    # spheres of the host's index the host field is that wave (PHYSICS.md §4 limits).
+    # spheres of the host's index the host field is that wave (docs/theory.md §12 limits).
     d = _design([{"radius_nm": 60, "material": {"n": 1.0}}], polar=30.0,
                 substrate={"material": {"n": 1.0}},
                 illumination={"wavelength_nm": [600.0], "polar_deg": 30.0, "side": "substrate"})
@@ -86,7 +86,7 @@ def test_substrate_side_illumination_of_matched_stack_is_the_bare_wave():
 
 @pytest.mark.parametrize("polar", [0.0, 30.0, 60.0])
 def test_incident_reference_stokes(polar):
-    # PHYSICS.md §1 worked check (S3 < 0 for +1 going -z) and §4 (|DOCP_inc| =
+    # docs/theory.md §2 worked check (S3 < 0 for +1 going -z) and §12 (|DOCP_inc| =
     # 2 cos t/(1 + cos^2 t)).
     st = build_structure(_design(polar=polar, wl=(700.0,)))
     ref = incident_reference(st)
@@ -109,8 +109,8 @@ CASES = {
 
 @pytest.mark.parametrize("case", list(CASES))
 def test_plane_averages_equal_grid_averages(case):
-    # PHYSICS.md §3 (Parseval): cell averages are sums over orders; on the grid of
-    # CONTRACT.md the plain mean is exact once the grid out-resolves the orders kept.
+    # docs/theory.md §13 (Parseval): cell averages are sums over orders; on the grid of
+    # docs/cli.md the plain mean is exact once the grid out-resolves the orders kept.
     sol = _solve(_design(**CASES[case]))
     avg = region_averages(sol, PLANE, tol=1e-4)
     content = avg["content"]
@@ -127,7 +127,7 @@ def test_plane_averages_equal_grid_averages(case):
 
 @pytest.mark.parametrize("case", list(CASES))
 def test_slab_closed_form_equals_z_quadrature(case):
-    # Closed-form z integrals (FORMULAS.md §3 decay, standing (0,0) wave) against
+    # Closed-form z integrals (docs/theory.md §13 decay, standing (0,0) wave) against
     # scipy's adaptive quadrature of the plane averages.
     sol = _solve(_design(**CASES[case]))
     avg = region_averages(sol, SLAB, tol=1e-6)
@@ -152,7 +152,7 @@ def test_phi1_is_smooth_through_the_series_switch():
         assert abs(_phi1(np.array(x)) - num) < 1e-14
 
 
-# -- single-wave bounds (PHYSICS.md §5, our derivation: these are its tests) ---------------
+# -- single-wave bounds (docs/theory.md §14, our derivation: these are its tests) ---------------
 
 def _wave(K, s_amp, p_amp, azimuth=0.3):
     """E and Z H of one upward plane wave with |q|/k = K, amplitudes (s, p), k = 1."""
@@ -174,7 +174,7 @@ amp = hs.complex_numbers(max_magnitude=10.0, allow_nan=False, allow_infinity=Fal
 @settings(max_examples=300, deadline=None)
 @given(K=hs.floats(1.0 + 1e-6, 30.0), s_amp=amp, p_amp=amp)
 def test_evanescent_wave_within_bound_and_region(K, s_amp, p_amp):
-    # PHYSICS.md §5: |g| <= K^2/sqrt(2K^2-1) and (DOCP, g) in the union of ellipses.
+    # docs/theory.md §14: |g| <= K^2/sqrt(2K^2-1) and (DOCP, g) in the union of ellipses.
     if abs(s_amp) + abs(p_amp) < 1e-6:
         return
     docp, g = _point(K, s_amp, p_amp)
@@ -185,7 +185,7 @@ def test_evanescent_wave_within_bound_and_region(K, s_amp, p_amp):
 @settings(max_examples=200, deadline=None)
 @given(K=hs.floats(0.05, 1.0 - 1e-6), s_amp=amp, p_amp=amp)
 def test_propagating_wave_within_bound_and_region(K, s_amp, p_amp):
-    # PHYSICS.md §5: a single propagating wave has |g| <= 1; CD and DOCP go together.
+    # docs/theory.md §14: a single propagating wave has |g| <= 1; CD and DOCP go together.
     if min(abs(s_amp), abs(p_amp)) < 1e-3 * max(abs(s_amp), abs(p_amp), 1e-6):
         return  # nearly pure s or p: the region pinches to the origin (fill ill-conditioned)
     docp, g = _point(K, s_amp, p_amp)
@@ -198,7 +198,7 @@ def test_propagating_wave_within_bound_and_region(K, s_amp, p_amp):
 @pytest.mark.parametrize("K", [1.0001, 1.2, 2.0, 7.5])
 @pytest.mark.parametrize("sign", [1, -1])
 def test_maximizing_polarization_reaches_the_bound(K, sign):
-    # PHYSICS.md §5: |p/s| = 1/sqrt(2K^2-1), phase -+pi/2 gives |g| = K^2/sqrt(2K^2-1).
+    # docs/theory.md §14: |p/s| = 1/sqrt(2K^2-1), phase -+pi/2 gives |g| = K^2/sqrt(2K^2-1).
     docp, g = _point(K, 1.0, -sign * 1j / np.sqrt(2 * K ** 2 - 1))
     assert abs(g - sign * K ** 2 / np.sqrt(2 * K ** 2 - 1)) < 1e-12
     assert abs(docp) < 1e-12
@@ -216,7 +216,7 @@ def test_boundary_points_are_reached_by_waves(K, theta):
     a = 2 * np.sqrt(a2) * r / (1 + a2 * r ** 2)
     b = 2 * K ** 2 * r / (1 + b2 * r ** 2)
     phi = np.arctan2(np.sin(theta) / b, np.cos(theta) / a)
-    # docp = -a cos(phi') and g = -b sin(phi') for p = r e^{i phi'} (PHYSICS.md §5)
+    # docp = -a cos(phi') and g = -b sin(phi') for p = r e^{i phi'} (docs/theory.md §14)
     docp, g = _point(K, 1.0, r * np.exp(1j * (phi + np.pi)))
     assert abs(np.arctan2(g, docp) - np.arctan2(np.sin(theta), np.cos(theta))) % (
         2 * np.pi) < 1e-9 or abs(np.hypot(docp, g)) < 1e-12
@@ -224,7 +224,7 @@ def test_boundary_points_are_reached_by_waves(K, theta):
 
 
 def test_attainable_boundary_curve():
-    # PHYSICS.md §5: the boundary touches DOCP = +-1 and g = +-bound.
+    # docs/theory.md §14: the boundary touches DOCP = +-1 and g = +-bound.
     d, g = attainable_boundary(1.5, n=2001)
     assert np.max(np.abs(d)) == pytest.approx(1.0, rel=1e-5)
     assert np.max(np.abs(g)) == pytest.approx(cd_bound(1.5), rel=1e-5)
@@ -239,7 +239,7 @@ def test_attainable_boundary_curve():
 @pytest.mark.parametrize("extra", [{}, {"substrate": {"material": "SiO2"}, "gap_nm": 5.0}])
 @pytest.mark.parametrize("region", [PLANE, SLAB], ids=["plane", "slab"])
 def test_achiral_array_normal_incidence_no_background(extra, region):
-    # PHYSICS.md §4/§6: achiral structure, mirror-symmetric illumination -> <U+> = <U->
+    # docs/theory.md §8, §12: achiral structure, mirror-symmetric illumination -> <U+> = <U->
     # (common practice, no source).
     sol = _solve(_design(wl=(500.0, 640.0, 800.0), **extra))
     r = region_metrics(sol, region, tol=1e-6, area_grid=0)
@@ -259,9 +259,9 @@ def _strongest_evanescent_docp(material, wl):
 
 
 def test_metal_array_flips_evanescent_handedness():
-    # PHYSICS.md §6 (common practice, no source). In the dipole model an electric dipole
+    # docs/theory.md §8 (common practice, no source). In the dipole model an electric dipole
     # sheet radiates into an evanescent order (K > 1) the in-plane field
-    # ((1 - K^2) P_q, P_s) (FORMULAS.md §3, E_g ~ (I - k k) P): the q component flips sign,
+    # ((1 - K^2) P_q, P_s) (docs/theory.md §5, E_g ~ (I - k k) P): the q component flips sign,
     # so the in-plane handedness is opposite to the dipole's (the incident's). A silver
     # sphere has almost no magnetic dipole (|alpha_m/alpha_e| < 0.1 here): opposite.
     wl = (400.0, 450.0, 550.0, 700.0, 900.0)
@@ -270,7 +270,7 @@ def test_metal_array_flips_evanescent_handedness():
 
 
 def test_silicon_array_keeps_handedness_where_its_magnetic_dipole_dominates():
-    # PHYSICS.md §6 says positive-permittivity dielectrics keep the handedness. In the
+    # docs/theory.md §8 says positive-permittivity dielectrics keep the handedness. In the
     # dipole model a magnetic dipole M = alpha_m Z H_inc radiates -k x M, whose in-plane
     # part is -i sqrt(K^2-1) alpha_m E_inc,par: same handedness. A Si sphere keeps it near
     # its magnetic dipole resonance (575 nm: |alpha_m/alpha_e| = 2.5, DOCP = +0.87), but
@@ -320,8 +320,8 @@ def test_area_fraction_grid_converged():
 # -- per-order table ---------------------------------------------------------------------
 
 def test_order_table_contract():
-    # CONTRACT.md "orders": keys, bound = null for (0,0), 1 for propagating orders,
-    # K^2/sqrt(2K^2-1) for evanescent ones (PHYSICS.md §5); shares sum to 1.
+    # docs/cli.md "orders": keys, bound = null for (0,0), 1 for propagating orders,
+    # K^2/sqrt(2K^2-1) for evanescent ones (docs/theory.md §14); shares sum to 1.
     sol = _solve(_design(wl=(380.0, 600.0), polar=10.0))
     rows = order_table(sol, SLAB, 0, tol=1e-5)
     json.dumps(rows)
@@ -384,7 +384,7 @@ def test_region_height_of_plane_is_differentiable():
 
 
 def test_region_span_consistency():
-    # slab bottom/top from the design's region spec (PHYSICS.md §4 regions)
+    # slab bottom/top from the design's region spec (docs/theory.md §12 regions)
     design = _design(**GRAD_DESIGN)
     st = build_structure(design)
     lo, hi = region_span(st, design.region)

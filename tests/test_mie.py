@@ -85,7 +85,7 @@ def test_efficiencies_match_miepython(x, m):
 
 # ------------------------------------------------------------ published values
 
-# Wiscombe 1980 MIEV0 test table (as in FORMULAS.md §8; the same numbers appear in
+# Wiscombe 1980 MIEV0 test table (as in docs/theory.md §3; the same numbers appear in
 # the MIEV0 test driver MVTstNew.f): (m in our Im >= 0 convention, x, Qext, Qsca, g*Qsca)
 WISCOMBE_TABLE = [
     (0.75, 0.099, "7.417859E-06", "7.417859E-06", "1.074279E-08"),
@@ -130,7 +130,7 @@ def test_wiscombe1980_miev0_table(m, x, qext, qsca, gqsca):
 
 
 def test_bohren_huffman_case():
-    # Bohren & Huffman 1983 worked case (BHMIE), as in FORMULAS.md §8:
+    # Bohren & Huffman 1983 worked case (BHMIE), as in docs/theory.md §3:
     # m = 1.55, x = 2 pi 0.525 / 0.6328: Qext = 3.10543, Qback = 2.92534, g = 0.63314
     q = mie_efficiencies(2 * math.pi * 0.525 / 0.6328, 1.55)
     assert abs(q.qext - 3.10543) <= 5e-6
@@ -336,7 +336,7 @@ def test_absorbing_sphere_absorbs(x, m):
 @pytest.mark.parametrize("k", [1.0e7, 2.5e7])
 @pytest.mark.parametrize("x", [0.3, 0.9, 1.7])
 def test_lossless_polarizabilities_radiative_correction(x, m, k):
-    # FORMULAS.md §2 identity: Im(1/alpha) = -k^3/(6 pi) for a lossless sphere
+    # docs/theory.md §3 identity: Im(1/alpha) = -k^3/(6 pi) for a lossless sphere
     a, b = mie_coefficients(x, m, 1)
     alpha_e, alpha_m = dipole_polarizabilities(a[0], b[0], k)
     target = -(k**3) / (6 * math.pi)
@@ -347,7 +347,7 @@ def test_lossless_polarizabilities_radiative_correction(x, m, k):
 @pytest.mark.parametrize("m", [1.5, 3.5 + 0.1j, 0.3 + 2.0j])
 def test_small_sphere_clausius_mossotti(m):
     # Clausius-Mossotti limit (Jackson, Classical Electrodynamics, §4.4;
-    # FORMULAS.md §2): alpha_e -> 4 pi R^3 (m^2-1)/(m^2+2) for x -> 0; this also
+    # docs/theory.md §3): alpha_e -> 4 pi R^3 (m^2-1)/(m^2+2) for x -> 0; this also
     # locks the sign convention a_1 ~ -i (2x^3/3)(m^2-1)/(m^2+2) of exp(-i omega t)
     k = 1.0e7
     x = 1e-3
@@ -372,7 +372,7 @@ def _root_in_x(fun, lo, hi):
 
 
 def test_n35_magnetic_dipole_resonance():
-    # FORMULAS.md §8 (independently computed): n = 3.5 sphere, Re b1 = 1 at x = 0.8612.
+    # docs/theory.md §3 (independently computed): n = 3.5 sphere, Re b1 = 1 at x = 0.8612.
     # For a lossless sphere b1 = 1 exactly where Im b1 changes sign.
     x_res = _root_in_x(lambda x: np.imag(mie_coefficients(x, 3.5, 1)[1][0]), 0.8, 0.95)
     assert x_res == pytest.approx(0.8612, abs=1e-3)
@@ -380,7 +380,7 @@ def test_n35_magnetic_dipole_resonance():
 
 
 def test_n35_electric_dipole_resonance():
-    # FORMULAS.md §8 (independently computed): n = 3.5 sphere, Re a1 = 1 at x = 1.1454
+    # docs/theory.md §3 (independently computed): n = 3.5 sphere, Re a1 = 1 at x = 1.1454
     x_res = _root_in_x(lambda x: np.imag(mie_coefficients(x, 3.5, 1)[0][0]), 1.05, 1.25)
     assert x_res == pytest.approx(1.1454, abs=1e-3)
     assert np.real(mie_coefficients(x_res, 3.5, 1)[0][0]) == pytest.approx(1.0, abs=1e-12)
@@ -389,7 +389,7 @@ def test_n35_electric_dipole_resonance():
 def test_n35_kerker_first_condition():
     # Kerker, Wang & Giles, JOSA 73, 765 (1983): where a1 = b1 the dipole terms
     # scatter nothing backwards, Qback ~ |sum (2n+1)(-1)^n (a_n - b_n)|^2;
-    # FORMULAS.md §8: Qback minimum on the red side of the MD resonance at x ~ 0.782,
+    # docs/theory.md §3: Qback minimum on the red side of the MD resonance at x ~ 0.782,
     # Qback = 5.4e-4
     def re_diff(x):
         a, b = mie_coefficients(x, 3.5, 1)
@@ -439,7 +439,7 @@ def test_wiscombe_n_max():
 
 def test_downward_start_is_converged():
     # common practice, no source: starting the recurrence 600 orders higher
-    # changes nothing (large |z| with small loss is the hard case, FORMULAS.md §8)
+    # changes nothing (large |z| with small loss is the hard case, docs/theory.md §3)
     for z in (0.1, 3.5, 133.0 + 1e-3j, 1330.0, 14.0 + 14.0j):
         z_sq = np.complex128(z) ** 2
         n0 = downward_start(8, abs(z))

@@ -49,7 +49,7 @@ def test_multipole_near_field_at_lmax1_equals_dipole_near_field(region):
 
 @pytest.mark.parametrize("lmax", [2, 3])
 def test_lossless_energy_through_evaluate(lmax):
-    # PHYSICS.md §2 energy check through the public entry point at lmax > 1.
+    # docs/theory.md §8 energy check through the public entry point at lmax > 1.
     res = evaluate(_design(lmax=lmax))
     assert res.lmax == lmax
     np.testing.assert_allclose(res.R + res.T, 1.0, atol=1e-9)
@@ -64,7 +64,7 @@ def test_auto_lmax_grows_with_size():
 
 
 def test_validity_note_flags_dipole_model_for_large_silicon_spheres():
-    # Issue text: the dipole model is off by 0.03-0.5 on R, T for x = k r > ~1.1;
+    # docs/theory.md §15: the dipole model is off by 0.03-0.5 on R, T for x = k r > ~1.1;
     # a 140 nm n = 3.6 sphere at 640 nm has x = 1.37.
     res = evaluate(_design(lmax=1, radius=140.0, substrate=False), with_validity=True)
     assert res.validity["lmax_check"] == 2

@@ -1,4 +1,4 @@
-"""VSWF conventions, translation coefficients and lattice sums of the multipole model (issue 7)."""
+"""VSWFs, translation coefficients and lattice sums of the multipole model (docs/theory.md §9)."""
 
 import math
 
@@ -130,7 +130,7 @@ PS = np.array([p for p in range(PMAX + 1) for _ in range(-p, p + 1)])
 @pytest.mark.parametrize("lattice", [LAT, HEXL])
 @pytest.mark.parametrize("factor", [0.6, 1.7])
 def test_lattice_sums_splitting_independence(lattice, factor):
-    # PHYSICS.md §2: Ewald sums must not depend on the splitting parameter (1e-10);
+    # docs/theory.md §6: Ewald sums must not depend on the splitting parameter (1e-10);
     # checked at every (p, M) with p <= 8 (lmax = 4), in-plane and off-plane displacements
     D = lattice_sums(K, KPAR, lattice, DISP, PMAX, tol=1e-12)
     E0 = splitting_parameter(K, lattice)
@@ -141,7 +141,7 @@ def test_lattice_sums_splitting_independence(lattice, factor):
 
 
 def test_lattice_sums_match_dipole_green_derivatives():
-    # FORMULAS.md §1-§2 / chiropt.lattice (the dipole model's Ewald sums): D_00, D_1M, D_2M
+    # docs/theory.md §6, §7 / chiropt.lattice (the dipole model's Ewald sums): D_00, D_1M, D_2M
     # are the multipole content of G_reg, grad G, grad grad G (Hobson's theorem)
     D = lattice_sums(K, KPAR, LAT, DISP, 2, tol=1e-12)
     G, gr, H = lattice_green_derivatives(K, KPAR, LAT, DISP, tol=1e-12)
@@ -176,7 +176,7 @@ def test_lattice_sums_reciprocity_symmetry():
 
 def test_lattice_sums_off_plane_equal_weyl_series():
     # Weyl (plane-wave) series of the lattice of outgoing waves (vsw module docstring;
-    # FORMULAS.md §1 spectral form), exponentially convergent off the plane:
+    # docs/theory.md §6 spectral form), exponentially convergent off the plane:
     # D_pM(d) = (2 pi (-i)^p/(A k)) sum_g exp(i k_g.d) Y_pM(k_g/k)/kz_g for d_z > 0
     from chiropt.lattice import order_indices, order_wavevectors
 

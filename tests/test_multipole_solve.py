@@ -1,4 +1,4 @@
-"""Coupled multipole lattice model against the dipole model and physical laws (issue 7)."""
+"""Coupled multipole lattice model against the dipole model and physics (docs/theory.md §9)."""
 
 import miepython
 import numpy as np
@@ -49,7 +49,7 @@ TWO = [{"radius_nm": 80, "material": SI, "position_nm": [0, 0]},
 @pytest.mark.parametrize("substrate", [None, GLASS])
 @pytest.mark.parametrize("particles", [None, TWO])
 def test_lmax1_equals_dipole_model(substrate, particles):
-    # chiropt.solve (the dipole model, FORMULAS.md §2-§3): at lmax = 1 the multipole
+    # chiropt.solve (the dipole model, docs/theory.md §5, §7): at lmax = 1 the multipole
     # equations are the same physics; same orders kept -> R, T, amplitudes, moments to 1e-10
     des = _design(polar=20, azimuth=30, substrate=substrate, particles=particles, gap=10.0)
     st, sol = _run(des, 1)
@@ -72,7 +72,7 @@ def test_lmax1_equals_dipole_model(substrate, particles):
 @pytest.mark.parametrize("lattice", [SQUARE, HEX])
 @pytest.mark.parametrize("polar,azimuth", [(0.0, 0.0), (25.0, 30.0)])
 def test_energy_conservation_lossless(lmax, lattice, polar, azimuth):
-    # PHYSICS.md §2: R + T = 1 for lossless particles (both below and above the
+    # docs/theory.md §8: R + T = 1 for lossless particles (both below and above the
     # diffraction threshold: 420 nm diffracts on the square lattice) to 1e-10
     _, sol = _run(_design(lattice, wl=(420.0, 620.0, 800.0), polar=polar, azimuth=azimuth),
                   lmax)
@@ -84,7 +84,7 @@ def test_energy_conservation_lossless(lmax, lattice, polar, azimuth):
 @pytest.mark.parametrize("lmax", [1, 2, 3])
 @pytest.mark.parametrize("polar,azimuth", [(0.0, 0.0), (30.0, 20.0)])
 def test_energy_conservation_with_substrate(lmax, polar, azimuth):
-    # PHYSICS.md §2 with a lossless substrate (issue 7: to 1e-9), sphere 20 nm above glass
+    # docs/theory.md §8 with a lossless substrate (to 1e-9), sphere 20 nm above glass
     _, sol = _run(_design(HEX, wl=(640.0, 780.0), polar=polar, azimuth=azimuth,
                           substrate=GLASS, gap=20.0), lmax)
     fr = multipole_power_fractions(sol)
@@ -93,7 +93,7 @@ def test_energy_conservation_with_substrate(lmax, polar, azimuth):
 
 @pytest.mark.parametrize("lmax", [1, 3])
 def test_lossy_absorption_equals_particle_losses(lmax):
-    # PHYSICS.md §2: with loss, 1 - R - T equals the power the particles absorb,
+    # docs/theory.md §8: with loss, 1 - R - T equals the power the particles absorb,
     # -Re(e^H f) - |f|^2 per particle (Mishchenko, Travis & Lacis 2002 §5.8)
     _, sol = _run(_design(HEX, material={"n": 3.7, "k": 0.08}, polar=15, azimuth=10,
                           substrate=GLASS, gap=5.0, wl=(560.0, 700.0)), lmax)
@@ -104,12 +104,12 @@ def test_lossy_absorption_equals_particle_losses(lmax):
 
 @pytest.mark.parametrize("polar", [0.0, 20.0])
 def test_convergence_with_lmax_is_geometric(polar):
-    # issue 7: successive differences shrink geometrically (Si-like n = 3.6, r = 100 nm,
+    # docs/theory.md §15: successive differences shrink geometrically (Si-like n = 3.6, r = 100 nm,
     # period 450 nm, x = k r = 1.21 at 520 nm, 1.45 at 435 nm); common practice, no source
     des = _design(radius=100.0, wl=(520.0, 600.0), polar=polar)
     R = [multipole_power_fractions(_run(des, L)[1])["R"] for L in (1, 2, 3, 4, 5)]
     diff = [np.abs(R[i + 1] - R[i]).max() for i in range(4)]
-    assert diff[0] > 1e-3  # the dipole model is measurably off (issue 7)
+    assert diff[0] > 1e-3  # the dipole model is measurably off (docs/theory.md §15)
     assert diff[1] < 0.3 * diff[0] and diff[2] < 0.3 * diff[1] and diff[3] < 0.3 * diff[2]
 
 

@@ -94,7 +94,7 @@ def problem_paths(goal):
 
 
 def test_front_reevaluated_reproduces_the_store(tiny_run):
-    # issue 6: every front point re-evaluated reproduces its stored metrics to 1e-9
+    # front points re-evaluated reproduce stored metrics to 1e-9 (docs/getting-started.md §4)
     goal, s = tiny_run
     assert s.reproduce_max_dev <= 1e-9
     P = GoalProblem(goal)
@@ -166,7 +166,7 @@ def _count(db: Path) -> int:
 
 
 def test_resume_after_kill_gives_the_uninterrupted_store(tmp_path, tiny_run):
-    # issue 6: kill -9 at any moment; the same command resumes, repeating and losing nothing
+    # kill -9 at any moment: the same command resumes, losing nothing (docs/getting-started.md §4)
     _, reference = tiny_run
     goal_file = _write(tmp_path)
     out = tmp_path / "runs"

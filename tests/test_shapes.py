@@ -43,14 +43,14 @@ def test_round_spheroid_equals_sphere_through_the_whole_model():
     ({"shape": "cylinder", "radius_nm": 90.0, "height_nm": 120.0}, 1e-4),
 ])
 def test_lossless_non_spherical_arrays_conserve_energy(particle, tol):
-    # PHYSICS.md §2 energy check, with a substrate (the circumscribing sphere kept above it)
+    # docs/theory.md §8 energy check, with a substrate (the circumscribing sphere kept above it)
     res = evaluate(_design(particle, gap=50.0, lmax=3))
     np.testing.assert_allclose(res.R + res.T, 1.0, atol=tol)
     assert res.R.max() > 1e-3
 
 
 def test_cylinder_results_converge_with_lmax():
-    # Issue (multipoles): results settle with lmax (common practice); for cylinders down
+    # docs/theory.md §15: results settle with lmax (common practice); for cylinders down
     # to the EBCM accuracy (~1e-4 on R here, measured), not to round-off.
     d = {"shape": "cylinder", "radius_nm": 90.0, "height_nm": 120.0}
     R = [evaluate(_design(d, lmax=lm, substrate=False)).R for lm in (2, 3, 4, 5)]

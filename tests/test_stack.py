@@ -103,7 +103,7 @@ def test_tmm_p_sign_mapping_single_interface(angle_deg):
     if angle_deg == 0.0:
         # Born & Wolf §1.5.2: at normal incidence E_x^r/E_x^i = (n1 - n2)/(n1 + n2)
         np.testing.assert_allclose(ours_ex_r, (n1 - n2) / (n1 + n2), atol=1e-15)
-        # FORMULAS.md §3: r_s = -r_p at normal incidence
+        # docs/theory.md §10: r_s = -r_p at normal incidence
         np.testing.assert_allclose(res.r_s[0, 0], -res.r_p[0, 0], atol=1e-15)
 
 
@@ -381,7 +381,7 @@ def test_transmission_reciprocity(pol):
 
 @pytest.mark.parametrize("Q", [0.0, 0.6, 1.3, 2.5])
 def test_single_interface_stokes_relations(Q):
-    """r_21 = -r_12 and t_12 t_21 = 1 - r_12^2 (FORMULAS.md §3, required by the recursion)."""
+    """r_21 = -r_12 and t_12 t_21 = 1 - r_12^2 (docs/theory.md §10, required by the recursion)."""
     q = np.outer(K0, [Q])
     for eps1, eps2 in ((1.0, 2.25), (1.77, (0.18 + 3.4j) ** 2)):
         a = interface_coefficients(q, K0, eps1, eps2)
@@ -465,7 +465,7 @@ def test_thick_film_against_airy_formula_no_overflow(n_film, d_um, from_side):
     1e-15 absolute where a propagating r or t nearly vanishes):
     r = (r12 + r23 e^{2 i b})/(1 + r12 r23 e^{2 i b}),
     t = t12 t23 e^{i b}/(1 + r12 r23 e^{2 i b}), b = kz_film d
-    (Born & Wolf §1.6.4; Yeh 1988 ch. 5; FORMULAS.md §3 recursion)."""
+    (Born & Wolf §1.6.4; Yeh 1988 ch. 5; docs/theory.md §10 recursion)."""
     n_h, n_s = 1.0, 1.52
     q = np.outer(K0, [0.4, 2.6, 10.0, 200.0])
     with warnings.catch_warnings():
@@ -534,7 +534,7 @@ def test_continuous_across_series_switch(from_side):
 
 
 def test_normal_wavenumber_branch():
-    # FORMULAS.md §0: Im(kz) >= 0, kz > 0 when real; a -0.0 imaginary part of eps
+    # docs/theory.md §5: Im(kz) >= 0, kz > 0 when real; a -0.0 imaginary part of eps
     # must not flip the branch
     q = np.outer(K0, [0.0, 0.5, 1.0, 2.0])
     eps = complex(1.0, -0.0)

@@ -1,4 +1,4 @@
-"""Arrays on substrates and thin-film stacks (issue: substrates and thin-film stacks)."""
+"""Arrays on substrates and thin-film stacks (docs/theory.md §10)."""
 
 import numpy as np
 import pytest
@@ -60,7 +60,7 @@ def test_vanishing_particles_reproduce_bare_stack(polar, layers):
 @pytest.mark.parametrize("polar,azimuth", [(0.0, 0.0), (25.0, 30.0)])
 def test_index_matched_substrate_equals_homogeneous_host(polar, azimuth):
     # An index-matched substrate is no interface at all (common practice, no source);
-    # the issue asks for 1e-10.
+    # required to 1e-10.
     kw = dict(host=1.46, wl=(600.0, 700.0, 820.0), polar=polar, azimuth=azimuth)
     a = evaluate(_design(**kw))
     b = evaluate(_design(substrate=SIO2, **kw))
@@ -73,7 +73,7 @@ def test_index_matched_substrate_equals_homogeneous_host(polar, azimuth):
 @pytest.mark.parametrize("layers,gap", [([], 0.0), ([{"material": {"n": 2.0},
                                                        "thickness_nm": 50.0}], 10.0)])
 def test_lossless_energy_conservation_on_substrate(side, polar, azimuth, layers, gap):
-    # PHYSICS.md §2 / issue: lossless particles on a lossless stack, R + T = 1 to 1e-9,
+    # docs/theory.md §8: lossless particles on a lossless stack, R + T = 1 to 1e-9,
     # normal and oblique incidence, both sides of illumination (diffraction included).
     res = evaluate(_design(substrate=SIO2, layers=layers, gap=gap, side=side, polar=polar,
                            azimuth=azimuth, wl=(560.0, 680.0, 800.0)))
@@ -98,14 +98,14 @@ def test_reciprocity_of_transmission(material):
 
 
 def test_lossy_particles_on_substrate_absorb_what_dipoles_absorb():
-    # PHYSICS.md §2 with a stack: A = 1 - R - T equals the dipoles' absorption for a
+    # docs/theory.md §8 with a stack: A = 1 - R - T equals the dipoles' absorption for a
     # lossless stack (Draine 1988 radiative correction).
     res = evaluate(_design(substrate=SIO2, material="Si", wl=(520.0, 640.0), polar=15.0))
     np.testing.assert_allclose(res.A, res.A_dipoles, atol=1e-8)
 
 
 def test_reflected_interaction_converges_with_orders_for_touching_spheres():
-    # Issue: convergence with the number of orders kept for particles touching the
+    # Convergence with the number of orders kept for particles touching the
     # substrate (gap 0): successive tolerances change R by ever less (common practice).
     kw = dict(substrate={"n": 2.0, "k": 0.0}, wl=(650.0, 760.0), radius=80.0, gap=0.0)
     R = [evaluate(_design(tol=t, **kw)).R for t in (1e-3, 1e-5, 1e-7, 1e-10)]

@@ -6,11 +6,11 @@ the dipole coupling dyadics S and c (``lattice_green_dyadics``) and the default
 splitting parameter (``splitting_parameter``).
 Must not import: store, report, cli, search, nor particles/stack/solve.
 
-Conventions (FORMULAS.md §0-§2, PHYSICS.md §2): SI units, exp(-i omega t), real host
+Conventions (docs/theory.md §1, §6, §7): SI units, exp(-i omega t), real host
 wavenumber k. Quasi-periodicity G(r + R) = exp(i k_par.R) G(r). A displacement d that
 coincides with a lattice point (d = 0: the particle with its own images) has that
 singular term removed and replaced by the regularized limit
-G_reg = lim [G(r) - exp(i k_par.R0) g(r - R0)] (FORMULAS.md §1, "G_reg(0)"); all other
+G_reg = lim [G(r) - exp(i k_par.R0) g(r - R0)] (docs/theory.md §6, "G_reg(0)"); all other
 terms are kept. Array axes: W (wavelengths), P (displacements), then lattice points /
 diffraction orders, then Cartesian components (x, y, z).
 
@@ -58,7 +58,7 @@ def splitting_parameter(k, lattice: Lattice):
     References
     ----------
     Jordan, Richter & Sheng, J. Comput. Phys. 63, 222 (1986) (E = sqrt(pi/A));
-    FORMULAS.md §1 "Splitting parameter" (high-frequency cap).
+    docs/theory.md §6 "Splitting parameter" (high-frequency cap).
     """
     kv = np.asarray(getval(k), dtype=float)
     area = float(getval(lattice.area))
@@ -103,7 +103,7 @@ def _stack_hessian(hxx, hxy, hxz, hyy, hyz, hzz):
 def _ewald_spectral(k, k_par, lattice, rho, z, E, mn, z_is_zero):
     """Spectral (reciprocal-space) part of the Ewald split and its derivatives.
 
-    FORMULAS.md §1: G_spec = (1/4A) sum_g exp(i q.rho)/gamma [T+ + T-], with
+    docs/theory.md §6: G_spec = (1/4A) sum_g exp(i q.rho)/gamma [T+ + T-], with
     T+- = exp(+-gamma z) erfc(gamma/2E +- zE) = exp(-gamma^2/4E^2 - E^2 z^2) w(i(gamma/2E +- zE)).
     z-derivatives: F'/gamma = T+ - T-, F''/gamma = gamma (T+ + T-) - (4E/sqrt(pi)) exp(...).
     """
@@ -138,7 +138,7 @@ def _ewald_spectral(k, k_par, lattice, rho, z, E, mn, z_is_zero):
 def _ewald_spatial(k, k_par, lattice, rho, z, E, nm, self_tol2):
     """Spatial (real-space) part of the Ewald split, its derivatives and the self term.
 
-    FORMULAS.md §1: f(R) = u/(8 pi R), u = exp(ikR) erfc(RE + ik/2E) + c.c.-partner,
+    docs/theory.md §6: f(R) = u/(8 pi R), u = exp(ikR) erfc(RE + ik/2E) + c.c.-partner,
     stably u = 2 X Re w(k/2E + iER), X = exp(k^2/4E^2 - E^2 R^2) (real k);
     u' = ik v - (4E/sqrt(pi)) X, u'' = -k^2 u + (8 E^3 R/sqrt(pi)) X.
     Terms with d - R = 0 are replaced by the regularized self term h0 and its Hessian.
@@ -175,7 +175,7 @@ def _ewald_spatial(k, k_par, lattice, rho, z, E, nm, self_tol2):
                             for a, b in ((0, 0), (0, 1), (0, 2), (1, 1), (1, 2), (2, 2))])
 
     if np.any(is_self):
-        # FORMULAS.md §1: h0 = -(ik/4pi) erfc(-ik/2E) - (E/(2 pi^1.5)) exp(k^2/4E^2),
+        # docs/theory.md §6: h0 = -(ik/4pi) erfc(-ik/2E) - (E/(2 pi^1.5)) exp(k^2/4E^2),
         # erfc(-ik/2E) = exp(k^2/4E^2) w(k/2E);
         # d_i d_j h(0) = (delta_ij/3) [E^3 exp(k^2/4E^2)/pi^1.5 - k^2 h0]
         ex = np.exp((k / (2 * E)) ** 2)
@@ -190,7 +190,7 @@ def _ewald_spatial(k, k_par, lattice, rho, z, E, nm, self_tol2):
 def _weyl(k, k_par, lattice, rho, z, mn):
     """Plain spectral (Weyl) sum, valid for z != 0.
 
-    FORMULAS.md §1: G = (i/2A) sum_g exp(i q.rho + i kz |z|)/kz; derivatives bring down
+    docs/theory.md §6: G = (i/2A) sum_g exp(i q.rho + i kz |z|)/kz; derivatives bring down
     i q_x, i q_y and i kz sign(z).
     """
     q = order_wavevectors(lattice, k_par, mn)                       # (W, G, 2)
@@ -253,7 +253,7 @@ def lattice_green_derivatives(k, k_par, lattice: Lattice, d, *, tol=1e-8, splitt
     References
     ----------
     Linton, SIAM Rev. 52, 630 (2010) (Ewald method for 2D lattices in 3D);
-    Jordan, Richter & Sheng, J. Comput. Phys. 63, 222 (1986); FORMULAS.md §1 (split,
+    Jordan, Richter & Sheng, J. Comput. Phys. 63, 222 (1986); docs/theory.md §6 (split,
     derivatives, regularized self term, Faddeeva form — re-derived and checked there).
     """
     kv, kpv, dv, tol = _validate(k, k_par, d, tol, splitting)
@@ -323,17 +323,17 @@ def lattice_green_dyadics(k, k_par, lattice: Lattice, d, *, tol=1e-8, splitting=
     -------
     S : complex array (W, P, 3, 3) — sum_R exp(i k_par.R) (I + grad grad / k^2) g(d - R) [1/m]
     c : complex array (W, P, 3) — grad G(d) / k [1/m]; the coupling acts as C v = c x v.
-    For d on a lattice point (d = 0) the singular term is regularized (FORMULAS.md §1).
+    For d on a lattice point (d = 0) the singular term is regularized (docs/theory.md §6).
 
     Notes
     -----
     Fields of the dipole sheet at r_i: E = k^2 (S P + i C M), Z H = k^2 (S M - i C P)
-    (FORMULAS.md §2). S is symmetric; S(d, k_par) = S(-d, -k_par) and
+    (docs/theory.md §7). S is symmetric; S(d, k_par) = S(-d, -k_par) and
     c(d, k_par) = -c(-d, -k_par) (reciprocity).
 
     References
     ----------
-    FORMULAS.md §1-§2; García de Abajo, Rev. Mod. Phys. 79, 1267 (2007) (lattice sums of
+    docs/theory.md §6, §7; García de Abajo, Rev. Mod. Phys. 79, 1267 (2007) (lattice sums of
     dipole arrays); Linton, SIAM Rev. 52, 630 (2010).
     """
     G, grad, hess = lattice_green_derivatives(k, k_par, lattice, d, tol=tol, splitting=splitting)

@@ -5,7 +5,7 @@ Owns: ``order_indices`` (which (m, n) orders to keep), ``order_wavevectors``
 ``rayleigh_proximity`` (distance to the nearest Rayleigh anomaly, for warnings).
 Must not import: store, report, cli, search.
 
-Conventions (PHYSICS.md §3, FORMULAS.md §0): SI units; kz = sqrt(k^2 - |q|^2) with
+Conventions (docs/theory.md §5): SI units; kz = sqrt(k^2 - |q|^2) with
 Im kz >= 0, and kz > 0 when real. Array axes: W (wavelengths) first, then N (orders).
 """
 
@@ -66,7 +66,7 @@ def order_wavevectors(lattice: Lattice, k_par, mn):
 
     References
     ----------
-    FORMULAS.md §0 (q_g = k_par + g); standard grating equation.
+    docs/theory.md §5 (q_g = k_par + g); standard grating equation.
     """
     b1, b2 = lattice.reciprocal()
     mn = np.asarray(mn, dtype=float)
@@ -97,7 +97,7 @@ def kz_branch(k, q):
 
     References
     ----------
-    PHYSICS.md §3; FORMULAS.md §0 (branch Im kz >= 0).
+    docs/theory.md §5 (branch Im kz >= 0).
     """
     k2 = (k * k)[:, None]
     x = k2 - np.sum(q * q, axis=-1) + 0j
@@ -124,7 +124,7 @@ def rayleigh_proximity(k, k_par, lattice: Lattice):
 
     References
     ----------
-    PHYSICS.md §2 (anomaly condition |k_par + G_mn| = k); FORMULAS.md §3.
+    docs/theory.md §5 (anomaly condition |k_par + G_mn| = k).
     """
     kv = np.real(np.asarray(getval(k), dtype=complex))
     kp = np.asarray(getval(k_par), dtype=float)

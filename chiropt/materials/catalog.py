@@ -46,7 +46,7 @@ class ShortName:
 SHORT_NAMES: tuple[ShortName, ...] = (
     ShortName("Si", "main/Si/Green-2008",
               "crystalline Si, intrinsic, 300 K; self-consistent (Kramers-Kronig) compilation; "
-              "the project's chosen Si source (FORMULAS.md sec. 8); n, k 250-1450 nm"),
+              "the project's chosen Si source (docs/theory.md §17); n, k 250-1450 nm"),
     ShortName("SiO2", "main/SiO2/Malitson",
               "fused silica, 20 C, Sellmeier fit; the standard glass substrate; "
               "n 210-6700 nm, k = 0"),

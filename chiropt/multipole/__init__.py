@@ -1,4 +1,4 @@
-"""Multipole (T-matrix) lattice model beyond dipoles: general lmax (issue 7).
+"""Multipole (T-matrix) lattice model beyond dipoles: general lmax (docs/theory.md §9).
 
 Owns: vector spherical waves and their conventions (vsw.py), VSWF translation tables
 (translation.py), Ewald lattice sums of scalar spherical waves (latticesums.py), particle

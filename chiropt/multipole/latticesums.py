@@ -6,24 +6,24 @@ by Ewald summation, differentiable by autograd, vectorized over wavelengths and
 displacements.
 Must not import: solve, fields, metrics, search, store, report, cli.
 
-Method (ours, built on the scalar split of FORMULAS.md §1, checked by tests):
+Method (ours, built on the scalar split of docs/theory.md §6, checked by tests):
 Hobson's theorem gives h_p(kr) Y_pM(r_hat) = (-k)^-p Y_pM(grad) h_0(kr) with the solid
 harmonic polynomial Y_pM(x, y, z) = r^p Y_pM(r_hat), so D_pM = (4 pi/(i k)) (-k)^-p
-Y_pM(grad) G(d), G the quasi-periodic Green's function of FORMULAS.md §1. Apply
+Y_pM(grad) G(d), G the quasi-periodic Green's function of docs/theory.md §6. Apply
 Y_pM(grad) to each part of the Ewald split:
 - spectral part (1/4A) sum_g exp(i q.rho) F(z)/gamma: grad -> (i q_x, i q_y, d/dz); with
   T+- = exp(+-gamma z) erfc(gamma/2E +- zE) = Phi w(i(gamma/2E +- zE)),
-  Phi = exp(-gamma^2/4E^2 - E^2 z^2) (Faddeeva form of FORMULAS.md §1),
+  Phi = exp(-gamma^2/4E^2 - E^2 z^2) (Faddeeva form of docs/theory.md §6),
   F^(n)/gamma = gamma^(n-1) [T+ + (-1)^n T-]
                - (2E/sqrt pi) sum_{j <= n-2, n-1-j odd} 2 gamma^(n-2-j) Phi^(j),
   Phi^(j) = (-E)^j H_j(E z) Phi (Hermite polynomials).
 - spatial part: each image is radial, f(r) = (1/(2 pi^1.5)) int_E^inf exp(-r^2 eta^2 +
   k^2/(4 eta^2)) d eta, and Y_pM(grad) f = Y_pM(r) (r^-1 d/dr)^p f = Y_pM(r) (-2)^p
   I_p/(2 pi^1.5), I_p = int_E^inf eta^(2p) exp(...) d eta, with I_0 = sqrt(pi) u/(4r)
-  (u of FORMULAS.md §1), I_1 = -(dI_0/dr)/(2r) and, integrating by parts,
+  (u of docs/theory.md §6), I_1 = -(dI_0/dr)/(2r) and, integrating by parts,
   I_p = [(2p-1) I_{p-1} - (k^2/2) I_{p-2} + E^(2p-1) X]/(2 r^2), X = exp(k^2/4E^2 - E^2 r^2).
 - the excluded image at d - R = 0 contributes only to p = 0, through h0 of
-  FORMULAS.md §1 (Y_pM(grad) of a smooth radial function vanishes at 0 for p >= 1).
+  docs/theory.md §6 (Y_pM(grad) of a smooth radial function vanishes at 0 for p >= 1).
 Everything is computed in units of 1/k (k = 1), where D is dimensionless.
 
 References
@@ -32,7 +32,7 @@ Kambe, Z. Naturforsch. 22a, 322 (1967) and 23a, 1280 (1968) (Ewald sums of spher
 waves on 2D lattices); Linton, SIAM Rev. 52, 630 (2010), §3-§4 (Ewald method, Hobson's
 theorem); Linton & Thompson, J. Comput. Phys. 228, 1815 (2009) (one-dimensional
 analogue, recurrences of the integrals I_p); Hobson, Proc. London Math. Soc. 24, 54
-(1892); FORMULAS.md §1 (scalar split, regularized self term).
+(1892); docs/theory.md §6 (scalar split, regularized self term).
 """
 
 from __future__ import annotations
@@ -214,7 +214,7 @@ def lattice_sums(k, k_par, lattice: Lattice, d, pmax: int, *, tol=1e-10, splitti
 
     References
     ----------
-    Module docstring (Kambe 1967-68; Linton 2010; Linton & Thompson 2009; FORMULAS.md §1).
+    Module docstring (Kambe 1967-68; Linton 2010; Linton & Thompson 2009; docs/theory.md §6).
     """
     kv = onp.real(onp.asarray(getval(k), dtype=complex))
     if kv.ndim != 1 or kv.size == 0 or onp.any(kv <= 0) or not onp.all(onp.isfinite(kv)):

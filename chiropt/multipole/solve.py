@@ -14,7 +14,7 @@ Equations: f_i = T_i e_i, e_i = b_i + sum_j [A^lat_ij + W^refl_ij] f_j, with b t
 background (incident + stack-reflected) field's regular coefficients at particle i,
 A^lat_ij = sum_R exp(i k_par.R) A(r_i - r_j - R) (R = 0 omitted for i = j) and W^refl
 the sum over orders of (regular expansion at i) x (r_s, r_p) x (downward emission of j).
-At lmax = 1 these are the coupled dipole equations of chiropt.solve (FORMULAS.md §2-§3).
+At lmax = 1 these are the coupled dipole equations of chiropt.solve (docs/theory.md §5, §7).
 """
 
 from __future__ import annotations
@@ -163,8 +163,8 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     ----------
     Kambe (1967-68) and Stefanou, Yannopapas & Modinos, Comput. Phys. Commun. 113, 49
     (1998) (layer-KKR: lattice-summed multipole coupling and plane-wave expansion of a
-    layer of multipoles); Mishchenko, Travis & Lacis (2002) §5 (T-matrix); FORMULAS.md
-    §2-§3 (dipole limit, substrate per order).
+    layer of multipoles); Mishchenko, Travis & Lacis (2002) §5 (T-matrix); docs/theory.md
+    §7, §10 (dipole limit, substrate per order).
     """
     _check(structure, tmatrices, lmax)
     st = structure

@@ -9,7 +9,7 @@ Must not import: solve, fields, metrics, search, store, report, cli.
 Conventions: f = T e (outgoing from exciting coefficients), modes ordered as in
 ``chiropt.multipole.vsw`` (l, m, then N/electric before M/magnetic). A sphere has
 T = diag(-a_l) on N modes and diag(-b_l) on M modes (Bohren & Huffman 1983 coefficients;
-FORMULAS.md §6: "a sphere gives T = diag(-b_n, -a_n)").
+docs/theory.md §4: "a sphere gives T = diag(-b_n, -a_n)").
 """
 
 from __future__ import annotations

@@ -271,7 +271,7 @@ def emission_vectors(u, lmax: int):
 
     References
     ----------
-    Weyl expansion (FORMULAS.md §1) with h_l Y_lm = (-k)^-l Y_lm(grad) h_0 (Hobson's
+    Weyl expansion (docs/theory.md §6) with h_l Y_lm = (-k)^-l Y_lm(grad) h_0 (Hobson's
     theorem, Hobson, Proc. London Math. Soc. 24, 54 (1892)), then L applied to both sides.
     """
     return outgoing_vectors(u, lmax) * _i_power(lmax, -1)[:, None]
@@ -396,8 +396,8 @@ def dipole_moments(f, k):
 
     References
     ----------
-    Module docstring (derived by matching the Weyl expansions of FORMULAS.md §3 and of
-    ``emission_vectors`` at l = 1; gives alpha_e = 6 pi i a1/k^3 as in FORMULAS.md §2).
+    Module docstring (derived by matching the Weyl expansions of docs/theory.md §5 and of
+    ``emission_vectors`` at l = 1; gives alpha_e = 6 pi i a1/k^3 as in docs/theory.md §3).
     """
     c = np.sqrt(6 * np.pi) / k ** 3
     fn, fm = f[..., 0:6:2], f[..., 1:6:2]  # m = -1, 0, 1

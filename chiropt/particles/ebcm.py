@@ -47,7 +47,7 @@ delta_ll' delta_m,-m'). Hence
 
 and RgQ~ the same with regular waves; curl M = k N, curl N = k M at each wavenumber.
 For axisymmetric surfaces Q~ is block-diagonal in m, the phi integral gives 2 pi and
-n dS = r^2 sin(theta) [r_hat - (r_theta/r) theta_hat] dtheta dphi (FORMULAS.md §6).
+n dS = r^2 sin(theta) [r_hat - (r_theta/r) theta_hat] dtheta dphi (docs/theory.md §4).
 The integrand is evaluated from the Cartesian components of the VSWFs at phi = 0
 (``vsw.vector_harmonics``, ``vsw.spherical_harmonics``), so the convention of the
 result is that of ``vsw`` by construction; the triple products are taken numerically.
@@ -122,7 +122,7 @@ def spheroid_surface(a, c, n_quad: int):
 
     References
     ----------
-    FORMULAS.md §6: r(theta) = (sin^2/a^2 + cos^2/c^2)^(-1/2); r_theta by
+    docs/theory.md §4: r(theta) = (sin^2/a^2 + cos^2/c^2)^(-1/2); r_theta by
     differentiation, r_theta = -r^3 sin cos (1/a^2 - 1/c^2).
     """
     th, w = _gauss(0.0, math.pi, n_quad)
@@ -151,7 +151,7 @@ def cylinder_surface(radius, height, n_quad: int):
 
     References
     ----------
-    FORMULAS.md §6: r = min(H/(2|cos|), a/sin), quadrature split at the edge angle
+    docs/theory.md §4: r = min(H/(2|cos|), a/sin), quadrature split at the edge angle
     theta_c = atan(2a/H). End faces r = H/(2|cos|), r_theta = r tan(theta) sign(cos);
     side r = a/sin, r_theta = -r cos/sin.
     """
@@ -283,7 +283,7 @@ def _qmatrices(k, k1, th, w, r, r_th, nmax: int, ms_wanted):
 
 def _mirror_mask(lv):
     """Allowed (1) and symmetry-forbidden (0) entries of an m-block for a body with the
-    mirror plane z = 0: same type for l + l' even, N-M for l + l' odd (FORMULAS.md §6)."""
+    mirror plane z = 0: same type for l + l' even, N-M for l + l' odd (docs/theory.md §4)."""
     ls = onp.repeat(lv, 2)
     tau = onp.tile([0, 1], len(lv))
     same = tau[:, None] == tau[None, :]

@@ -19,7 +19,7 @@ Conventions
   particle...); the multipole order is the last axis, index 0 = order 1.
 - Everything is written with ``autograd.numpy``; the coefficients are
   differentiable in ``x`` and in the real and imaginary parts of ``m``.
-- Dipole normalization (FORMULAS.md §2): ``P = p / (eps0 eps_host) = alpha_e
+- Dipole normalization (docs/theory.md §7): ``P = p / (eps0 eps_host) = alpha_e
   E_loc`` and ``Z m = alpha_m Z H_loc``, both polarizabilities in m^3.
 """
 
@@ -457,7 +457,7 @@ def dipole_polarizabilities(a1, b1, k):
     ----------
     Evlyukhin et al., Phys. Rev. B 82, 045404 (2010), eq. for the Mie dipole
     polarizabilities; García de Abajo, Rev. Mod. Phys. 79, 1267 (2007);
-    FORMULAS.md §2.
+    docs/theory.md §7.
     """
     k_val = np.asarray(getval(k))
     if np.iscomplexobj(k_val) or not np.all(np.isfinite(k_val)) or np.any(k_val <= 0):

@@ -5,7 +5,7 @@ Owns: ``plot_front``, ``plot_convergence``, ``plot_comparison``. The look comes 
 
 The (DOCP, g) panel shows, when ``chiropt.metrics`` offers them, the CD bound
 ``K^2/sqrt(2K^2 - 1)`` and the attainable boundary of the dominant evanescent order of the
-best-g candidate (PHYSICS.md §5); without them the panel is drawn without the overlay.
+best-g candidate (docs/theory.md §14); without them the panel is drawn without the overlay.
 """
 
 from __future__ import annotations

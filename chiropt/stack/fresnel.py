@@ -5,7 +5,7 @@ medium, the s/p Fresnel coefficients of one planar interface, and the z-directed
 Poynting flux carried by one s- or p-polarized plane wave (and the flux ratio of a
 transmitted to an incident wave).
 
-Conventions (project-wide, FORMULAS.md §0 and §3):
+Conventions (project-wide, docs/theory.md §1, §5):
 
 - Time dependence ``exp(-i omega t)``; passive media have ``Im(eps) >= 0``;
   media are non-magnetic; ``n = sqrt(eps)`` on the principal branch
@@ -136,7 +136,7 @@ def normal_wavenumber(q, k0, eps):
     References
     ----------
     Chew, *Waves and Fields in Inhomogeneous Media* (1990), §2.1 (branch of kz
-    for outgoing/decaying waves); FORMULAS.md §0.
+    for outgoing/decaying waves); docs/theory.md §1.
     """
     _check_wavenumbers(q, k0)
     _check_permittivity(eps, "eps", onp.shape(getval(k0))[0])
@@ -178,7 +178,7 @@ def interface_coefficients(q, k0, eps1, eps2):
     ----------
     Born & Wolf, *Principles of Optics*, 7th ed. (1999), §1.5.2 (Fresnel formulas;
     equation numbers not checked);
-    Yeh, *Optical Waves in Layered Media* (1988), §3.2; FORMULAS.md §3.
+    Yeh, *Optical Waves in Layered Media* (1988), §3.2; docs/theory.md §10.
     """
     _check_wavenumbers(q, k0)
     n_w = onp.shape(getval(k0))[0]

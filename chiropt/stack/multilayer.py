@@ -16,7 +16,7 @@ Where ``|kz d| <= 1`` they are summed as power series (no branch point at
 ``kz = 0`` in a film, where the r/t recursion of Yeh (1988) meets 0/0, and finite
 derivatives there); elsewhere they are multiplied by the decaying factor
 ``exp(i kz d)``, which keeps them bounded for thick films with evanescent or
-absorbed waves (no overflow). The result equals that recursion (FORMULAS.md §3)
+absorbed waves (no overflow). The result equals that recursion (docs/theory.md §10)
 wherever the latter is defined; the tests check it against tmm, the Airy
 formula and a direct solve of the boundary conditions.
 
@@ -199,7 +199,7 @@ def stack_coefficients(q, k0, eps_host, eps_layers, thicknesses, eps_substrate, 
     matrix of a stratified medium) and §1.6.4 (single film);
     Yeh, *Optical Waves in Layered Media* (1988), ch. 5 (multilayer r and t,
     recursion); Chew, *Waves and Fields in Inhomogeneous Media* (1990), §2.1
-    (generalized reflection coefficients); FORMULAS.md §3.
+    (generalized reflection coefficients); docs/theory.md §10.
     """
     if from_side not in SIDES:
         raise InputError("from_side", f"must be one of {SIDES}; got {from_side!r}")
