@@ -13,7 +13,7 @@ from __future__ import annotations
 import autograd.numpy as np
 
 from chiropt.planewaves import z_flux
-from chiropt.solve import Solution, _slice_orders, substrate_basis
+from chiropt.solution import Solution, _slice_orders, substrate_basis
 
 
 def _propagating_host_flux(sol: Solution, vectors, k_hat):

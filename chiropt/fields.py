@@ -37,7 +37,7 @@ from chiropt.errors import ComputationError, InputError
 from chiropt.lattice import order_indices, order_wavevectors
 from chiropt.lattice.orders import KZ_FLOOR
 from chiropt.planewaves import cross, kz_branch, order_basis
-from chiropt.solve import Solution
+from chiropt.solution import Solution
 from chiropt.stack import stack_coefficients
 from chiropt.structure import Structure
 

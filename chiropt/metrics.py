@@ -46,7 +46,7 @@ from chiropt.fields import (
     region_span,
 )
 from chiropt.planewaves import cross
-from chiropt.solve import Solution
+from chiropt.solution import Solution
 from chiropt.structure import Structure
 
 HELICITY_KEYS = ("+1", "-1")

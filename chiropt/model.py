@@ -19,7 +19,8 @@ from autograd.tracer import getval
 
 from chiropt.design import Design
 from chiropt.farfield import power_fractions
-from chiropt.solve import Solution, solve
+from chiropt.solution import Solution
+from chiropt.solve import solve
 from chiropt.structure import Structure, build_structure
 
 LMAX_CAP = 8

@@ -15,7 +15,7 @@ import numpy as onp
 
 from chiropt.design import Design
 from chiropt.model import run_model, validity
-from chiropt.solve import Solution
+from chiropt.solution import Solution
 
 HELICITIES = (+1, -1)
 AREA_GRID = 48  # grid of the handedness area fraction (converged to 0.01, tests/test_metrics)

@@ -31,7 +31,7 @@ from chiropt.model import metrics_tolerance, quantities_of, run_model
 
 __all__ = ["compute_quantities", "metrics_tolerance", "quantity_names",
            "spectrum_sensitivities", "value_and_gradient", "Sensitivity"]
-from chiropt.solve import RAYLEIGH_WARN
+from chiropt.solution import RAYLEIGH_WARN
 
 FAR_FIELD = ("R+1", "R-1", "T+1", "T-1", "A+1", "A-1")
 NEAR_FIELD = ("u", "c", "g", "background", "docp+1", "docp-1", "s0+1", "s0-1")

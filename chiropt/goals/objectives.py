@@ -43,7 +43,7 @@ from chiropt.goals.schema import (
 )
 from chiropt.search.problem import VectorEvaluation
 from chiropt.sensitivity import compute_quantities
-from chiropt.solve import RAYLEIGH_WARN
+from chiropt.solution import RAYLEIGH_WARN
 
 __all__ = ["DeadlineReached", "GoalProblem", "check_goal", "metric_spectrum"]
 

@@ -40,7 +40,7 @@ from chiropt.multipole.vsw import (
     n_modes,
     order_projections,
 )
-from chiropt.solve import (
+from chiropt.solution import (
     Solution,
     background_components,
     combine_orders,
