@@ -162,7 +162,7 @@ def test_reciprocity_of_zeroth_order_reflection(lmax):
 
 
 def test_sphere_tmatrix_is_minus_mie_coefficients():
-    # vsw/tmatrix convention: T = diag(-a_l) on N modes, diag(-b_l) on M modes;
+    # sphericalwaves/tmatrix convention: T = diag(-a_l) on N modes, diag(-b_l) on M modes;
     # miepython (reference library) a_n, b_n
     x, m = np.array([1.3]), np.array([3.5 + 0.02j])
     T = np.asarray(sphere_tmatrix(x, m, 3))[0]

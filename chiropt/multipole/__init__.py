@@ -1,9 +1,10 @@
 """Multipole (T-matrix) lattice model beyond dipoles: general lmax (docs/theory.md §9).
 
-Owns: vector spherical waves and their conventions (vsw.py), VSWF translation tables
-(translation.py), Ewald lattice sums of scalar spherical waves (latticesums.py), particle
-T-matrices (tmatrix.py) and the coupled multipole solve with the per-order substrate
-(solve.py), whose result is a ``chiropt.solve.Solution``.
+Owns: VSWF translation tables (translation.py), Ewald lattice sums of scalar spherical
+waves (latticesums.py), particle T-matrices (tmatrix.py) and the coupled multipole solve
+with the per-order substrate (solve.py), whose result is a ``chiropt.solve.Solution``.
+The vector spherical waves and their conventions are the shared kernel
+``chiropt.sphericalwaves``.
 Must not import: search, store, report, cli.
 """
 

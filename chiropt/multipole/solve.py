@@ -32,7 +32,7 @@ from chiropt.errors import InputError
 from chiropt.farfield import incident_flux, power_fractions
 from chiropt.multipole.latticesums import lattice_sums
 from chiropt.multipole.translation import translation_table
-from chiropt.multipole.vsw import (
+from chiropt.sphericalwaves import (
     channel_modes,
     dipole_fields,
     dipole_moments,
@@ -84,7 +84,7 @@ def _reflected_orders_radius(st: Structure, lmax: int) -> float:
 
     An evanescent order q reflected between particles at heights h_i, h_j above the
     stack carries exp(-q (h_i + h_j)) times the angular factors (q/k)^(l + l') of the
-    emission and re-expansion (``vsw``): keep q with
+    emission and re-expansion (``chiropt.sphericalwaves``): keep q with
     2 q h_min - c ln(q/k) <= ln(1/tol) + 3 (fixed-point iteration), c = _margin_power(lmax).
 
     The margin power is set from measured truncation errors against references at
@@ -149,7 +149,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     structure : Structure — SI description (chiropt.structure.build_structure); its
         dipole polarizabilities are not used
     tmatrices : array (W, N, 2K, 2K) — T-matrices of the N particles of the cell in the
-        basis of ``chiropt.multipole.vsw`` [-]
+        basis of ``chiropt.sphericalwaves`` [-]
     lmax : int — multipole degree of the basis, 1 <= lmax <= 8
     warn : bool — emit :class:`chiropt.solve.RayleighAnomalyWarning` near a grazing order
     g_max : float, optional — keep at least the orders with |G| <= g_max [1/m]
@@ -229,7 +229,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
 
     # -- outgoing orders, components on (s, p) --------------------------------------------
     # amplitude of channel c in direction d: sum_(c', k) P[c', k] F[c', k, d, c] with
-    # F from f and the emission identities of vsw.channel_modes (no 2K-mode vectors)
+    # F from f and the emission identities of sphericalwaves.channel_modes (no 2K-mode vectors)
     f4 = np.reshape(f, (W, 2, N, K2))
     e_l = _i_power_k(lmax)                                              # (-i)^l, (K,)
     fN, fM = f4[..., 0::2] * e_l, f4[..., 1::2] * e_l                  # (W, 2, N, K)
