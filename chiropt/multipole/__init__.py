@@ -11,7 +11,7 @@ Must not import: search, store, report, cli.
 from chiropt.multipole.latticesums import lattice_sums
 from chiropt.multipole.solve import (
     MultipoleSolution,
-    multipole_power_fractions,
+    absorbed_power,
     solve_multipole,
 )
 from chiropt.multipole.tmatrix import (
@@ -29,11 +29,11 @@ __all__ = [
     "MultipoleSolution",
     "Sphere",
     "TMatrixSource",
+    "absorbed_power",
     "choose_lmax",
     "coreshell_tmatrix",
     "design_particles",
     "lattice_sums",
-    "multipole_power_fractions",
     "solve_multipole",
     "sphere_tmatrix",
     "stack_tmatrices",
