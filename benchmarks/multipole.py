@@ -13,7 +13,6 @@ from chiropt.design import design_from_dict
 from chiropt.farfield import power_fractions
 from chiropt.multipole import (
     design_particles,
-    multipole_power_fractions,
     solve_multipole,
     stack_tmatrices,
 )
@@ -51,7 +50,7 @@ def main():
         for lmax in (1, 2, 3, 4):
             def run(lmax=lmax, des=des, st=st):
                 T = stack_tmatrices(design_particles(des), st.k, lmax)
-                return multipole_power_fractions(solve_multipole(st, T, lmax))
+                return power_fractions(solve_multipole(st, T, lmax))
             t = best_of(run)
             print(f"substrate={substrate}  multipole lmax={lmax} : {1e3 * t / W:8.2f} ms/point")
 

@@ -1,8 +1,10 @@
 """Far field of the array: reflectance, transmittance, absorptance per helicity.
 
-Owns: power fractions of all propagating diffraction orders, and the power the
-dipoles absorb (an independent absorptance). Must not import: search, store,
-report, cli.
+Owns: power fractions of all propagating diffraction orders, and an independent
+absorptance: the power the dipoles absorb, or, when the solution carries it
+(``Solution.absorbed_particles``, the multipole model), the power the particles absorb.
+Reads any ``chiropt.solve.Solution`` the same way, whichever solver made it.
+Must not import: multipole, search, store, report, cli.
 
 All fractions are normalized to the z-directed power flux of the incident wave
 (unit amplitude, in its medium of incidence).
@@ -44,16 +46,22 @@ def incident_flux(sol: Solution):
 
 
 def power_fractions(sol: Solution) -> dict:
-    """R, T, A = 1 - R - T and the dipoles' absorbed fraction, each (W, 2) [+1, -1].
+    """R, T, A = 1 - R - T and an independent absorbed fraction, each (W, 2) [+1, -1].
 
     R: power into the medium of incidence; T: into the other half space (for
     host-side illumination: the substrate, or the host below the array).
+    A_dipoles: the fraction the dipoles absorb (NaN for particles without scalar
+    polarizabilities); for a solution that carries ``absorbed_particles`` (the multipole
+    model) it is instead ``A_particles``, that power per cell over the cell area and the
+    incident flux, and both keys are returned with the same array.
 
     References
     ----------
     Absorbed power of a dipole with radiative correction:
     W_abs = (omega/2) eps |P|^2 (-Im(1/alpha) - k^3/(6 pi)) (Draine, ApJ 333, 848 (1988);
-    docs/theory.md §7); fluxes from the Poynting vector of each order (docs/theory.md §11).
+    docs/theory.md §7); fluxes from the Poynting vector of each order (docs/theory.md §11);
+    particles' absorption from expansion coefficients: Mishchenko, Travis & Lacis (2002)
+    §5.8 (chiropt.multipole.solve.absorbed_power).
     """
     st = sol.structure
     inc = incident_flux(sol)[:, None]
@@ -63,12 +71,15 @@ def power_fractions(sol: Solution) -> dict:
         R, T = up, down
     else:
         R, T = down, up
+    if sol.absorbed_particles is not None:
+        A_p = sol.absorbed_particles / (st.lattice.area * inc)
+        return {"R": R, "T": T, "A": 1.0 - R - T, "A_particles": A_p, "A_dipoles": A_p}
     k = st.k
     k3 = (k ** 3 / (6 * np.pi))[:, None]
     P = sol.moments[..., :3]
     M = sol.moments[..., 3:]
-    if not all(st.spherical):  # no scalar polarizabilities (the multipole model reports
-        nan = np.full(np.shape(R), np.nan)  # the particles' absorption itself)
+    if not all(st.spherical):  # no scalar polarizabilities
+        nan = np.full(np.shape(R), np.nan)
         return {"R": R, "T": T, "A": 1.0 - R - T, "A_dipoles": nan}
     loss_e = -np.imag(1.0 / st.alpha_e) - k3  # (W, N)
     loss_m = -np.imag(1.0 / st.alpha_m) - k3

@@ -30,7 +30,8 @@ LMAX_CAP = 8
 class ModelOutput:
     """What one forward run produced.
 
-    structure, solution; fractions: R, T, A, A_dipoles (W, 2); metrics: region metrics
+    structure, solution; fractions: R, T, A, A_dipoles (W, 2) and, from the multipole
+    model, A_particles (chiropt.farfield.power_fractions); metrics: region metrics
     (or None); lmax: the multipole degree used.
     """
 
@@ -112,9 +113,8 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
         tol = metrics_tolerance(design)
         if degree == 1 and all(st.spherical):
             sol = solve(st, warn=warn)
-            frac = power_fractions(sol)
         else:
-            from chiropt.multipole.solve import multipole_power_fractions, solve_multipole
+            from chiropt.multipole.solve import solve_multipole
             from chiropt.multipole.tmatrix import design_particles, stack_tmatrices
 
             g_max = None
@@ -125,8 +125,7 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
                                      tol=maps_tolerance(design) if maps else tol)
             T = stack_tmatrices(design_particles(design, values), st.k, degree)
             sol = solve_multipole(st, T, degree, warn=warn, g_max=g_max)
-            frac = multipole_power_fractions(sol)
-            frac = dict(frac, A_dipoles=frac["A_particles"])
+        frac = power_fractions(sol)
         metrics = None
         if region is not None:
             from chiropt.metrics import region_metrics

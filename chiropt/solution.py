@@ -75,6 +75,11 @@ class Solution:
     local_E, local_H : (W, 2, N, 3) exciting fields E and Z H at the particles [V/m]
     rayleigh : (W,) smallest |kz|/k over host (and substrate) orders
     n_far : number of leading orders that can propagate in the host or substrate
+    absorbed_particles : (W, 2) power the particles of one cell absorb, in units of
+        1/(2 Z0) [V^2] (divided by the cell area and the incident flux it is an
+        absorptance), when the solver computes it from its own unknowns (the multipole
+        model); None for the dipole model, whose absorption chiropt.farfield takes from
+        the polarizabilities, and for the Fourier model (A = 1 - R - T)
     """
 
     structure: Structure
@@ -89,6 +94,7 @@ class Solution:
     rayleigh: Any
     eps_exit: Any
     n_far: int
+    absorbed_particles: Any = None
 
     def up_vectors(self, count: int | None = None):
         """Upward amplitude vectors (W, 2, G', 3) of the first ``count`` orders."""

@@ -8,7 +8,8 @@ from chiropt.search.algorithms import ALGORITHMS, algorithm_names, get_algorithm
 from chiropt.search.driver import minimize
 from chiropt.search.executor import ProcessExecutor, SerialExecutor
 from chiropt.search.multistart import multistart, sobol_starts, start_seed
-from chiropt.search.problem import Evaluation, FunctionProblem
+from chiropt.problem import Evaluation
+from chiropt.search.problem import FunctionProblem
 
 # ---------------------------------------------------------------------------------------------
 # test functions (module level: picklable for the process executor)

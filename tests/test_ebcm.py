@@ -8,7 +8,7 @@ from scipy.integrate import quad
 
 from chiropt.errors import InputError
 from chiropt.multipole.tmatrix import Sphere, sphere_tmatrix
-from chiropt.multipole.vsw import emission_vectors, mode_table, planewave_coefficients
+from chiropt.sphericalwaves import emission_vectors, mode_table, planewave_coefficients
 from chiropt.particles import ebcm
 from chiropt.particles.ebcm import Cylinder, Spheroid, cylinder_tmatrix, spheroid_tmatrix
 
@@ -180,7 +180,7 @@ def _depolarization(a, c):
 @pytest.mark.parametrize("a, c", [(1.0, 2.0), (2.0, 1.0), (1.0, 0.5)])
 def test_small_spheroid_matches_electrostatic_polarizability(a, c):
     # Bohren & Huffman (1983) §5.3: alpha_j = V (eps - 1)/(1 + L_j (eps - 1)) (SI, per
-    # eps0 eps_host); l = 1 block: alpha = -6 pi i T_N1m / k^3 (vsw dipole map,
+    # eps0 eps_host); l = 1 block: alpha = -6 pi i T_N1m / k^3 (sphericalwaves dipole map,
     # docs/theory.md §3: alpha_e = 6 pi i a1/k^3); relative corrections O((k a)^2)
     scale = 0.01 / max(a, c)                    # k max(a, c) = 0.01
     a, c = a * scale, c * scale

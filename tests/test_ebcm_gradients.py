@@ -10,7 +10,7 @@ import scipy.special as sps
 from autograd import grad
 
 from chiropt.multipole.tmatrix import sphere_tmatrix
-from chiropt.multipole.vsw import mode_table, planewave_coefficients
+from chiropt.sphericalwaves import mode_table, planewave_coefficients
 from chiropt.particles import ebcm
 from chiropt.particles._spherical_bessel import spherical_bessel, spherical_bessel_derivative
 

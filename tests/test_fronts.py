@@ -5,7 +5,7 @@ import pytest
 
 from chiropt.errors import InputError
 from chiropt.search.fronts import Scalarized, epsilon_constraint, weighted_sum
-from chiropt.search.problem import VectorEvaluation
+from chiropt.problem import VectorEvaluation
 
 
 class Schaffer:

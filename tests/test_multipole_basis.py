@@ -15,7 +15,7 @@ from chiropt.multipole.translation import (
     translation_matrix,
     wigner3j,
 )
-from chiropt.multipole.vsw import (
+from chiropt.sphericalwaves import (
     emission_vectors,
     lm_index,
     mode_table,
@@ -53,7 +53,7 @@ def test_wigner3j_known_values():
 
 @pytest.mark.parametrize("kind", ["outgoing", "regular"])
 def test_curl_relations(kind):
-    # Definition (vsw module docstring; Jackson 1999 §9.7): curl M = k N, curl N = k M,
+    # Definition (sphericalwaves module docstring; Jackson 1999 §9.7): curl M = k N, curl N = k M,
     # checked by central finite differences (common practice, no source)
     k, h = 1.3e7, 1e-13
     p = RNG.normal(size=3) * 2e-7
@@ -175,7 +175,7 @@ def test_lattice_sums_reciprocity_symmetry():
 
 
 def test_lattice_sums_off_plane_equal_weyl_series():
-    # Weyl (plane-wave) series of the lattice of outgoing waves (vsw module docstring;
+    # Weyl (plane-wave) series of the lattice of outgoing waves (sphericalwaves module docstring;
     # docs/theory.md §6 spectral form), exponentially convergent off the plane:
     # D_pM(d) = (2 pi (-i)^p/(A k)) sum_g exp(i k_g.d) Y_pM(k_g/k)/kz_g for d_z > 0
     from chiropt.lattice import order_indices, order_wavevectors
@@ -195,7 +195,7 @@ def test_lattice_sums_off_plane_equal_weyl_series():
 
 
 def test_emission_vectors_weyl_expansion_of_vswf_lattice():
-    # vsw docstring: sum_R exp(i k_par.R) Psi_u(r - R) = (2 pi/(A k)) sum_g (-i)^l W_u
+    # sphericalwaves docstring: sum_R exp(i k_par.R) Psi_u(r - R) = (2 pi/(A k)) sum_g (-i)^l W_u
     # exp(i k_g.r)/kz; checked against a direct lattice sum of translated VSWFs
     # (translation tables + lattice sums with the regular waves at a point above the plane)
     from chiropt.lattice import order_indices, order_wavevectors
@@ -236,7 +236,7 @@ def test_lattice_sums_gradient_matches_finite_differences():
 
 
 def test_mode_table_order():
-    # vsw docstring: l ascending, m = -l..l, electric (N) before magnetic (M)
+    # sphericalwaves docstring: l ascending, m = -l..l, electric (N) before magnetic (M)
     tau, ls, ms = mode_table(2)
     assert list(tau[:4]) == [0, 1, 0, 1] and list(ls[:6]) == [1] * 6
     assert list(ms[:6]) == [-1, -1, 0, 0, 1, 1] and len(tau) == 16

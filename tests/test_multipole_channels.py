@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from chiropt.multipole.vsw import (
+from chiropt.sphericalwaves import (
     channel_modes,
     down_parity,
     emission_vectors,
@@ -26,7 +26,8 @@ def _orders():
 @pytest.mark.parametrize("lmax", [1, 2, 4])
 @pytest.mark.parametrize("direction", [0, 1])
 def test_channel_modes_equal_vector_forms(lmax, direction):
-    # identity of vsw.channel_modes (k x s = -p, k x p = s; parity of Y_lm, DLMF 14.7.17):
+    # identity of sphericalwaves.channel_modes (k x s = -p, k x p = s; parity of Y_lm,
+    # DLMF 14.7.17):
     # projections of emission_vectors / planewave_coefficients on s and p
     s, pu, pd, ku, kd = _orders()
     P = order_projections(ku, s, pu, lmax)

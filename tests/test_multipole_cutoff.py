@@ -6,7 +6,7 @@ import pytest
 from chiropt.design import design_from_dict
 from chiropt.multipole.solve import _reflected_orders_radius, solve_multipole
 from chiropt.multipole.tmatrix import design_particles, stack_tmatrices
-from chiropt.multipole.vsw import mode_table
+from chiropt.sphericalwaves import mode_table
 from chiropt.structure import build_structure
 
 TWO = [{"radius_nm": 80, "material": {"n": 3.6, "k": 0.0}, "position_nm": [0, 0]},

@@ -7,7 +7,7 @@ from autograd import grad
 
 from chiropt.design import design_from_dict
 from chiropt.farfield import power_fractions
-from chiropt.multipole.solve import multipole_power_fractions, solve_multipole
+from chiropt.multipole.solve import solve_multipole
 from chiropt.multipole.tmatrix import (
     choose_lmax,
     design_particles,
@@ -56,7 +56,7 @@ def test_lmax1_equals_dipole_model(substrate, particles):
     ref = solve(st, g_max=float(np.max(np.linalg.norm(sol.orders.q[0], axis=-1))) * 1.5)
     n = sol.up_sp.shape[2]
     assert ref.up_sp.shape[2] >= n
-    fr, fm = power_fractions(ref), multipole_power_fractions(sol)
+    fr, fm = power_fractions(ref), power_fractions(sol)
     assert np.abs(fr["R"] - fm["R"]).max() < 1e-10
     assert np.abs(fr["T"] - fm["T"]).max() < 1e-10
     nf = sol.n_far
@@ -76,7 +76,7 @@ def test_energy_conservation_lossless(lmax, lattice, polar, azimuth):
     # diffraction threshold: 420 nm diffracts on the square lattice) to 1e-10
     _, sol = _run(_design(lattice, wl=(420.0, 620.0, 800.0), polar=polar, azimuth=azimuth),
                   lmax)
-    fr = multipole_power_fractions(sol)
+    fr = power_fractions(sol)
     assert np.abs(fr["R"] + fr["T"] - 1).max() < 1e-10
     assert fr["R"].max() > 1e-2
 
@@ -87,7 +87,7 @@ def test_energy_conservation_with_substrate(lmax, polar, azimuth):
     # docs/theory.md §8 with a lossless substrate (to 1e-9), sphere 20 nm above glass
     _, sol = _run(_design(HEX, wl=(640.0, 780.0), polar=polar, azimuth=azimuth,
                           substrate=GLASS, gap=20.0), lmax)
-    fr = multipole_power_fractions(sol)
+    fr = power_fractions(sol)
     assert np.abs(fr["R"] + fr["T"] - 1).max() < 1e-9
 
 
@@ -97,7 +97,7 @@ def test_lossy_absorption_equals_particle_losses(lmax):
     # -Re(e^H f) - |f|^2 per particle (Mishchenko, Travis & Lacis 2002 §5.8)
     _, sol = _run(_design(HEX, material={"n": 3.7, "k": 0.08}, polar=15, azimuth=10,
                           substrate=GLASS, gap=5.0, wl=(560.0, 700.0)), lmax)
-    fr = multipole_power_fractions(sol)
+    fr = power_fractions(sol)
     assert np.abs(fr["A"] - fr["A_particles"]).max() < 1e-9
     assert fr["A"].min() > 1e-3
 
@@ -107,7 +107,7 @@ def test_convergence_with_lmax_is_geometric(polar):
     # docs/theory.md §15: successive differences shrink geometrically (Si-like n = 3.6, r = 100 nm,
     # period 450 nm, x = k r = 1.21 at 520 nm, 1.45 at 435 nm); common practice, no source
     des = _design(radius=100.0, wl=(520.0, 600.0), polar=polar)
-    R = [multipole_power_fractions(_run(des, L)[1])["R"] for L in (1, 2, 3, 4, 5)]
+    R = [power_fractions(_run(des, L)[1])["R"] for L in (1, 2, 3, 4, 5)]
     diff = [np.abs(R[i + 1] - R[i]).max() for i in range(4)]
     assert diff[0] > 1e-3  # the dipole model is measurably off (docs/theory.md §15)
     assert diff[1] < 0.3 * diff[0] and diff[2] < 0.3 * diff[1] and diff[3] < 0.3 * diff[2]
@@ -162,7 +162,7 @@ def test_reciprocity_of_zeroth_order_reflection(lmax):
 
 
 def test_sphere_tmatrix_is_minus_mie_coefficients():
-    # vsw/tmatrix convention: T = diag(-a_l) on N modes, diag(-b_l) on M modes;
+    # sphericalwaves/tmatrix convention: T = diag(-a_l) on N modes, diag(-b_l) on M modes;
     # miepython (reference library) a_n, b_n
     x, m = np.array([1.3]), np.array([3.5 + 0.02j])
     T = np.asarray(sphere_tmatrix(x, m, 3))[0]
@@ -188,7 +188,7 @@ def test_gradient_through_multipole_solve():
 
     def R(radius):
         vals = {"particles[0].radius_nm": radius}
-        return multipole_power_fractions(_run(des, 2, vals, warn=False)[1])["R"][0, 0]
+        return power_fractions(_run(des, 2, vals, warn=False)[1])["R"][0, 0]
 
     g = grad(R)(90.0)
     h = 1e-4

@@ -284,7 +284,7 @@ def test_a_search_that_dies_is_a_failed_search(tmp_path, monkeypatch, capsys):
 
 def test_a_store_that_changes_under_the_report_is_not_complete(tmp_path, monkeypatch):
     import chiropt.run as run
-    from chiropt.search.problem import Evaluation
+    from chiropt.problem import Evaluation
 
     real = run.write_report
 

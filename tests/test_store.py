@@ -7,7 +7,7 @@ from chiropt.errors import ComputationError
 from chiropt.search.executor import ProcessExecutor, SerialExecutor
 from chiropt.search.fronts import epsilon_constraint
 from chiropt.search.multistart import multistart
-from chiropt.search.problem import Evaluation, VectorEvaluation
+from chiropt.problem import Evaluation, VectorEvaluation
 from chiropt.store.evaluations import (
     CachedProblem,
     CachingWrap,

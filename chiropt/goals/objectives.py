@@ -41,7 +41,7 @@ from chiropt.goals.schema import (
     Goal,
     WavelengthSpec,
 )
-from chiropt.search.problem import VectorEvaluation
+from chiropt.problem import VectorEvaluation
 from chiropt.sensitivity import compute_quantities
 from chiropt.solution import RAYLEIGH_WARN
 

@@ -49,7 +49,7 @@ from chiropt.lattice import Lattice, order_indices, order_wavevectors, splitting
 from chiropt.lattice.bravais import integer_pairs_within
 from chiropt.lattice.faddeeva import wofz
 from chiropt.lattice.orders import kz_branch
-from chiropt.multipole.vsw import spherical_harmonics
+from chiropt.sphericalwaves import spherical_harmonics
 
 _SQRT_PI = math.sqrt(math.pi)
 _MARGIN = 4.0

@@ -8,7 +8,8 @@ solution for both incident helicities, and the outgoing (s, p) amplitudes of eve
 order, returned as a :class:`MultipoleSolution` that is a ``chiropt.solve.Solution``
 (same component and reference-plane conventions), so farfield/fields code reads it
 unchanged. Pure array code, autograd-differentiable.
-Must not import: metrics, search, store, report, cli.
+Must not import: farfield, fields, metrics, search, store, report, cli (the far field
+reads the solution; the solver computes no far-field quantity).
 
 Equations: f_i = T_i e_i, e_i = b_i + sum_j [A^lat_ij + W^refl_ij] f_j, with b the
 background (incident + stack-reflected) field's regular coefficients at particle i,
@@ -29,10 +30,9 @@ import numpy as onp
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
-from chiropt.farfield import incident_flux, power_fractions
 from chiropt.multipole.latticesums import lattice_sums
 from chiropt.multipole.translation import translation_table
-from chiropt.multipole.vsw import (
+from chiropt.sphericalwaves import (
     channel_modes,
     dipole_fields,
     dipole_moments,
@@ -84,7 +84,7 @@ def _reflected_orders_radius(st: Structure, lmax: int) -> float:
 
     An evanescent order q reflected between particles at heights h_i, h_j above the
     stack carries exp(-q (h_i + h_j)) times the angular factors (q/k)^(l + l') of the
-    emission and re-expansion (``vsw``): keep q with
+    emission and re-expansion (``chiropt.sphericalwaves``): keep q with
     2 q h_min - c ln(q/k) <= ln(1/tol) + 3 (fixed-point iteration), c = _margin_power(lmax).
 
     The margin power is set from measured truncation errors against references at
@@ -149,7 +149,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     structure : Structure — SI description (chiropt.structure.build_structure); its
         dipole polarizabilities are not used
     tmatrices : array (W, N, 2K, 2K) — T-matrices of the N particles of the cell in the
-        basis of ``chiropt.multipole.vsw`` [-]
+        basis of ``chiropt.sphericalwaves`` [-]
     lmax : int — multipole degree of the basis, 1 <= lmax <= 8
     warn : bool — emit :class:`chiropt.solve.RayleighAnomalyWarning` near a grazing order
     g_max : float, optional — keep at least the orders with |G| <= g_max [1/m]
@@ -157,7 +157,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     Returns
     -------
     MultipoleSolution — order amplitudes on (s, p) referenced at z_top, as in
-    chiropt.solve.
+    chiropt.solve, and ``absorbed_particles`` (:func:`absorbed_power`).
 
     References
     ----------
@@ -229,7 +229,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
 
     # -- outgoing orders, components on (s, p) --------------------------------------------
     # amplitude of channel c in direction d: sum_(c', k) P[c', k] F[c', k, d, c] with
-    # F from f and the emission identities of vsw.channel_modes (no 2K-mode vectors)
+    # F from f and the emission identities of sphericalwaves.channel_modes (no 2K-mode vectors)
     f4 = np.reshape(f, (W, 2, N, K2))
     e_l = _i_power_k(lmax)                                              # (-i)^l, (K,)
     fN, fM = f4[..., 0::2] * e_l, f4[..., 1::2] * e_l                  # (W, 2, N, K)
@@ -254,15 +254,17 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
                              down_sp=down_c, exit_sp=exit_c, incident_sp=D0,
                              local_E=local[..., :3], local_H=local[..., 3:],
                              rayleigh=rayleigh, eps_exit=eps_exit, n_far=n_far,
+                             absorbed_particles=absorbed_power(st, f4, e4),
                              coefficients=f4, exciting=e4, tmatrices=tmatrices, lmax=lmax)
 
 
-def multipole_power_fractions(sol: MultipoleSolution) -> dict:
-    """R, T, A = 1 - R - T and the particles' absorbed fraction, each (W, 2) [+1, -1].
+def absorbed_power(structure: Structure, f, e):
+    """Power the particles of one cell absorb, per helicity, (W, 2) in units of 1/(2 Z0) [V^2].
 
-    R and T come from the order amplitudes (chiropt.farfield); ``A_particles`` is
-    the power the particles absorb, sum_i (n_h/k^2) [-Re(e_i^H f_i) - |f_i|^2] per cell,
-    divided by the incident flux (an independent absorptance).
+    sum_i (n_h/k^2) [-Re(e_i^H f_i) - |f_i|^2] over the particles i of the cell (extinction
+    minus scattering), from the outgoing coefficients f and exciting coefficients e
+    (W, 2, N, 2K) [V/m]; chiropt.farfield divides it by the cell area and the incident flux
+    (an absorptance independent of R and T).
 
     References
     ----------
@@ -270,13 +272,7 @@ def multipole_power_fractions(sol: MultipoleSolution) -> dict:
     coefficients); normalization fixed by the sphere's sigma_ext = (2 pi/k^2)
     sum (2l+1) Re(a_l + b_l) (Bohren & Huffman eq. 4.62), checked by a test.
     """
-    frac = power_fractions(sol)
-    frac.pop("A_dipoles", None)
-    st = sol.structure
-    f, e = sol.coefficients, sol.exciting
+    st = structure
     ext = -np.real(np.sum(np.conj(e) * f, axis=(-1, -2)))
     sca = np.sum(np.abs(f) ** 2, axis=(-1, -2))
-    inc = incident_flux(sol)[:, None]
-    frac["A_particles"] = ((st.n_host / st.k ** 2)[:, None] * (ext - sca)
-                           / (st.lattice.area * inc))
-    return frac
+    return (st.n_host / st.k ** 2)[:, None] * (ext - sca)

@@ -1,4 +1,4 @@
-"""T-matrices of particles in the VSWF basis of ``chiropt.multipole.vsw``.
+"""T-matrices of particles in the VSWF basis of ``chiropt.sphericalwaves``.
 
 Owns: the T-matrix interface (anything with ``tmatrix(k_host, lmax)`` returning
 (W, 2K, 2K)), sphere and core-shell T-matrices from the Mie coefficients
@@ -7,7 +7,7 @@ the Mie coefficients (``auto``).
 Must not import: solve, fields, metrics, search, store, report, cli.
 
 Conventions: f = T e (outgoing from exciting coefficients), modes ordered as in
-``chiropt.multipole.vsw`` (l, m, then N/electric before M/magnetic). A sphere has
+``chiropt.sphericalwaves`` (l, m, then N/electric before M/magnetic). A sphere has
 T = diag(-a_l) on N modes and diag(-b_l) on M modes (Bohren & Huffman 1983 coefficients;
 docs/theory.md §4: "a sphere gives T = diag(-b_n, -a_n)").
 """
@@ -22,7 +22,7 @@ import numpy as onp
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
-from chiropt.multipole.vsw import mode_table
+from chiropt.sphericalwaves import mode_table
 from chiropt.particles.mie import coreshell_mie_coefficients, mie_coefficients
 
 NM = 1e-9

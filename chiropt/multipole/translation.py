@@ -6,7 +6,7 @@ combination of the scalar waves h_p(kb) Y_pM(b_hat), p <= 2 lmax, so that one se
 (lattice-summed) scalar sums gives every vector coefficient.
 Must not import: solve, fields, metrics, search, store, report, cli.
 
-Conventions: those of ``chiropt.multipole.vsw``. With b = r_i - r_j (from the source
+Conventions: those of ``chiropt.sphericalwaves``. With b = r_i - r_j (from the source
 centre j to the receiving centre i), for |r - r_i| < |b|:
 
     Psi_u(r - r_j) = sum_u' A_u'u(b) Rg Psi_u'(r - r_i),
@@ -50,7 +50,7 @@ from functools import cache
 import numpy as onp
 import scipy.special as sps
 
-from chiropt.multipole.vsw import lm_index, mode_table, spherical_harmonics
+from chiropt.sphericalwaves import lm_index, mode_table, spherical_harmonics
 
 
 @cache

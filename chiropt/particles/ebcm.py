@@ -4,15 +4,16 @@ differentiable by autograd.
 Owns: the extended boundary condition (null-field) method for homogeneous particles
 with rotational symmetry about z — surface shapes r(theta) of spheroids and finite
 circular cylinders (nanodisks, pillars), the Q and RgQ matrices in the VSWF basis of
-:mod:`chiropt.multipole.vsw`, the choice of the internal order and quadrature, and
+:mod:`chiropt.sphericalwaves`, the choice of the internal order and quadrature, and
 the ``Spheroid`` and ``Cylinder`` T-matrix sources (protocol
 ``chiropt.multipole.tmatrix.TMatrixSource``).
-Must not import: solve, fields, metrics, search, store, report, cli, and not
-chiropt.multipole.tmatrix (that module may import this one).
+Must not import: solve, fields, metrics, search, store, report, cli, and nothing of
+chiropt.multipole (chiropt.multipole.tmatrix imports this module; the VSWF kernel both
+share is chiropt.sphericalwaves).
 
 Conventions
 -----------
-- Basis, mode order and normalization of :mod:`chiropt.multipole.vsw`: X_lm = L Y_lm /
+- Basis, mode order and normalization of :mod:`chiropt.sphericalwaves`: X_lm = L Y_lm /
   sqrt(l(l+1)) (Condon-Shortley), M = z_l X, N = curl(M)/k; modes l ascending,
   m = -l..l, N (electric) before M (magnetic); f = T e. A sphere gives T = diag(-a_l)
   on N and diag(-b_l) on M (Bohren & Huffman coefficients).
@@ -49,8 +50,9 @@ and RgQ~ the same with regular waves; curl M = k N, curl N = k M at each wavenum
 For axisymmetric surfaces Q~ is block-diagonal in m, the phi integral gives 2 pi and
 n dS = r^2 sin(theta) [r_hat - (r_theta/r) theta_hat] dtheta dphi (docs/theory.md §4).
 The integrand is evaluated from the Cartesian components of the VSWFs at phi = 0
-(``vsw.vector_harmonics``, ``vsw.spherical_harmonics``), so the convention of the
-result is that of ``vsw`` by construction; the triple products are taken numerically.
+(``sphericalwaves.vector_harmonics``, ``sphericalwaves.spherical_harmonics``), so the
+convention of the result is that of ``sphericalwaves`` by construction; the triple products
+are taken numerically.
 
 Numerics: Gauss-Legendre in theta (the cylinder split at the edge angles), each m-block
 solved with row/column equilibration and LU (numpy.linalg.solve), double precision.
@@ -83,7 +85,7 @@ import numpy as onp
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
-from chiropt.multipole.vsw import mode_table, spherical_harmonics, vector_harmonics
+from chiropt.sphericalwaves import mode_table, spherical_harmonics, vector_harmonics
 from chiropt.particles._spherical_bessel import spherical_bessel
 
 __all__ = [
@@ -414,7 +416,7 @@ def axisymmetric_tmatrix(k_host, m_rel, surface, lmax: int, nmax: int, *, mirror
 
     Returns
     -------
-    complex array (W, 2K, 2K) in the mode order of :mod:`chiropt.multipole.vsw`,
+    complex array (W, 2K, 2K) in the mode order of :mod:`chiropt.sphericalwaves`,
     differentiable by autograd in k_host, m_rel and the surface arrays. Entries between
     different m are exact zeros.
 
@@ -464,7 +466,7 @@ def spheroid_tmatrix(k_host, m_rel, a, c, lmax: int, *, nmax=None, n_quad=None):
 
     Returns
     -------
-    complex array (W, 2K, 2K), K = lmax (lmax + 2), basis of ``chiropt.multipole.vsw``.
+    complex array (W, 2K, 2K), K = lmax (lmax + 2), basis of ``chiropt.sphericalwaves``.
 
     Notes
     -----
@@ -501,7 +503,7 @@ def cylinder_tmatrix(k_host, m_rel, radius, height, lmax: int, *, nmax=None, n_q
 
     Returns
     -------
-    complex array (W, 2K, 2K), K = lmax (lmax + 2), basis of ``chiropt.multipole.vsw``.
+    complex array (W, 2K, 2K), K = lmax (lmax + 2), basis of ``chiropt.sphericalwaves``.
 
     Notes
     -----

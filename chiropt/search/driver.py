@@ -32,7 +32,8 @@ import numpy as np
 
 from chiropt.errors import ComputationError, InputError
 from chiropt.search.algorithms import AlgorithmInfo, get_algorithm
-from chiropt.search.problem import Evaluation, Problem, check_bounds
+from chiropt.problem import Evaluation, Problem
+from chiropt.search.problem import check_bounds
 
 __all__ = ["SearchResult", "Trial", "minimize"]
 

@@ -50,7 +50,8 @@ from chiropt.errors import InputError
 from chiropt.search.driver import SearchResult, minimize
 from chiropt.search.executor import Executor, SerialExecutor
 from chiropt.search.pareto import non_dominated
-from chiropt.search.problem import Evaluation, Problem, VectorProblem, check_bounds
+from chiropt.problem import Evaluation, Problem, VectorProblem
+from chiropt.search.problem import check_bounds
 
 __all__ = ["FrontPoint", "FrontResult", "Scalarized", "epsilon_constraint", "weighted_sum"]
 

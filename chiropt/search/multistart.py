@@ -26,7 +26,8 @@ from scipy.stats import qmc
 from chiropt.errors import InputError
 from chiropt.search.driver import SearchResult, minimize
 from chiropt.search.executor import Executor, SerialExecutor
-from chiropt.search.problem import Problem, check_bounds
+from chiropt.problem import Problem
+from chiropt.search.problem import check_bounds
 
 __all__ = ["MultistartResult", "multistart", "pick_best", "sobol_starts", "start_seed"]
 

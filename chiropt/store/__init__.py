@@ -2,7 +2,7 @@
 
 Owns: ``evaluations`` (schema, reads, writes, ``CachedProblem``, ``CachingWrap``).
 
-Must not import: physics modules, report, cli.
+Must not import: physics modules, search, report, cli.
 """
 
 from chiropt.store.evaluations import (

@@ -4,8 +4,8 @@ Owns: the database schema (evaluations and run metadata), writing and reading ev
 listing them as arrays, and ``CachedProblem``, the wrapper that answers from the store when
 it can and records every new evaluation.
 
-Must not import: physics modules, report, cli. (It imports the ``Evaluation`` record and the
-``Problem`` interface from ``chiropt.search.problem``.)
+Must not import: physics modules, search, report, cli. (It imports the ``Evaluation`` record
+and the ``Problem`` interface from the neutral ``chiropt.problem``.)
 
 Conventions
 -----------
@@ -42,7 +42,7 @@ from typing import Any
 import numpy as np
 
 from chiropt.errors import ComputationError, InputError
-from chiropt.search.problem import Evaluation, Problem
+from chiropt.problem import Evaluation, Problem
 
 __all__ = [
     "CachedProblem",

@@ -5,10 +5,13 @@ spherical harmonics evaluated at complex unit vectors (so that evanescent plane 
 are handled by analytic continuation), the regular-wave expansion of a plane wave,
 the plane-wave (diffraction-order) expansion of a 2D lattice of outgoing VSWFs, the
 map between l = 1 coefficients and the dipole moments of chiropt.solve, and plain
-(non-traced) point evaluation of the waves for tests and field maps.
-Must not import: solve, fields, metrics, search, store, report, cli.
+(non-traced) point evaluation of the waves for tests and field maps. A kernel shared by
+the particle T-matrices (chiropt.particles.ebcm) and the multipole lattice model
+(chiropt.multipole); it belongs to neither.
+Must not import: any other chiropt module (particles, multipole, solve, fields, metrics,
+search, store, report, cli).
 
-Conventions (stated once; locked in by tests/test_multipole_vsw.py)
+Conventions (stated once; locked in by tests/test_multipole_basis.py)
 -------------------------------------------------------------------
 - Time factor exp(-i omega t); SI; host wavenumber k (real).
 - Scalar spherical harmonics Y_lm with the Condon-Shortley phase, orthonormal on the
