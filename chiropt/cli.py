@@ -149,8 +149,8 @@ def _print_table(response) -> None:
 def _print_validity(check: dict) -> None:
     from chiropt.response import VALIDITY_TOLERANCE
 
-    print(f"validity: change of each quantity from lmax = {check['lmax']} to "
-          f"lmax = {check['lmax_check']} (largest over wavelengths)")
+    print(f"validity: change of each quantity from {check['label']} to "
+          f"{check['label_check']} (largest over wavelengths)")
     for name, change in sorted(check["change"].items(), key=lambda kv: -kv[1]):
         flag = "  above the tolerance" if change > VALIDITY_TOLERANCE else ""
         print(f"  {name:16s} {change:10.3g}{flag}")

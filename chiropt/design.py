@@ -110,6 +110,11 @@ class Design:
     lmax: int | str = 1
     lmax_tolerance: float = 1e-6
     tolerance: float = 1e-8
+    solver: str = "multipole"
+    harmonics: int | str = "auto"
+    harmonics_tolerance: float = 1e-3
+    factorization: str = "normal"
+    slices: int = 24
     name: str = ""
     base_dir: str = "."
     raw: dict = field(default_factory=dict, compare=False, repr=False)
@@ -163,6 +168,16 @@ class Design:
         wl = tuple(float(w) for w in onp.atleast_1d(wavelength_nm))
         return replace(self, illumination=replace(self.illumination, wavelength_nm=wl))
 
+    def model_dict(self) -> dict:
+        """The ``model:`` section that :func:`design_from_dict` reads back."""
+        if self.solver == "fourier":
+            return {"solver": "fourier", "harmonics": self.harmonics,
+                    "harmonics_tolerance": self.harmonics_tolerance,
+                    "factorization": self.factorization, "slices": self.slices,
+                    "tolerance": self.tolerance}
+        return {"lmax": self.lmax, "tolerance": self.tolerance,
+                "lmax_tolerance": self.lmax_tolerance}
+
     def to_dict(self) -> dict:
         """Plain data that :func:`design_from_dict` turns back into an equal Design."""
         lat = self.lattice
@@ -192,8 +207,7 @@ class Design:
                              "polar_deg": self.illumination.polar_deg,
                              "azimuth_deg": self.illumination.azimuth_deg,
                              "side": self.illumination.side},
-            "model": {"lmax": self.lmax, "tolerance": self.tolerance,
-                      "lmax_tolerance": self.lmax_tolerance},
+            "model": self.model_dict(),
         }
         if self.name:
             out["name"] = self.name
@@ -355,29 +369,66 @@ def _design_from_dict(data: dict, *, base_dir, prefix: str) -> Design:
                             low=-360.0, high=360.0, unit="deg"),
         side=side)
     region = _region(data["region"], P + "region") if data.get("region") is not None else None
+    model = _model(data.get("model"), P, particles)
+    design = Design(lattice=lattice, particles=particles, illumination=illum,
+                    host_index=host_index, substrate=substrate, layers=layers, gap_nm=gap,
+                    region=region, **model,
+                    name=str(data.get("name", "")), base_dir=str(base_dir), raw=dict(data))
+    check_geometry(design, prefix=P)
+    return design
+
+
+SOLVERS = ("multipole", "fourier")
+
+
+def _model(raw: Any, P: str, particles) -> dict:
+    """The ``model:`` section: solver and its truncation settings, as Design fields."""
+    raw = {} if raw is None else raw
+    solver = raw.get("solver", "multipole") if isinstance(raw, dict) else "multipole"
+    if solver not in SOLVERS:
+        raise InputError(P + "model.solver", f"got {solver!r}, allowed: {', '.join(SOLVERS)} "
+                                             "(multipole: dipoles at lmax 1 and the multipole "
+                                             "lattice model; fourier: the Fourier modal method)")
+    tol = 1e-8
+    if solver == "fourier":
+        check_keys(raw, {"solver", "harmonics", "harmonics_tolerance", "factorization",
+                         "slices", "tolerance"}, P + "model")
+        harmonics = raw.get("harmonics", "auto")
+        if harmonics != "auto" and (isinstance(harmonics, bool) or not isinstance(harmonics, int)
+                                    or not 1 <= harmonics <= 2000):
+            raise InputError(P + "model.harmonics", f"got {harmonics!r}, allowed an integer "
+                                                    "in [1, 2000] or 'auto'")
+        factorization = raw.get("factorization", "normal")
+        if factorization not in ("normal", "laurent"):
+            raise InputError(P + "model.factorization", f"got {factorization!r}, allowed: "
+                                                        "normal, laurent")
+        slices = raw.get("slices", 24)
+        if isinstance(slices, bool) or not isinstance(slices, int) or not 1 <= slices <= 400:
+            raise InputError(P + "model.slices", f"got {slices!r}, allowed an integer in "
+                                                 "[1, 400]")
+        htol = _number(raw.get("harmonics_tolerance", 1e-3), P + "model.harmonics_tolerance",
+                       low=1e-8, high=0.5)
+        tol = _number(raw.get("tolerance", 1e-8), P + "model.tolerance", low=1e-14, high=1e-2)
+        return {"solver": "fourier", "harmonics": harmonics, "harmonics_tolerance": htol,
+                "factorization": factorization, "slices": slices, "tolerance": tol,
+                "lmax": "auto"}
     # Non-spherical particles couple every multipole order to the next: a truncated
     # T-matrix loses energy (a lossless Si-like disk at lmax 2: |R + T - 1| ~ 4e-4), so
     # their default order is chosen by convergence ('auto'), spheres keep the dipoles.
     default_lmax: int | str = 1 if all(p.shape == "sphere" for p in particles) else "auto"
     lmax: int | str = default_lmax
-    lmax_tol, tol = 1e-6, 1e-8
-    if data.get("model") is not None:
-        model = data["model"]
-        check_keys(model, {"lmax", "tolerance", "lmax_tolerance"}, P + "model")
-        lmax = model.get("lmax", default_lmax)
+    lmax_tol = 1e-6
+    if raw:
+        check_keys(raw, {"solver", "lmax", "tolerance", "lmax_tolerance"}, P + "model")
+        lmax = raw.get("lmax", default_lmax)
         if lmax != "auto" and (isinstance(lmax, bool) or not isinstance(lmax, int)
                                or not 1 <= lmax <= 8):
             raise InputError(P + "model.lmax", f"got {lmax!r}, allowed an integer in [1, 8] "
                                                "(1: electric+magnetic dipoles) or 'auto'")
-        tol = _number(model.get("tolerance", 1e-8), P + "model.tolerance", low=1e-14, high=1e-2)
-        lmax_tol = _number(model.get("lmax_tolerance", 1e-6), P + "model.lmax_tolerance",
+        tol = _number(raw.get("tolerance", 1e-8), P + "model.tolerance", low=1e-14, high=1e-2)
+        lmax_tol = _number(raw.get("lmax_tolerance", 1e-6), P + "model.lmax_tolerance",
                            low=1e-12, high=1e-1)
-    design = Design(lattice=lattice, particles=particles, illumination=illum,
-                    host_index=host_index, substrate=substrate, layers=layers, gap_nm=gap,
-                    region=region, lmax=lmax, lmax_tolerance=lmax_tol, tolerance=tol,
-                    name=str(data.get("name", "")), base_dir=str(base_dir), raw=dict(data))
-    check_geometry(design, prefix=P)
-    return design
+    return {"solver": "multipole", "lmax": lmax, "lmax_tolerance": lmax_tol, "tolerance": tol}
 
 
 def _lattice(raw: Any, key: str) -> LatticeSpec:
@@ -428,11 +479,6 @@ def _particle(raw: Any, key: str) -> ParticleSpec:
             raise InputError(f"{key}.height_nm", f"missing; a {shape} needs its height")
         height = _number(raw["height_nm"], f"{key}.height_nm", low=0.0, high=1e4,
                          low_open=True, unit="nm")
-        aspect = height / (2 * radius)
-        if not 0.25 <= aspect <= 4.0:
-            raise InputError(f"{key}.height_nm", f"height/diameter = {aspect:.3g}; allowed "
-                                                 "[0.25, 4] (the T-matrix method is "
-                                                 "ill-conditioned for flatter or longer shapes)")
         if "core_radius_nm" in raw or "core_material" in raw:
             raise InputError(f"{key}.core_radius_nm", "cores are supported for spheres only")
     if "material" not in raw:
@@ -506,21 +552,34 @@ def check_geometry(design: Design, prefix: str = "") -> None:
                              f"period {shortest:g} nm (spheres would overlap their neighbours); "
                              f"allowed radius <= {shortest / 2:g} nm, or {prefix}lattice.period_nm "
                              f"of at least {2 * p.radius_nm:g} nm")
+        if design.solver == "fourier":
+            continue
+        aspect = 2.0 * p.half_height_nm / (2 * p.radius_nm)
+        if p.shape != "sphere" and not 0.25 <= aspect <= 4.0:
+            raise InputError(f"{prefix}particles[{i}].height_nm",
+                             f"height/diameter = {aspect:.3g}; allowed [0.25, 4] (the T-matrix "
+                             "method is ill-conditioned for flatter or longer shapes; "
+                             "model.solver fourier has no such limit)")
         if 2 * _circumradius(p) > shortest:
             raise InputError(f"{prefix}particles[{i}].height_nm",
                              f"the circumscribing sphere of this {p.shape} (diameter "
                              f"{2 * _circumradius(p):.4g} nm) exceeds the shortest lattice period "
                              f"{shortest:g} nm: its T-matrix expansion would not converge "
                              "between neighbours")
-    _check_expansion_limits(design, prefix)
+    if design.solver != "fourier":
+        _check_expansion_limits(design, prefix)
     for i in range(len(parts)):
         for j in range(i + 1, len(parts)):
             d0 = onp.subtract(parts[i].position_nm, parts[j].position_nm)
             # bottoms aligned: centres differ in height by the half-height difference;
             # non-spheres are checked by their circumscribing spheres (conservative)
             dz = parts[i].half_height_nm - parts[j].half_height_nm
+            if design.solver == "fourier":  # columns standing side by side: in-plane discs
+                dz = 0.0
+                reach = parts[i].radius_nm + parts[j].radius_nm
+            else:
+                reach = _circumradius(parts[i]) + _circumradius(parts[j])
             dist = min(math.sqrt(float(onp.sum((d0 + v) ** 2)) + dz ** 2) for v in images)
-            reach = _circumradius(parts[i]) + _circumradius(parts[j])
             if dist < reach:
                 raise InputError(f"{prefix}particles[{j}].position_nm",
                                  f"particle {j} overlaps particle {i} (centre distance "

@@ -259,6 +259,8 @@ def order_content(solution: Solution, z, *, g_max: float | None = None,
     if zv < top - 1e-15:
         raise InputError("region", f"height {zv / NM:.6g} nm is below the particle tops "
                                    f"({top / NM:.6g} nm): the order expansion holds only above")
+    if getattr(solution, "complete_orders", False):
+        return _complete_content(solution, z)
     plain = st.lattice.plain()
     b1, b2 = plain.reciprocal()
     gv = mn[:, 0:1] * b1[None, :] + mn[:, 1:2] * b2[None, :]
@@ -319,6 +321,21 @@ def order_content(solution: Solution, z, *, g_max: float | None = None,
                                            - uy * Mx)
     up = np.concatenate([up0[..., None], np.stack([up_s, up_p], axis=2)], axis=3)
     return OrderContent(mn, g_norm, q_all, kz_all, k, up, down0, z, st.azimuth, st.n_host)
+
+
+def _complete_content(solution: Solution, z) -> OrderContent:
+    """Content at height ``z`` of a solution that computed every order it holds (the
+    Fourier solver: its harmonics are the orders): the upward waves of all of them,
+    carried from ``z_top`` to ``z``, plus the incident wave. The truncation is the
+    solver's own (its harmonic count), not a choice of this module."""
+    st, o = solution.structure, solution.orders
+    dz = z - st.z_top
+    up = np.transpose(solution.up_sp, (0, 1, 3, 2)) * np.exp(1j * o.kz * dz)[:, None, None, :]
+    down0 = solution.incident_sp * np.exp(-1j * o.kz[:, 0] * dz)[:, None, None]
+    b1, b2 = st.lattice.plain().reciprocal()
+    gv = o.mn[:, 0:1] * b1[None, :] + o.mn[:, 1:2] * b2[None, :]
+    g_norm = onp.sqrt(onp.sum(gv ** 2, axis=1))
+    return OrderContent(o.mn, g_norm, o.q, o.kz, st.k, up, down0, z, st.azimuth, st.n_host)
 
 
 def order_fields(content: OrderContent):

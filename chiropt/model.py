@@ -32,14 +32,19 @@ class ModelOutput:
 
     structure, solution; fractions: R, T, A, A_dipoles (W, 2) and, from the multipole
     model, A_particles (chiropt.farfield.power_fractions); metrics: region metrics
-    (or None); lmax: the multipole degree used.
+    (or None); lmax: the multipole degree used (None for the Fourier solver);
+    harmonics: the Fourier solver's harmonic count (None for the others);
+    harmonics_change: with ``harmonics: auto``, the largest change of R, T and the region
+    metrics at the last step of the count (None otherwise).
     """
 
     structure: Structure
     solution: Solution
     fractions: dict
     metrics: dict | None
-    lmax: int
+    lmax: int | None
+    harmonics: int | None = None
+    harmonics_change: float | None = None
 
 
 def metrics_tolerance(design: Design) -> float:
@@ -87,7 +92,8 @@ def resolve_lmax(design: Design, structure: Structure, values=None) -> int:
 
 
 def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int | None = None,
-              area_grid: int = 0, warn: bool = False, maps: bool = False) -> ModelOutput:
+              harmonics: int | None = None, area_grid: int = 0, warn: bool = False,
+              maps: bool = False) -> ModelOutput:
     """Solve ``design`` (with optional traced replacements ``values``).
 
     Parameters
@@ -95,6 +101,7 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
     design : Design
     values : dict, optional — replacements for named design quantities (may be traced)
     lmax : int, optional — force the multipole degree (validity checks)
+    harmonics : int, optional — force the Fourier solver's harmonic count (validity checks)
     area_grid : int — grid for the handedness area fraction (0 skips it; not differentiable)
     warn : bool — let solver warnings (Rayleigh anomaly) through
     maps : bool — keep the orders that point values of the fields need
@@ -104,6 +111,9 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
     -------
     ModelOutput
     """
+    if design.solver == "fourier":
+        return _run_fourier(design, values, harmonics=harmonics, area_grid=area_grid,
+                            warn=warn)
     with warnings.catch_warnings():
         if not warn:
             warnings.simplefilter("ignore")
@@ -126,12 +136,63 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
             T = stack_tmatrices(design_particles(design, values), st.k, degree)
             sol = solve_multipole(st, T, degree, warn=warn, g_max=g_max)
         frac = power_fractions(sol)
-        metrics = None
-        if region is not None:
-            from chiropt.metrics import region_metrics
-
-            metrics = region_metrics(sol, region, tol=tol, area_grid=area_grid)
+        metrics = _region_metrics(sol, region, tol, area_grid)
     return ModelOutput(structure=st, solution=sol, fractions=frac, metrics=metrics, lmax=degree)
+
+
+def _region_metrics(sol, region, tol, area_grid):
+    if region is None:
+        return None
+    from chiropt.metrics import region_metrics
+
+    return region_metrics(sol, region, tol=tol, area_grid=area_grid)
+
+
+#: Harmonic counts tried by ``harmonics: auto`` (whole shells are kept, so the counts
+#: actually used differ a little by lattice).
+HARMONIC_STEPS = (25, 49, 97, 197, 301, 441, 625, 841, 1201, 1601, 2000)
+
+
+def _fourier_once(design, values, count, area_grid, warn):
+    from chiropt.fourier.solve import solve_fourier
+
+    st = build_structure(design, values)
+    sol = solve_fourier(design, st, values, harmonics=count, factorization=design.factorization,
+                        slices=design.slices, warn=warn)
+    region = traced_region(design, values)
+    frac = power_fractions(sol)
+    metrics = _region_metrics(sol, region, metrics_tolerance(design), area_grid)
+    return ModelOutput(structure=st, solution=sol, fractions=frac, metrics=metrics, lmax=None,
+                       harmonics=sol.harmonics)
+
+
+def _run_fourier(design, values, *, harmonics, area_grid, warn):
+    """The Fourier modal solver at a fixed count, or ``auto``: the count is raised along
+    :data:`HARMONIC_STEPS` (on plain values) until R, T and the region metrics change by
+    less than ``model.harmonics_tolerance`` from one step to the next; the final solve is
+    traced at the chosen count."""
+    with warnings.catch_warnings():
+        if not warn:
+            warnings.simplefilter("ignore")
+        count = harmonics if harmonics is not None else design.harmonics
+        if count != "auto":
+            return _fourier_once(design, values, int(count), area_grid, warn)
+        plain = None if values is None else {k: getval(v) for k, v in values.items()}
+        previous, change = None, None
+        for step in HARMONIC_STEPS:
+            out = _fourier_once(design, plain, step, 0, False)
+            here = {k: onp.asarray(getval(v)) for k, v in quantities_of(out).items()}
+            if previous is not None:
+                change = max(float(onp.max(onp.abs(here[k] - previous[k]))) for k in here)
+                if change < design.harmonics_tolerance:
+                    break
+            previous = here
+        chosen = out.harmonics
+        traced = any(v is not getval(v) for v in (values or {}).values())
+        if traced or area_grid or warn:
+            out = _fourier_once(design, values, chosen, area_grid, warn)
+        out.harmonics_change = change
+        return out
 
 
 def quantities_of(output: ModelOutput) -> dict[str, Any]:
@@ -152,18 +213,33 @@ def quantities_of(output: ModelOutput) -> dict[str, Any]:
 
 
 def validity(design: Design, output: ModelOutput | None = None) -> dict[str, Any]:
-    """Change of every reported quantity when one more multipole order is included.
+    """Change of every reported quantity with a finer model: one more multipole order, or
+    for the Fourier solver the next harmonic count of :data:`HARMONIC_STEPS`.
 
     Returns
     -------
-    dict: ``lmax`` (used), ``lmax_check`` (= lmax + 1), ``change`` {quantity: max over
-    wavelengths of |q(lmax+1) - q(lmax)|}, ``worst`` (largest change) [-].
+    dict: ``lmax`` (used; None for the Fourier solver), ``lmax_check`` (= lmax + 1),
+    ``harmonics`` / ``harmonics_check`` (Fourier solver), ``label`` / ``label_check``
+    (e.g. "lmax = 2" / "lmax = 3"), ``change`` {quantity: max over wavelengths of
+    |q(finer) - q(used)|}, ``worst`` (largest change) [-].
     """
     if output is None:
         output = run_model(design)
     here = quantities_of(output)
-    upper = quantities_of(run_model(design, lmax=min(output.lmax + 1, LMAX_CAP)))
+    if design.solver == "fourier":
+        finer = next((s for s in HARMONIC_STEPS if s > 1.3 * output.harmonics),
+                     HARMONIC_STEPS[-1])
+        upper_out = run_model(design, harmonics=finer)
+        info = {"lmax": None, "lmax_check": None, "harmonics": output.harmonics,
+                "harmonics_check": upper_out.harmonics,
+                "label": f"{output.harmonics} harmonics",
+                "label_check": f"{upper_out.harmonics} harmonics"}
+    else:
+        check = min(output.lmax + 1, LMAX_CAP)
+        upper_out = run_model(design, lmax=check)
+        info = {"lmax": output.lmax, "lmax_check": check, "label": f"lmax = {output.lmax}",
+                "label_check": f"lmax = {check}"}
+    upper = quantities_of(upper_out)
     change = {k: float(onp.max(onp.abs(onp.asarray(getval(upper[k]))
                                        - onp.asarray(getval(here[k]))))) for k in here}
-    return {"lmax": output.lmax, "lmax_check": min(output.lmax + 1, LMAX_CAP),
-            "change": change, "worst": max(change.values())}
+    return dict(info, change=change, worst=max(change.values()))

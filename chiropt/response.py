@@ -48,7 +48,9 @@ class Response:
     rayleigh: onp.ndarray
     warnings: list[str] = field(default_factory=list)
     metrics: dict | None = None
-    lmax: int = 1
+    lmax: int | None = 1
+    harmonics: int | None = None
+    harmonics_change: float | None = None
     validity: dict | None = None
     solution: Solution | None = field(default=None, repr=False)
 
@@ -73,6 +75,10 @@ class Response:
         out["A_particles"] = {h: [v if onp.isfinite(v) else None for v in a_p[:, j].tolist()]
                               for j, h in enumerate(("+1", "-1"))}
         out["lmax"] = self.lmax
+        if self.harmonics is not None:
+            out["harmonics"] = self.harmonics
+            if self.harmonics_change is not None:
+                out["harmonics_change"] = self.harmonics_change
         if self.validity is not None:
             out["validity"] = self.validity
         return out
@@ -100,8 +106,8 @@ def evaluate(design: Design, *, keep_solution: bool = False,
         check = validity(design, out) if with_validity else None
     st, sol, frac, metrics = out.structure, out.solution, out.fractions, out.metrics
     if check is not None and check["worst"] > VALIDITY_TOLERANCE:
-        notes.append(f"lmax = {check['lmax']} may be too low: including lmax = "
-                     f"{check['lmax_check']} changes a reported quantity by "
+        notes.append(f"{check['label']} may be too few: the finer model "
+                     f"({check['label_check']}) changes a reported quantity by "
                      f"{check['worst']:.2g} (> {VALIDITY_TOLERANCE:g})")
     for w in caught:
         notes.append(str(w.message))
@@ -109,4 +115,5 @@ def evaluate(design: Design, *, keep_solution: bool = False,
                     R=onp.asarray(frac["R"]), T=onp.asarray(frac["T"]),
                     A=onp.asarray(frac["A"]), A_dipoles=onp.asarray(frac["A_dipoles"]),
                     rayleigh=onp.asarray(sol.rayleigh), warnings=notes, metrics=metrics,
-                    lmax=out.lmax, validity=check, solution=sol if keep_solution else None)
+                    lmax=out.lmax, harmonics=out.harmonics,
+                    harmonics_change=out.harmonics_change, validity=check, solution=sol if keep_solution else None)

@@ -71,6 +71,13 @@ RULES = [
     ("chiropt.multipole", ("chiropt.farfield", "chiropt.fields", "chiropt.metrics"), ()),
     ("chiropt.store", ("chiropt.search",), ()),
     ("chiropt", ("chiropt.report",), ("chiropt.cli", "chiropt.run", "chiropt.report")),
+    # no solver imports another; solvers compute no far- or near-field quantities
+    ("chiropt.solve", ("chiropt.multipole", "chiropt.fourier"), ()),
+    ("chiropt.multipole", ("chiropt.solve", "chiropt.fourier"), ()),
+    ("chiropt.fourier", ("chiropt.solve", "chiropt.multipole", "chiropt.farfield",
+                         "chiropt.fields", "chiropt.metrics"), ()),
+    ("chiropt.solution", ("chiropt.solve", "chiropt.multipole", "chiropt.fourier",
+                          "chiropt.farfield", "chiropt.fields", "chiropt.metrics"), ()),
 ]
 
 

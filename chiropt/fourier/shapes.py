@@ -74,8 +74,11 @@ class Circle:
     def level(self, x, y):
         """Level function (1 on the boundary, < 1 inside) and its gradient direction."""
         dx, dy = x - getval(self.centre[0]), y - getval(self.centre[1])
-        r = onp.hypot(dx, dy) + 1e-300
-        return r / getval(self.radius), (dx / r, dy / r)
+        r = onp.hypot(dx, dy)
+        centre = r == 0   # the centre itself: any unit vector (x chosen)
+        r = onp.where(centre, 1.0, r)
+        return onp.where(centre, 0.0, r) / getval(self.radius), (
+            onp.where(centre, 1.0, dx / r), dy / r)
 
     def contains(self, x, y):
         return self.level(x, y)[0] < 1.0
@@ -203,10 +206,12 @@ class Ring:
         the hole)."""
         ro, ri = getval(self.outer), getval(self.inner)
         dx, dy = x - getval(self.centre[0]), y - getval(self.centre[1])
-        r = onp.hypot(dx, dy) + 1e-300
+        r0 = onp.hypot(dx, dy)
+        centre = r0 == 0
+        r = onp.where(centre, 1.0, r0)
         mid, half = 0.5 * (ro + ri), 0.5 * (ro - ri)
-        sign = onp.where(r >= mid, 1.0, -1.0)
-        return onp.abs(r - mid) / half, (sign * dx / r, sign * dy / r)
+        sign = onp.where(r0 >= mid, 1.0, -1.0)
+        return onp.abs(r0 - mid) / half, (sign * onp.where(centre, 1.0, dx / r), sign * dy / r)
 
     def contains(self, x, y):
         return self.level(x, y)[0] < 1.0
