@@ -24,7 +24,7 @@ from chiropt.yamlio import Located, check_keys, load_yaml
 
 LATTICE_KINDS = ("square", "rectangular", "hexagonal", "oblique")
 ILLUMINATION_SIDES = ("host", "substrate")
-REGION_KINDS = ("plane", "slab")
+REGION_KINDS = ("plane", "slab", "surface")
 MAX_WAVELENGTH_POINTS = 100_000
 
 
@@ -42,7 +42,10 @@ class ParticleSpec:
     """A particle in the unit cell, its symmetry axis along z.
 
     ``shape``: ``sphere`` (optionally with a core), ``cylinder`` (a disk or pillar) or
-    ``spheroid``. ``radius_nm`` is the outer (sphere, cylinder) or equatorial (spheroid)
+    ``spheroid``; with the Fourier solver also ``elliptic_cylinder`` (semi-axes
+    ``radius_nm`` and ``radius_b_nm``, rotated by ``angle_deg``), ``box`` (``size_nm``
+    [width, depth], ``angle_deg``, optional ``corner_radius_nm``; ``radius_nm`` is then
+    its half diagonal) and ``ring`` (outer ``radius_nm``, hole ``inner_radius_nm``). ``radius_nm`` is the outer (sphere, cylinder) or equatorial (spheroid)
     radius [nm]; ``height_nm`` the full height of a cylinder or the polar diameter of a
     spheroid [nm]; ``material`` the outer material; ``core_radius_nm`` /
     ``core_material`` an optional core of a sphere; ``position_nm`` the in-plane centre
@@ -56,6 +59,18 @@ class ParticleSpec:
     core_radius_nm: float | None = None
     core_material: Any = None
     height_nm: float | None = None
+    radius_b_nm: float | None = None
+    angle_deg: float | None = None
+    size_nm: tuple[float, float] | None = None
+    corner_radius_nm: float | None = None
+    inner_radius_nm: float | None = None
+
+    @property
+    def reach_nm(self) -> float:
+        """In-plane radius [nm] of the smallest centred disc holding the cross-section."""
+        if self.shape == "elliptic_cylinder":
+            return max(self.radius_nm, self.radius_b_nm)
+        return self.radius_nm
 
     @property
     def half_height_nm(self) -> float:
@@ -86,13 +101,24 @@ class RegionSpec:
     """Where near-field metrics are averaged, above the particle tops.
 
     ``kind='plane'``: at ``height_nm`` above the highest particle top.
-    ``kind='slab'``: from ``from_nm`` above the tops, ``thickness_nm`` thick.
+    ``kind='slab'``: from ``from_nm`` above the tops, ``thickness_nm`` thick; with
+    ``origin='substrate'`` ``from_nm`` is measured from the substrate top instead, so the
+    slab may reach down between the particles (Fourier solver only; the average is then
+    taken over the part of the slab outside the particles).
+    ``kind='surface'``: the film of ``thickness_nm`` wrapping the particles' tops and side
+    walls, outside them (Fourier solver only).
     """
 
     kind: str
     height_nm: float = 0.0
     from_nm: float = 0.0
     thickness_nm: float = 0.0
+    origin: str = "tops"
+
+    @property
+    def inside_layer(self) -> bool:
+        """Whether the region may reach into the particles' layer (sampled fields)."""
+        return self.kind == "surface" or self.origin == "substrate"
 
 
 @dataclass(frozen=True)
@@ -113,6 +139,7 @@ class Design:
     solver: str = "multipole"
     harmonics: int | str = "auto"
     harmonics_tolerance: float = 1e-3
+    harmonics_max: int = 625
     factorization: str = "normal"
     slices: int = 24
     name: str = ""
@@ -136,7 +163,14 @@ class Design:
         if lat.kind == "oblique":
             p["lattice.angle_deg"] = lat.angle_deg
         for i, part in enumerate(self.particles):
-            p[f"particles[{i}].radius_nm"] = part.radius_nm
+            if part.shape == "box":
+                p[f"particles[{i}].size_nm[0]"] = part.size_nm[0]
+                p[f"particles[{i}].size_nm[1]"] = part.size_nm[1]
+            else:
+                p[f"particles[{i}].radius_nm"] = part.radius_nm
+            for extra in ("radius_b_nm", "angle_deg", "corner_radius_nm", "inner_radius_nm"):
+                if getattr(part, extra) is not None:
+                    p[f"particles[{i}].{extra}"] = getattr(part, extra)
             if part.height_nm is not None:
                 p[f"particles[{i}].height_nm"] = part.height_nm
             if part.core_radius_nm is not None:
@@ -158,6 +192,8 @@ class Design:
         if self.region is not None:
             if self.region.kind == "plane":
                 p["region.height_nm"] = self.region.height_nm
+            elif self.region.kind == "surface":
+                p["region.thickness_nm"] = self.region.thickness_nm
             else:
                 p["region.from_nm"] = self.region.from_nm
                 p["region.thickness_nm"] = self.region.thickness_nm
@@ -173,6 +209,7 @@ class Design:
         if self.solver == "fourier":
             return {"solver": "fourier", "harmonics": self.harmonics,
                     "harmonics_tolerance": self.harmonics_tolerance,
+                    "harmonics_max": self.harmonics_max,
                     "factorization": self.factorization, "slices": self.slices,
                     "tolerance": self.tolerance}
         return {"lmax": self.lmax, "tolerance": self.tolerance,
@@ -189,9 +226,15 @@ class Design:
             ld["angle_deg"] = lat.angle_deg
         parts = []
         for part in self.particles:
-            pd: dict[str, Any] = {"shape": part.shape, "radius_nm": part.radius_nm,
-                                  "material": part.material,
+            pd: dict[str, Any] = {"shape": part.shape, "material": part.material,
                                   "position_nm": list(part.position_nm)}
+            if part.shape == "box":
+                pd["size_nm"] = list(part.size_nm)
+            else:
+                pd["radius_nm"] = part.radius_nm
+            for extra in ("radius_b_nm", "angle_deg", "corner_radius_nm", "inner_radius_nm"):
+                if getattr(part, extra) is not None:
+                    pd[extra] = getattr(part, extra)
             if part.core_radius_nm is not None:
                 pd["core_radius_nm"] = part.core_radius_nm
                 pd["core_material"] = part.core_material
@@ -218,9 +261,15 @@ class Design:
             out["gap_nm"] = self.gap_nm
         if self.region is not None:
             r = self.region
-            out["region"] = ({"kind": "plane", "height_nm": r.height_nm} if r.kind == "plane"
-                             else {"kind": "slab", "from_nm": r.from_nm,
-                                   "thickness_nm": r.thickness_nm})
+            if r.kind == "plane":
+                out["region"] = {"kind": "plane", "height_nm": r.height_nm}
+            elif r.kind == "surface":
+                out["region"] = {"kind": "surface", "thickness_nm": r.thickness_nm}
+            else:
+                out["region"] = {"kind": "slab", "from_nm": r.from_nm,
+                                 "thickness_nm": r.thickness_nm}
+                if r.origin != "tops":
+                    out["region"]["origin"] = r.origin
         return out
 
 
@@ -391,8 +440,8 @@ def _model(raw: Any, P: str, particles) -> dict:
                                              "lattice model; fourier: the Fourier modal method)")
     tol = 1e-8
     if solver == "fourier":
-        check_keys(raw, {"solver", "harmonics", "harmonics_tolerance", "factorization",
-                         "slices", "tolerance"}, P + "model")
+        check_keys(raw, {"solver", "harmonics", "harmonics_tolerance", "harmonics_max",
+                         "factorization", "slices", "tolerance"}, P + "model")
         harmonics = raw.get("harmonics", "auto")
         if harmonics != "auto" and (isinstance(harmonics, bool) or not isinstance(harmonics, int)
                                     or not 1 <= harmonics <= 2000):
@@ -409,7 +458,12 @@ def _model(raw: Any, P: str, particles) -> dict:
         htol = _number(raw.get("harmonics_tolerance", 1e-3), P + "model.harmonics_tolerance",
                        low=1e-8, high=0.5)
         tol = _number(raw.get("tolerance", 1e-8), P + "model.tolerance", low=1e-14, high=1e-2)
+        hmax = raw.get("harmonics_max", 625)
+        if isinstance(hmax, bool) or not isinstance(hmax, int) or not 25 <= hmax <= 2000:
+            raise InputError(P + "model.harmonics_max", f"got {hmax!r}, allowed an integer in "
+                                                        "[25, 2000] (the cap of harmonics: auto)")
         return {"solver": "fourier", "harmonics": harmonics, "harmonics_tolerance": htol,
+                "harmonics_max": hmax,
                 "factorization": factorization, "slices": slices, "tolerance": tol,
                 "lmax": "auto"}
     # Non-spherical particles couple every multipole order to the next: a truncated
@@ -457,23 +511,65 @@ def _lattice(raw: Any, key: str) -> LatticeSpec:
     return LatticeSpec(kind=kind, periods_nm=periods, angle_deg=float(angle))
 
 
-PARTICLE_SHAPES = ("sphere", "cylinder", "spheroid")
+PARTICLE_SHAPES = ("sphere", "cylinder", "spheroid", "elliptic_cylinder", "box", "ring")
+#: shapes only the Fourier solver can model (columns standing on the stack)
+FOURIER_SHAPES = ("elliptic_cylinder", "box", "ring")
 
 
 def _particle(raw: Any, key: str) -> ParticleSpec:
     check_keys(raw, {"shape", "radius_nm", "material", "position_nm", "core_radius_nm",
-                     "core_material", "height_nm"}, key)
+                     "core_material", "height_nm", "radius_b_nm", "angle_deg", "size_nm",
+                     "corner_radius_nm", "inner_radius_nm"}, key)
     shape = raw.get("shape", "sphere")
     if shape not in PARTICLE_SHAPES:
         raise InputError(f"{key}.shape", f"got {shape!r}, allowed: {', '.join(PARTICLE_SHAPES)}")
-    if "radius_nm" not in raw:
-        raise InputError(f"{key}.radius_nm", "missing")
-    radius = _number(raw["radius_nm"], f"{key}.radius_nm", low=0.0, high=1e4, low_open=True,
-                     unit="nm")
+    allowed_extra = {"elliptic_cylinder": {"radius_b_nm", "angle_deg"},
+                     "box": {"size_nm", "angle_deg", "corner_radius_nm"},
+                     "ring": {"inner_radius_nm"}}.get(shape, set())
+    for extra in ("radius_b_nm", "angle_deg", "size_nm", "corner_radius_nm", "inner_radius_nm"):
+        if extra in raw and extra not in allowed_extra:
+            raise InputError(f"{key}.{extra}", f"not a property of shape {shape}")
+    extras: dict[str, Any] = {}
+    if shape == "box":
+        if "size_nm" not in raw:
+            raise InputError(f"{key}.size_nm", "missing; a box needs [width, depth] in nm")
+        if "radius_nm" in raw:
+            raise InputError(f"{key}.radius_nm", "a box is given by size_nm [width, depth]")
+        size = _pair(raw["size_nm"], f"{key}.size_nm", low=0.0, high=1e4)
+        if min(size) <= 0:
+            raise InputError(f"{key}.size_nm", f"got {list(size)}, allowed sizes > 0 nm")
+        extras["size_nm"] = size
+        corner = _number(raw.get("corner_radius_nm", 0.0), f"{key}.corner_radius_nm", low=0.0,
+                         high=min(size) / 2.0, unit="nm")
+        extras["corner_radius_nm"] = corner if "corner_radius_nm" in raw else None
+        radius = 0.5 * math.hypot(*size)
+    else:
+        if "radius_nm" not in raw:
+            raise InputError(f"{key}.radius_nm", "missing")
+        radius = _number(raw["radius_nm"], f"{key}.radius_nm", low=0.0, high=1e4,
+                         low_open=True, unit="nm")
+    if shape in ("elliptic_cylinder", "box"):
+        extras["angle_deg"] = _number(raw.get("angle_deg", 0.0), f"{key}.angle_deg",
+                                      low=-360.0, high=360.0, unit="deg")
+    if shape == "elliptic_cylinder":
+        if "radius_b_nm" not in raw:
+            raise InputError(f"{key}.radius_b_nm", "missing; an elliptic cylinder needs its "
+                                                   "second semi-axis")
+        extras["radius_b_nm"] = _number(raw["radius_b_nm"], f"{key}.radius_b_nm", low=0.0,
+                                        high=1e4, low_open=True, unit="nm")
+    if shape == "ring":
+        if "inner_radius_nm" not in raw:
+            raise InputError(f"{key}.inner_radius_nm", "missing; a ring needs its hole radius")
+        extras["inner_radius_nm"] = _number(raw["inner_radius_nm"], f"{key}.inner_radius_nm",
+                                            low=0.0, high=radius, low_open=True, unit="nm")
+        if extras["inner_radius_nm"] >= radius:
+            raise InputError(f"{key}.inner_radius_nm", f"got {extras['inner_radius_nm']:g}, "
+                                                       f"allowed (0, {radius:g}) nm (below "
+                                                       "radius_nm)")
     height = None
     if shape == "sphere":
         if "height_nm" in raw:
-            raise InputError(f"{key}.height_nm", "only for shape cylinder or spheroid")
+            raise InputError(f"{key}.height_nm", "only for columns and spheroids, not spheres")
     else:
         if "height_nm" not in raw:
             raise InputError(f"{key}.height_nm", f"missing; a {shape} needs its height")
@@ -495,7 +591,8 @@ def _particle(raw: Any, key: str) -> ParticleSpec:
                          high=radius, low_open=True, unit="nm")
         core_m = _material_spec(raw["core_material"], f"{key}.core_material")
     return ParticleSpec(shape=shape, radius_nm=radius, material=material, position_nm=pos,
-                        core_radius_nm=core_r, core_material=core_m, height_nm=height)
+                        core_radius_nm=core_r, core_material=core_m, height_nm=height,
+                        **extras)
 
 
 def _layer(raw: Any, key: str) -> LayerSpec:
@@ -512,16 +609,28 @@ def _region(raw: Any, key: str) -> RegionSpec:
         raise InputError(key, f"expected a mapping, got {raw!r}")
     kind = raw.get("kind")
     if kind not in REGION_KINDS:
-        raise InputError(f"{key}.kind", f"got {kind!r}, allowed: plane, slab")
+        raise InputError(f"{key}.kind", f"got {kind!r}, allowed: {', '.join(REGION_KINDS)}")
+    if kind == "surface":
+        check_keys(raw, {"kind", "thickness_nm"}, key)
+        if "thickness_nm" not in raw:
+            raise InputError(f"{key}.thickness_nm", "missing")
+        return RegionSpec(kind=kind, thickness_nm=_number(raw["thickness_nm"],
+                                                          f"{key}.thickness_nm", low=0.0,
+                                                          high=1e3, low_open=True, unit="nm"))
     if kind == "plane":
         check_keys(raw, {"kind", "height_nm"}, key)
         return RegionSpec(kind=kind, height_nm=_number(raw.get("height_nm", 0.0),
                                                        f"{key}.height_nm", low=0.0, high=1e4,
                                                        unit="nm"))
-    check_keys(raw, {"kind", "from_nm", "thickness_nm"}, key)
+    check_keys(raw, {"kind", "from_nm", "thickness_nm", "origin"}, key)
     if "thickness_nm" not in raw:
         raise InputError(f"{key}.thickness_nm", "missing")
-    return RegionSpec(kind=kind,
+    origin = raw.get("origin", "tops")
+    if origin not in ("tops", "substrate"):
+        raise InputError(f"{key}.origin", f"got {origin!r}, allowed: tops (from_nm above the "
+                                          "highest particle top), substrate (from the "
+                                          "substrate top)")
+    return RegionSpec(kind=kind, origin=origin,
                       from_nm=_number(raw.get("from_nm", 0.0), f"{key}.from_nm", low=0.0,
                                       high=1e4, unit="nm"),
                       thickness_nm=_number(raw["thickness_nm"], f"{key}.thickness_nm", low=0.0,
@@ -546,9 +655,15 @@ def check_geometry(design: Design, prefix: str = "") -> None:
     # shortest lattice vector limits a single particle's diameter
     shortest = min(onp.hypot(*v) for v in images if onp.hypot(*v) > 0)
     for i, p in enumerate(parts):
-        if 2 * p.radius_nm > shortest:
-            raise InputError(f"{prefix}particles[{i}].radius_nm",
-                             f"diameter {2 * p.radius_nm:g} nm exceeds the shortest lattice "
+        if p.shape in FOURIER_SHAPES and design.solver != "fourier":
+            raise InputError(f"{prefix}particles[{i}].shape",
+                             f"shape {p.shape} needs model.solver fourier (the multipole model "
+                             "has sphere, cylinder and spheroid)")
+        reach = max(p.size_nm) / 2.0 if p.shape == "box" else p.reach_nm
+        if 2 * reach > shortest:
+            raise InputError(f"{prefix}particles[{i}]." + ("size_nm" if p.shape == "box"
+                                                            else "radius_nm"),
+                             f"diameter {2 * reach:g} nm exceeds the shortest lattice "
                              f"period {shortest:g} nm (spheres would overlap their neighbours); "
                              f"allowed radius <= {shortest / 2:g} nm, or {prefix}lattice.period_nm "
                              f"of at least {2 * p.radius_nm:g} nm")
@@ -567,6 +682,9 @@ def check_geometry(design: Design, prefix: str = "") -> None:
                              f"{shortest:g} nm: its T-matrix expansion would not converge "
                              "between neighbours")
     if design.solver != "fourier":
+        if design.region is not None and design.region.inside_layer:
+            raise InputError(prefix + "region", "regions reaching between the particles "
+                             "(kind surface, or origin substrate) need model.solver fourier")
         _check_expansion_limits(design, prefix)
     for i in range(len(parts)):
         for j in range(i + 1, len(parts)):
@@ -576,7 +694,7 @@ def check_geometry(design: Design, prefix: str = "") -> None:
             dz = parts[i].half_height_nm - parts[j].half_height_nm
             if design.solver == "fourier":  # columns standing side by side: in-plane discs
                 dz = 0.0
-                reach = parts[i].radius_nm + parts[j].radius_nm
+                reach = parts[i].reach_nm + parts[j].reach_nm
             else:
                 reach = _circumradius(parts[i]) + _circumradius(parts[j])
             dist = min(math.sqrt(float(onp.sum((d0 + v) ** 2)) + dz ** 2) for v in images)

@@ -75,13 +75,19 @@ def region_span(structure: Structure, region) -> tuple[Any, Any]:
     """
     top = particle_top(structure)
     kind = getattr(region, "kind", None)
+    if kind == "surface":   # from the particle bottoms to a film's thickness above the tops
+        bottom = np.min(structure.centres[:, 2] - structure.half_heights)
+        return bottom, top + region.thickness_nm * NM
+    if kind == "slab" and getattr(region, "origin", "tops") == "substrate":
+        z_lo = region.from_nm * NM
+        return z_lo, z_lo + region.thickness_nm * NM
     if kind == "plane":
         z = top + region.height_nm * NM
         return z, z
     if kind == "slab":
         z_lo = top + region.from_nm * NM
         return z_lo, z_lo + region.thickness_nm * NM
-    raise InputError("region.kind", f"got {kind!r}, allowed: plane, slab")
+    raise InputError("region.kind", f"got {kind!r}, allowed: plane, slab, surface")
 
 
 def representative_plane_nm(structure: Structure, region) -> float:

@@ -157,9 +157,10 @@ def _fourier_once(design, values, count, area_grid, warn):
     from chiropt.fourier.solve import solve_fourier
 
     st = build_structure(design, values)
-    sol = solve_fourier(design, st, values, harmonics=count, factorization=design.factorization,
-                        slices=design.slices, warn=warn)
     region = traced_region(design, values)
+    sol = solve_fourier(design, st, values, harmonics=count, factorization=design.factorization,
+                        slices=design.slices, warn=warn,
+                        interior=region is not None and region.inside_layer)
     frac = power_fractions(sol)
     metrics = _region_metrics(sol, region, metrics_tolerance(design), area_grid)
     return ModelOutput(structure=st, solution=sol, fractions=frac, metrics=metrics, lmax=None,
@@ -168,9 +169,10 @@ def _fourier_once(design, values, count, area_grid, warn):
 
 def _run_fourier(design, values, *, harmonics, area_grid, warn):
     """The Fourier modal solver at a fixed count, or ``auto``: the count is raised along
-    :data:`HARMONIC_STEPS` (on plain values) until R, T and the region metrics change by
-    less than ``model.harmonics_tolerance`` from one step to the next; the final solve is
-    traced at the chosen count."""
+    :data:`HARMONIC_STEPS` (on plain values, up to ``model.harmonics_max``) until R, T and
+    the region metrics change by less than ``model.harmonics_tolerance`` from one step to
+    the next; the final solve is traced at the chosen count. When the cap is reached first,
+    ``harmonics_change`` (the last change) says how far from converged the result is."""
     with warnings.catch_warnings():
         if not warn:
             warnings.simplefilter("ignore")
@@ -179,7 +181,7 @@ def _run_fourier(design, values, *, harmonics, area_grid, warn):
             return _fourier_once(design, values, int(count), area_grid, warn)
         plain = None if values is None else {k: getval(v) for k, v in values.items()}
         previous, change = None, None
-        for step in HARMONIC_STEPS:
+        for step in [s for s in HARMONIC_STEPS if s <= design.harmonics_max]:
             out = _fourier_once(design, plain, step, 0, False)
             here = {k: onp.asarray(getval(v)) for k, v in quantities_of(out).items()}
             if previous is not None:

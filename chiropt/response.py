@@ -116,4 +116,5 @@ def evaluate(design: Design, *, keep_solution: bool = False,
                     A=onp.asarray(frac["A"]), A_dipoles=onp.asarray(frac["A_dipoles"]),
                     rayleigh=onp.asarray(sol.rayleigh), warnings=notes, metrics=metrics,
                     lmax=out.lmax, harmonics=out.harmonics,
-                    harmonics_change=out.harmonics_change, validity=check, solution=sol if keep_solution else None)
+                    harmonics_change=out.harmonics_change, validity=check,
+                    solution=sol if keep_solution else None)

@@ -177,7 +177,7 @@ def build_structure(design: Design, values: dict[str, Any] | None = None) -> Str
 
     radii, halves, centres, a_e, a_m = [], [], [], [], []
     for i, part in enumerate(design.particles):
-        r = p[f"particles[{i}].radius_nm"] * NM
+        r = p.get(f"particles[{i}].radius_nm", part.radius_nm) * NM
         half = r if part.height_nm is None else p[f"particles[{i}].height_nm"] * NM / 2.0
         if part.shape != "sphere":
             # no scalar polarizabilities: the multipole model uses the particle's T-matrix

@@ -83,6 +83,10 @@ class Circle:
     def contains(self, x, y):
         return self.level(x, y)[0] < 1.0
 
+    def distance(self, x, y):
+        """Signed in-plane distance to the boundary [m] (negative inside)."""
+        return self.level(x, y)[0] * getval(self.radius) - getval(self.radius)
+
 
 @dataclass
 class Ellipse:
@@ -117,6 +121,11 @@ class Ellipse:
 
     def contains(self, x, y):
         return self.level(x, y)[0] < 1.0
+
+    def distance(self, x, y):
+        """Approximate signed distance [m]: (level - 1) times the smaller semi-axis (exact
+        for a circle; within a factor a/b elsewhere)."""
+        return (self.level(x, y)[0] - 1.0) * min(getval(self.a), getval(self.b))
 
 
 @dataclass
@@ -158,6 +167,15 @@ class Polygon:
 
     def contains(self, x, y):
         return self.level(x, y)[0] < 1.0
+
+    def distance(self, x, y):
+        """Signed distance [m] to the nearest edge line (exact inside a convex polygon and
+        facing an edge; an underestimate beyond a corner)."""
+        v = onp.asarray(getval(self.vertices))
+        e = onp.roll(v, -1, axis=0) - v
+        n = onp.stack([e[:, 1], -e[:, 0]], axis=1) / onp.hypot(e[:, 0], e[:, 1])[:, None]
+        d = (x[..., None] - v[:, 0]) * n[:, 0] + (y[..., None] - v[:, 1]) * n[:, 1]
+        return onp.max(d, axis=-1)
 
 
 def Rectangle(width, height, *, angle=0.0, centre=(0.0, 0.0), corner_radius=0.0,
@@ -215,3 +233,7 @@ class Ring:
 
     def contains(self, x, y):
         return self.level(x, y)[0] < 1.0
+
+    def distance(self, x, y):
+        """Signed distance [m] to the ring's material (negative inside it)."""
+        return (self.level(x, y)[0] - 1.0) * 0.5 * (getval(self.outer) - getval(self.inner))

@@ -51,6 +51,9 @@ class Modes:
     V: Any
     gamma: Any
     uniform: bool
+    W_inv: Any = None
+    V_inv: Any = None
+    ezz_inv: Any = None
 
 
 def _branch(g2):
@@ -100,16 +103,22 @@ def patterned_modes(mats, Kx, Ky) -> Modes:
     lam, W = eig_modes(np.matmul(P, Q))
     gamma = _branch(lam)
     V = np.matmul(Q, W) / gamma[..., None, :]
-    return Modes(W=W, V=V, gamma=gamma, uniform=False)
+    return Modes(W=W, V=V, gamma=gamma, uniform=False, ezz_inv=Ezi)
 
 
 def _inv_W(m: Modes):
-    return None if m.uniform else np.linalg.inv(m.W)
+    if m.uniform:
+        return None
+    if m.W_inv is None:
+        m.W_inv = np.linalg.inv(m.W)
+    return m.W_inv
 
 
 def _inv_V(m: Modes):
     if not m.uniform:
-        return np.linalg.inv(m.V)
+        if m.V_inv is None:
+            m.V_inv = np.linalg.inv(m.V)
+        return m.V_inv
     a, b, c, d = m.V[:, 0], m.V[:, 1], m.V[:, 2], m.V[:, 3]
     det = a * d - b * c
     return _block(_diag(d / det), _diag(-b / det), _diag(-c / det), _diag(a / det))
@@ -150,10 +159,84 @@ def interface(below: Modes, above: Modes):
 
 
 def propagation(modes: Modes, thickness_k0):
-    """S-matrix of a layer's interior: X = exp(i gamma d) on both transmissions."""
+    """S-matrix of a layer's interior: X = exp(i gamma d) on both transmissions (dense)."""
     X = _diag(np.exp(1j * modes.gamma * thickness_k0))
     zero = np.zeros_like(X)
     return zero, X, X, zero
+
+
+def phase(modes: Modes, thickness_k0):
+    """The layer's transmission phases exp(i gamma d), (W, 2M)."""
+    return np.exp(1j * modes.gamma * thickness_k0)
+
+
+def star_phase(S, X):
+    """S star (a layer interior with phases X (W, n)) without dense products:
+    C11 = S11, C12 = S12 X, C21 = X S21, C22 = X S22 X."""
+    S11, S12, S21, S22 = S
+    return S11, S12 * X[:, None, :], X[:, :, None] * S21, X[:, :, None] * S22 * X[:, None, :]
+
+
+def phase_star(X, S):
+    """(A layer interior with phases X) star S: C11 = X S11 X, C12 = X S12, C21 = S21 X,
+    C22 = S22."""
+    S11, S12, S21, S22 = S
+    return X[:, :, None] * S11 * X[:, None, :], X[:, :, None] * S12, S21 * X[:, None, :], S22
+
+
+# -- sections of uniform layers: every harmonic on its own, 2 x 2 blocks (E_x, E_y) --------
+
+def _local_V(m: Modes):
+    """Uniform modes' V as per-harmonic 2 x 2 blocks (W, M, 2, 2)."""
+    V = m.V
+    return np.stack([np.stack([V[:, 0], V[:, 1]], axis=-1),
+                     np.stack([V[:, 2], V[:, 3]], axis=-1)], axis=-2)
+
+
+def _lmm(a, b):
+    return np.einsum("wmij,wmjk->wmik", a, b)
+
+
+def _linv(a):
+    det = a[..., 0, 0] * a[..., 1, 1] - a[..., 0, 1] * a[..., 1, 0]
+    return np.stack([np.stack([a[..., 1, 1], -a[..., 0, 1]], axis=-1),
+                     np.stack([-a[..., 1, 0], a[..., 0, 0]], axis=-1)], axis=-2) / det[
+        ..., None, None]
+
+
+def local_interface(below: Modes, above: Modes):
+    """:func:`interface` of two uniform layers, as per-harmonic 2 x 2 blocks."""
+    T2 = _lmm(_linv(_local_V(below)), _local_V(above))
+    eye = np.eye(2)
+    Ap, Am = eye + T2, eye - T2
+    Ai = _linv(Ap)
+    AmAi = _lmm(Am, Ai)
+    return AmAi, 0.5 * (Ap - _lmm(AmAi, Am)), 2.0 * Ai, -_lmm(Ai, Am)
+
+
+def local_star_phase(S, x):
+    """:func:`star_phase` for per-harmonic blocks; x (W, M) the phase of both components."""
+    S11, S12, S21, S22 = S
+    xx = x[..., None, None]
+    return S11, S12 * xx, xx * S21, xx * S22 * xx
+
+
+def local_star(A, B):
+    """:func:`star` for per-harmonic 2 x 2 blocks."""
+    A11, A12, A21, A22 = A
+    B11, B12, B21, B22 = B
+    eye = np.eye(2)
+    D = _linv(eye - _lmm(A22, B11))
+    F = _linv(eye - _lmm(B11, A22))
+    DA21 = _lmm(D, A21)
+    return (A11 + _lmm(_lmm(A12, B11), DA21), _lmm(_lmm(A12, F), B12), _lmm(B21, DA21),
+            B22 + _lmm(_lmm(B21, _lmm(D, A22)), B12))
+
+
+def local_to_dense(S):
+    """Per-harmonic blocks (W, M, 2, 2) -> dense (W, 2M, 2M) S-matrix blocks."""
+    return tuple(_block(_diag(b[..., 0, 0]), _diag(b[..., 0, 1]), _diag(b[..., 1, 0]),
+                        _diag(b[..., 1, 1])) for b in S)
 
 
 def star(A, B):
@@ -164,10 +247,12 @@ def star(A, B):
     n = A11.shape[-1]
     eye = np.eye(n)
     D = np.linalg.inv(eye - np.matmul(A22, B11))        # (I - A22 B11)^-1
-    F = np.linalg.inv(eye - np.matmul(B11, A22))        # (I - B11 A22)^-1
+    DA22 = np.matmul(D, A22)
     DA21 = np.matmul(D, A21)
-    C11 = A11 + np.matmul(np.matmul(A12, B11), DA21)
-    C12 = np.matmul(np.matmul(A12, F), B12)
+    A12B11 = np.matmul(A12, B11)
+    C11 = A11 + np.matmul(A12B11, DA21)
+    # (I - B11 A22)^-1 = I + B11 D A22 (push-through identity): A12 F = A12 + A12B11 D A22
+    C12 = np.matmul(A12 + np.matmul(A12B11, DA22), B12)
     C21 = np.matmul(B21, DA21)
-    C22 = B22 + np.matmul(np.matmul(B21, np.matmul(D, A22)), B12)
+    C22 = B22 + np.matmul(np.matmul(B21, DA22), B12)
     return C11, C12, C21, C22

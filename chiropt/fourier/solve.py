@@ -25,7 +25,7 @@ from autograd.tracer import getval
 
 from chiropt.errors import InputError
 from chiropt.fourier.harmonics import shell_cut
-from chiropt.fourier.shapes import Circle
+from chiropt.fourier.shapes import Circle, Ellipse, Rectangle, Ring
 from chiropt.fourier.stack import FourierLayer, FourierStack, outgoing, solve_stack
 from chiropt.solution import (
     Solution,
@@ -56,6 +56,40 @@ class FourierSolution(Solution):
     z_interface: Any = None
     layer_bounds: Any = None
     complete_orders: bool = True
+    incoming: Any = None
+    pieces: Any = None
+    interior: bool = False
+
+    def fields_at(self, xy, z, cache: dict | None = None):
+        """E and Z H (W, 2, P, 3) [V/m] at in-plane points ``xy`` (P, 2) [m] and height
+        ``z`` [m] (plain), anywhere above the substrate: in the host, the films, between
+        and inside the particles (needs the solve made with ``interior=True``)."""
+        from chiropt.fourier.interior import harmonic_fields_at, point_fields
+
+        if not self.interior:
+            raise ValueError("fields inside the layers need solve_fourier(..., interior=True)")
+        harm = harmonic_fields_at(self.stack_solution, self.layer_bounds, self.z_interface,
+                                  z, from_above=self.incoming, cache=cache)
+        return point_fields(self.stack_solution, harm, xy)
+
+    def distance_to_particles(self, xy, z):
+        """Signed distance [m] from points (P, 2) at height z [m] to the nearest particle
+        (negative inside one), over the particles' periodic images (plain values)."""
+        plain = self.structure.lattice.plain()
+        a1, a2 = onp.asarray(plain.a1), onp.asarray(plain.a2)
+        best = onp.full(len(xy), onp.inf)
+        for bottom, top, shape in self.pieces:
+            for i in (-1, 0, 1):
+                for j in (-1, 0, 1):
+                    sx, sy = i * a1 + j * a2
+                    side = shape.distance(xy[:, 0] - sx, xy[:, 1] - sy)
+                    if bottom <= z <= top:
+                        d = side
+                    else:
+                        dz = z - top if z > top else bottom - z
+                        d = onp.hypot(onp.maximum(side, 0.0), dz)
+                    best = onp.minimum(best, d)
+        return best
 
 
 def _in_plane(vec):
@@ -85,6 +119,22 @@ def _to_sp(e, s, p):
     return np.stack([a_s, a_p], axis=-1)
 
 
+def column_section(part, i: int, p: dict, radius, xy):
+    """The cross-section of a column-like particle (cylinder, elliptic cylinder, box,
+    ring) as a shape of ``chiropt.fourier.shapes``, sizes from the (traced) parameters."""
+    key = f"particles[{i}]."
+    if part.shape == "cylinder":
+        return Circle(radius, xy)
+    if part.shape == "ring":
+        return Ring(radius, p[key + "inner_radius_nm"] * NM, xy)
+    angle = p[key + "angle_deg"] * np.pi / 180.0
+    if part.shape == "elliptic_cylinder":
+        return Ellipse(radius, p[key + "radius_b_nm"] * NM, angle=angle, centre=xy)
+    corner = p.get(key + "corner_radius_nm", 0.0) * NM
+    return Rectangle(p[key + "size_nm[0]"] * NM, p[key + "size_nm[1]"] * NM, angle=angle,
+                     centre=xy, corner_radius=corner)
+
+
 def particle_layers(design, st: Structure, values, eps_host, slices: int = DEFAULT_SLICES):
     """Patterned sub-layers [(bottom, top, inclusions)] of the particles, bottom to top.
 
@@ -109,8 +159,9 @@ def particle_layers(design, st: Structure, values, eps_host, slices: int = DEFAU
         centre = st.centres[i]
         xy = (centre[0], centre[1])
         half, r = st.half_heights[i], st.radii[i]
-        if part.shape == "cylinder":
-            pieces.append((centre[2] - half, centre[2] + half, Circle(r, xy), n ** 2))
+        if part.shape != "sphere" and part.shape != "spheroid":
+            pieces.append((centre[2] - half, centre[2] + half,
+                           column_section(part, i, p, r, xy), n ** 2))
             continue
         edges = onp.linspace(-1.0, 1.0, slices + 1)
         mids = 0.5 * (edges[1:] + edges[:-1])
@@ -131,7 +182,7 @@ def particle_layers(design, st: Structure, values, eps_host, slices: int = DEFAU
         inside = [(shape, eps) for b, t, shape, eps in pieces
                   if float(getval(b)) <= lo + 1e-15 and float(getval(t)) >= hi - 1e-15]
         layers.append((traced[lo], traced[hi], inside))
-    return layers
+    return layers, [(float(getval(b)), float(getval(t)), shape) for b, t, shape, _ in pieces]
 
 
 def fourier_stack(design, st: Structure, values, count: int, *,
@@ -146,7 +197,7 @@ def fourier_stack(design, st: Structure, values, count: int, *,
         layers.append(FourierLayer(st.thicknesses[i], st.eps_layers[i]))
         bounds.append((z, z + st.thicknesses[i]))
         z = z + st.thicknesses[i]
-    parts = particle_layers(design, st, values, eps_host, slices)
+    parts, pieces = particle_layers(design, st, values, eps_host, slices)
     bottom = parts[0][0]
     if float(getval(bottom)) - float(getval(z)) > 1e-15:
         layers.append(FourierLayer(bottom - z, eps_host))
@@ -165,7 +216,7 @@ def fourier_stack(design, st: Structure, values, count: int, *,
     stack = FourierStack(lattice=st.lattice, k0=st.k0, k_par=st.k_par, eps_above=eps_host,
                          eps_below=eps_below * ones, layers=layers, mn=mn,
                          factorization=factorization)
-    return stack, bounds, mn_cut
+    return stack, bounds, mn_cut, pieces
 
 
 def solve_fourier(design, st: Structure, values=None, *, harmonics: int,
@@ -191,8 +242,8 @@ def solve_fourier(design, st: Structure, values=None, *, harmonics: int,
     (1996) and 14, 2758 (1997); Schuster et al., J. Opt. Soc. Am. A 24, 2880 (2007);
     Liu & Fan, Comput. Phys. Commun. 183, 2233 (2012).
     """
-    stack, bounds, g_cut = fourier_stack(design, st, values, harmonics,
-                                         factorization=factorization, slices=slices)
+    stack, bounds, g_cut, pieces = fourier_stack(design, st, values, harmonics,
+                                                 factorization=factorization, slices=slices)
     orders = make_orders(st, g_cut)
     if len(orders.mn) != len(stack.mn) or not onp.array_equal(orders.mn, stack.mn):
         raise AssertionError("harmonic set and order set differ")
@@ -209,12 +260,17 @@ def solve_fourier(design, st: Structure, values=None, *, harmonics: int,
         e_in = _to_xy(inc * first, orders.s, orders.p_down)
         up_e, down_e = outgoing(sol, from_above=e_in)
         incident_sp = D0
+        incoming = e_in
     else:
         hel = np.array([[1j, 1.0], [-1j, 1.0]]) / np.sqrt(2.0)
         _, pu2, _, _ = substrate_basis(st, orders)
         inc = hel[None, :, None, :] * np.ones((W, 1, 1, 1)) * first
         up_e, down_e = outgoing(sol, from_below=_to_xy(inc, orders.s, pu2))
         incident_sp = np.zeros((W, 2, 2), dtype=complex)
+        incoming = None
+        if interior:
+            raise InputError("illumination.side", "regions between the particles are "
+                             "computed for illumination from the host side only")
     up_sp = _to_sp(up_e, orders.s, orders.p_up)
     up_sp = up_sp * np.exp(-1j * kz * (z_int - st.z_top))[:, None, :, None]
     if st.has_substrate:
@@ -231,4 +287,5 @@ def solve_fourier(design, st: Structure, values=None, *, harmonics: int,
                            local_E=moments[..., :3], local_H=moments[..., 3:],
                            rayleigh=rayleigh, eps_exit=eps_exit, n_far=n_far,
                            harmonics=G, stack_solution=sol, z_interface=z_int,
-                           layer_bounds=bounds)
+                           layer_bounds=bounds, incoming=incoming, pieces=pieces,
+                           interior=interior)

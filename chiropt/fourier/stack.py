@@ -27,9 +27,15 @@ from chiropt.fourier.permittivity import layer_matrices, plain_normals
 from chiropt.fourier.smatrix import (
     Modes,
     interface,
+    local_interface,
+    local_star,
+    local_star_phase,
+    local_to_dense,
     patterned_modes,
-    propagation,
+    phase,
+    phase_star,
     star,
+    star_phase,
     uniform_modes,
 )
 from chiropt.lattice import Lattice, order_wavevectors
@@ -126,14 +132,42 @@ def solve_stack(stack: FourierStack, *, interior: bool = False) -> StackSolution
                               normals=normals_cache.get(key))
         modes.append(patterned_modes(mats, Kx, Ky))
     sequence = [below] + modes + [above]
-    # S of (bottom medium .. layer j's bottom, just inside) and of (layer j's top .. top)
+    k0 = stack.k0[:, None]
+    # S of (bottom medium .. layer j's bottom, just inside) and of (layer j's top .. top);
+    # the uniform layers at the bottom are combined harmonic by harmonic (2 x 2 blocks)
     lower = []
-    S = interface(sequence[0], sequence[1])
-    for j, layer in enumerate(stack.layers):
-        if interior:
-            lower.append(S)
-        S = star(S, propagation(modes[j], layer.thickness * stack.k0[:, None]))
-        S = star(S, interface(modes[j], sequence[j + 2]))
+    n_local = 0
+    while n_local < len(stack.layers) and not stack.layers[n_local].inclusions:
+        n_local += 1
+    S = None
+    if n_local == len(stack.layers):   # no patterned layer at all
+        S = local_interface(sequence[0], sequence[1])
+        for j in range(n_local):
+            if interior:
+                lower.append(local_to_dense(S))
+            M = Kx.shape[-1]
+            S = local_star_phase(S, phase(modes[j], stack.layers[j].thickness * k0)[:, :M])
+            S = local_star(S, local_interface(modes[j], sequence[j + 2]))
+        S = local_to_dense(S)
+    else:
+        if n_local:
+            S = local_interface(sequence[0], sequence[1])
+        for j in range(n_local):
+            if interior:
+                lower.append(local_to_dense(S))
+            M = Kx.shape[-1]
+            S = local_star_phase(S, phase(modes[j], stack.layers[j].thickness * k0)[:, :M])
+            if j + 1 < n_local:
+                S = local_star(S, local_interface(modes[j], sequence[j + 2]))
+        if n_local == 0:
+            S = interface(sequence[0], sequence[1])
+        else:
+            S = star(local_to_dense(S), interface(modes[n_local - 1], sequence[n_local + 1]))
+        for j in range(n_local, len(stack.layers)):
+            if interior:
+                lower.append(S)
+            S = star_phase(S, phase(modes[j], stack.layers[j].thickness * k0))
+            S = star(S, interface(modes[j], sequence[j + 2]))
     upper = []
     if interior:
         T = interface(sequence[-2], sequence[-1])
@@ -141,8 +175,7 @@ def solve_stack(stack: FourierStack, *, interior: bool = False) -> StackSolution
         for j in range(len(stack.layers) - 1, -1, -1):
             upper[j] = T
             if j > 0:
-                T = star(propagation(modes[j], stack.layers[j].thickness * stack.k0[:, None]),
-                         T)
+                T = phase_star(phase(modes[j], stack.layers[j].thickness * k0), T)
                 T = star(interface(modes[j - 1], modes[j]), T)
     return StackSolution(stack=stack, Kx=Kx, Ky=Ky, above=above, below=below, modes=modes,
                          S=S, lower=lower, upper=upper)
