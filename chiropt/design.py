@@ -45,7 +45,8 @@ class ParticleSpec:
     ``spheroid``; with the Fourier solver also ``elliptic_cylinder`` (semi-axes
     ``radius_nm`` and ``radius_b_nm``, rotated by ``angle_deg``), ``box`` (``size_nm``
     [width, depth], ``angle_deg``, optional ``corner_radius_nm``; ``radius_nm`` is then
-    its half diagonal) and ``ring`` (outer ``radius_nm``, hole ``inner_radius_nm``). ``radius_nm`` is the outer (sphere, cylinder) or equatorial (spheroid)
+    its half diagonal) and ``ring`` (outer ``radius_nm``, hole ``inner_radius_nm``).
+    ``radius_nm`` is the outer (sphere, cylinder) or equatorial (spheroid)
     radius [nm]; ``height_nm`` the full height of a cylinder or the polar diameter of a
     spheroid [nm]; ``material`` the outer material; ``core_radius_nm`` /
     ``core_material`` an optional core of a sphere; ``position_nm`` the in-plane centre

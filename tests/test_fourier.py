@@ -363,7 +363,7 @@ def test_lifted_disk_agrees_with_the_multipole_model():
                 illumination={"wavelength_nm": [750.0]},
                 region={"kind": "plane", "height_nm": 40})
     multi = quantities_of(run_model(_disk_design(model={"lmax": 6}, **over)))
-    four = quantities_of(run_model(_disk_design(model={"solver": "fourier", "harmonics": 197},
+    four = quantities_of(run_model(_disk_design(model={"solver": "fourier", "harmonics": 301},
                                                 **over)))
     for key, tol in (("R+1", 5e-4), ("T+1", 5e-4), ("u", 3e-3), ("g", 3e-3),
                      ("docp+1", 2e-3)):

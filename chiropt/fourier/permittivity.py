@@ -12,15 +12,18 @@ Factorization rules (which product of Fourier series is taken as which matrix):
   field tangential to the boundaries and D_n = [[1/eps]]^-1 E_n (the inverse rule) for
   the normal component (Li, J. Opt. Soc. Am. A 13, 1870 (1996); Popov & Neviere,
   J. Opt. Soc. Am. A 18, 2886 (2001); Schuster et al., J. Opt. Soc. Am. A 24, 2880
-  (2007)):
+  (2007)), written as the congruence
 
-      eps_ab = [[eps]] delta_ab - (1/2) (Delta [[n_a n_b]] + [[n_a n_b]] Delta),
-      Delta = [[eps]] - [[1/eps]]^-1.
+      eps = P_t^1/2 [[eps]] P_t^1/2 + P_n^1/2 [[1/eps]]^-1 P_n^1/2,
+      P_n = [[n n^T]] (block Toeplitz, 2M x 2M), P_t = I - P_n
 
-  The symmetric product (Goetz et al., Opt. Express 16, 17295 (2008)) keeps the
-  operator Hermitian for lossless layers (energy conserved at every truncation) and
+  (see :func:`normal_projector_roots`): Hermitian for lossless layers (energy conserved
+  at every truncation), passive for lossy ones (absorption >= 0, also for metals),
   invariant under G -> -G with transposition (reciprocity), and a mirror-symmetric
-  normal field keeps the mirror symmetry that maps one helicity onto the other.
+  normal field keeps the mirror symmetry that maps one helicity onto the other. (The
+  product form [[eps]] - (Delta [[n n]] + [[n n]] Delta)/2 of Goetz et al., Opt. Express
+  16, 17295 (2008), shares the first three properties but gave negative absorption for
+  silver disks in our tests.)
 - ``'laurent'``: eps_ab = [[eps]] delta_ab (Moharam et al., J. Opt. Soc. Am. A 12, 1068
   (1995)); converges slowly for high-index contrast, kept for comparison.
 
@@ -138,16 +141,39 @@ def layer_matrices(eps_back, inclusions, lattice, mn, dmn, inverse, *,
         zero = np.zeros_like(E)
         return LayerMatrices(E, zero, zero, E, ezz_inv)
     Einv = _composite(1.0 / eps_back, [1.0 / e for _, e in inclusions], mats, M)
-    Delta = E - np.linalg.inv(Einv)
+    Eta = np.linalg.inv(Einv)
     if normals is None:
         normals = normal_field_matrices(inclusions, lattice, dmn, inverse)
-    Nxx, Nxy, Nyy = normals
+    Rt, Rn = normal_projector_roots(normals)
+    zero = np.zeros_like(E)
+    E2 = np.concatenate([np.concatenate([E, zero], -1), np.concatenate([zero, E], -1)], -2)
+    H2 = np.concatenate([np.concatenate([Eta, zero], -1), np.concatenate([zero, Eta], -1)], -2)
+    T = np.matmul(np.matmul(Rt, E2), Rt) + np.matmul(np.matmul(Rn, H2), Rn)
+    return LayerMatrices(T[:, :M, :M], T[:, :M, M:], T[:, M:, :M], T[:, M:, M:], ezz_inv)
 
-    def sym(N):
-        return 0.5 * (np.matmul(Delta, N) + np.matmul(N, Delta))
 
-    exy = -sym(Nxy)
-    return LayerMatrices(E - sym(Nxx), exy, exy, E - sym(Nyy), ezz_inv)
+def normal_projector_roots(normals):
+    """Square roots (2M, 2M) of the block-Toeplitz projectors on the tangential and normal
+    field directions, P_n = [[n n^T]] and P_t = I - P_n (both positive semidefinite, being
+    Toeplitz matrices of positive semidefinite matrix functions), by ``eigh``.
+
+    The in-plane operator is then eps = P_t^1/2 [[eps]] P_t^1/2 + P_n^1/2 [[1/eps]]^-1
+    P_n^1/2: Laurent's rule where the field is tangential to the boundaries, the inverse
+    rule where it is normal (the normal-vector method of Schuster et al. 2007), written as
+    a congruence so that it is Hermitian for lossless media (energy conserved), has a
+    positive semidefinite anti-Hermitian part for passive ones (absorption never
+    negative, which the product form (Delta N + N Delta)/2 does not guarantee for
+    metals), and is invariant under G -> -G with transposition (reciprocity).
+    Plain values (the normal field is not differentiated).
+    """
+    Nxx, Nxy, Nyy = (onp.asarray(getval(n)) for n in normals)
+    Pn = onp.block([[Nxx, Nxy], [Nxy, Nyy]])
+    Pn = 0.5 * (Pn + Pn.conj().T)
+    w, U = onp.linalg.eigh(Pn)
+    w = onp.clip(w, 0.0, 1.0)
+    Rn = (U * onp.sqrt(w)) @ U.conj().T
+    Rt = (U * onp.sqrt(1.0 - w)) @ U.conj().T
+    return Rt, Rn
 
 
 def check_factorization(name: str) -> str:
