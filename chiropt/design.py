@@ -570,7 +570,8 @@ def _particle(raw: Any, key: str) -> ParticleSpec:
     height = None
     if shape == "sphere":
         if "height_nm" in raw:
-            raise InputError(f"{key}.height_nm", "only for columns and spheroids, not spheres")
+            raise InputError(f"{key}.height_nm", "only for shape cylinder or spheroid (and the "
+                             "Fourier solver's columns), not spheres")
     else:
         if "height_nm" not in raw:
             raise InputError(f"{key}.height_nm", f"missing; a {shape} needs its height")

@@ -106,7 +106,7 @@ def evaluate(design: Design, *, keep_solution: bool = False,
         check = validity(design, out) if with_validity else None
     st, sol, frac, metrics = out.structure, out.solution, out.fractions, out.metrics
     if check is not None and check["worst"] > VALIDITY_TOLERANCE:
-        notes.append(f"{check['label']} may be too few: the finer model "
+        notes.append(f"{check['label']} may be too low: the finer model "
                      f"({check['label_check']}) changes a reported quantity by "
                      f"{check['worst']:.2g} (> {VALIDITY_TOLERANCE:g})")
     for w in caught:
