@@ -83,3 +83,35 @@ def test_export_cli(tmp_path):
                           "--cells", "0"], cwd=ROOT, capture_output=True, text=True,
                          timeout=120)
     assert bad.returncode == 2 and "--cells" in bad.stderr
+
+
+def test_layout_draws_the_fourier_shapes_with_their_areas(tmp_path):
+    # footprint areas against the closed forms (box minus its four rounded corners, ring,
+    # ellipse pi a b; common practice, no source), to the layout's polygon tolerance
+    import math
+
+    import gdstk
+
+    from chiropt.design import design_from_dict
+    from chiropt.export.layout import write_gds
+
+    d = design_from_dict({
+        "lattice": {"kind": "square", "period_nm": 420},
+        "particles": [
+            {"shape": "box", "size_nm": [200, 120], "angle_deg": 30, "corner_radius_nm": 20,
+             "height_nm": 90, "material": {"n": 3.5}, "position_nm": [-80, 0]},
+            {"shape": "ring", "radius_nm": 70, "inner_radius_nm": 30, "height_nm": 140,
+             "material": {"n": 2.4}, "position_nm": [120, 120]},
+            {"shape": "elliptic_cylinder", "radius_nm": 50, "radius_b_nm": 25,
+             "angle_deg": 10, "height_nm": 60, "material": {"n": 2.0},
+             "position_nm": [120, -110]}],
+        "substrate": {"material": {"n": 1.5}},
+        "illumination": {"wavelength_nm": 700},
+        "model": {"solver": "fourier", "harmonics": 25}})
+    lib = gdstk.read_gds(str(write_gds(d, tmp_path / "a.gds", cells=1)))
+    unit = next(c for c in lib.cells if c.name == "UNIT")
+    areas = sorted(p.area() * 1e6 for p in unit.polygons)   # nm^2
+    expected = sorted([200 * 120 - (4 - math.pi) * 20 ** 2, math.pi * (70 ** 2 - 30 ** 2),
+                       math.pi * 50 * 25])
+    for got, want in zip(areas, expected, strict=True):
+        assert abs(got - want) < 0.02 * want

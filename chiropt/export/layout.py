@@ -15,6 +15,8 @@ database precision.
 
 from __future__ import annotations
 
+import math
+
 import json
 from pathlib import Path
 from typing import Any
@@ -63,10 +65,7 @@ def write_gds(design: Design, path: str | Path, *, cells: int = 10) -> Path:
     lib = gdstk.Library(unit=1e-6, precision=1e-9)
     unit = lib.new_cell("UNIT")
     for part in design.particles:
-        centre = onp.asarray(part.position_nm) / 1000.0
-        unit.add(gdstk.ellipse(tuple(centre), part.radius_nm / 1000.0,
-                               tolerance=LAYOUT_TOLERANCE_NM / 1000.0,
-                               layer=layers[_label(part.material)]))
+        unit.add(_outline(gdstk, part, layers[_label(part.material)]))
     top = lib.new_cell("ARRAY")
     ref = gdstk.Reference(unit, (0, 0))
     ref.repetition = gdstk.Repetition(columns=cells, rows=cells, v1=tuple(a1), v2=tuple(a2))
@@ -74,6 +73,27 @@ def write_gds(design: Design, path: str | Path, *, cells: int = 10) -> Path:
     path = Path(path)
     lib.write_gds(str(path))
     return path
+
+
+def _outline(gdstk, part, layer):
+    """The particle's footprint [um]: a disc, an ellipse, a (rounded) rectangle or a ring,
+    rotated by ``angle_deg`` about its centre."""
+    centre = tuple(onp.asarray(part.position_nm) / 1000.0)
+    tol = LAYOUT_TOLERANCE_NM / 1000.0
+    angle = math.radians(part.angle_deg or 0.0)
+    if part.shape == "box":
+        w, d = (v / 1000.0 for v in part.size_nm)
+        shape = gdstk.rectangle((-w / 2, -d / 2), (w / 2, d / 2), layer=layer)
+        if part.corner_radius_nm:
+            shape.fillet(part.corner_radius_nm / 1000.0, tolerance=tol)
+        return shape.rotate(angle).translate(*centre)
+    if part.shape == "elliptic_cylinder":
+        shape = gdstk.ellipse((0.0, 0.0), (part.radius_nm / 1000.0, part.radius_b_nm / 1000.0),
+                              tolerance=tol, layer=layer)
+        return shape.rotate(angle).translate(*centre)
+    inner = part.inner_radius_nm / 1000.0 if part.shape == "ring" else None
+    return gdstk.ellipse(centre, part.radius_nm / 1000.0, inner_radius=inner, tolerance=tol,
+                         layer=layer)
 
 
 def fullwave_setup(design: Design) -> dict:
@@ -102,6 +122,11 @@ def fullwave_setup(design: Design) -> dict:
                  "height_nm": 2 * part.half_height_nm,
                  "centre_nm": (onp.asarray(st.centres[i]) * 1e9).tolist(),
                  "material": nk(part.material, f"particles[{i}].material")}
+        for extra in ("radius_b_nm", "angle_deg", "size_nm", "corner_radius_nm",
+                      "inner_radius_nm"):
+            if getattr(part, extra) is not None:
+                entry[extra] = (list(getattr(part, extra)) if extra == "size_nm"
+                                else getattr(part, extra))
         if part.core_radius_nm is not None:
             entry["core"] = {"radius_nm": part.core_radius_nm,
                              "material": nk(part.core_material, f"particles[{i}].core_material")}
