@@ -201,6 +201,19 @@ class GoalProblem:
         self._index = {id(s): onp.array([pos[w] for w in s.wavelengths_nm]) for s in specs}
         self._specs = specs  # keep the ids alive
         self.eval_design = goal.design.with_wavelengths(union)
+        self.model_note = ""
+        if self.eval_design.solver == "fourier" and self.eval_design.harmonics == "auto":
+            # one convergence scan at the base design fixes the count for the whole search
+            # (a count that moved between evaluations would make the objective jump)
+            from dataclasses import replace as _replace
+
+            from chiropt.model import run_model
+
+            out = run_model(self.eval_design)
+            self.eval_design = _replace(self.eval_design, harmonics=int(out.harmonics))
+            self.model_note = (f"harmonics: auto chose {out.harmonics} at the base design "
+                               f"(last change {out.harmonics_change or float('nan'):.2g}); "
+                               "the search uses it")
         self.reference_nm = float(goal.design.illumination.wavelength_nm[0])
         self.shift_index = (self.paths.index(WAVELENGTH_PATH) if WAVELENGTH_PATH in self.paths
                             else None)
