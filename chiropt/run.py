@@ -873,8 +873,36 @@ def run_goal_file(path: str | Path, *, out: str | Path | None = None, workers: i
     if len(summaries) > 1:
         from chiropt.report.front import plot_comparison
 
-        plot_comparison(summaries, root / f"{goals[0].name}-compare.png")
+        ref = write_comparison(summaries, root / f"{goals[0].name}-compare.json")
+        plot_comparison(summaries, root / f"{goals[0].name}-compare.png", reference=ref)
     return summaries
+
+
+def write_comparison(summaries: list[RunSummary], path: Path) -> list[float]:
+    """The runs of several materials at one reference point (the first goal's); returns it.
+
+    Every material of a goal file has the same objectives, so the default reference (and
+    a ``search.front.reference``) is the same for all; each hypervolume is recomputed at
+    that one point all the same.
+    """
+    goal = summaries[0].goal
+    ref, source = reference_point(goal)
+    labels = [objective_label(o, GoalProblem(goal)) for o in goal.objectives]
+    senses = tuple(o.sense for o in goal.objectives)
+    runs = {}
+    for s in summaries:
+        F = s.front_objectives if s.front_objectives is not None else onp.zeros((0, len(ref)))
+        hv = hypervolume(F, senses, ref) if len(F) and len(ref) == 2 else None
+        best = [None if not len(F) else float(F[:, k].max() if sense == "max"
+                                              else F[:, k].min())
+                for k, sense in enumerate(senses)]
+        runs[s.goal.run_name] = {"material": s.goal.material, "status": s.status,
+                                 "evaluations": s.n_evaluations, "hypervolume": hv,
+                                 "best": dict(zip(labels, best, strict=True))}
+    data = {"goal": goal.name, "reference": dict(zip(labels, ref, strict=True)),
+            "reference_source": source, "runs": runs}
+    path.write_text(json.dumps(data, indent=1) + "\n")
+    return list(ref)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -1079,7 +1107,8 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
                       f"{dict(zip(olabels, summary.reference, strict=True))}; {ref_source})")
         cov = summary.coverage
         header.append(f"coverage: largest gap along the front {cov['largest_gap']:.4g} "
-                      "(fraction of the front's range); explored designs beyond the front: "
+                      "(objectives divided by the front's span); explored designs beyond the "
+                      "front: "
                       f"{cov['explored_beyond']} stored, {cov['scan_beyond']} scanned")
     for w in summary.coverage.get("warnings", []):
         log(f"WARNING: {w}")

@@ -15,10 +15,11 @@ Conventions (common practice, no source)
   violating one is kept, so the constraints are still seen there.
 - Seeding (two objectives): anchor ``k`` is searched from the ``starts`` explored
   feasible designs best in objective ``k``, each from another geometry; the normalization
-  ``h = (z - ideal) / scale`` uses the explored front's extremes; epsilon-constraint level
-  ``i`` (of ``points - 2``) bounds ``h_2 <= 1 - i / (points - 1)``, so the levels span the
-  whole explored range of objective 2; each level is searched from the ``starts`` explored
-  designs best in objective 1 among those meeting the level.
+  ``h = (z - ideal) / scale`` uses the explored front's extremes; the ``points - 2``
+  epsilon-constraint levels bound ``h_2`` at the values of explored front points spread
+  evenly by arc length along the explored front (``_levels``), so they span the whole
+  explored range of objective 2 and go where the front is; each level is searched from
+  the ``starts`` explored designs best in objective 1 among those meeting the level.
 """
 
 from __future__ import annotations
@@ -113,6 +114,24 @@ def _best_distinct(order, group, starts: int) -> list[int]:
     return out
 
 
+def _levels(Hf: np.ndarray, points: int) -> list[float]:
+    """Bounds on h_2 of the ``points - 2`` levels: the h_2 of the explored front points
+    nearest to ``points - 2`` equally spaced arc lengths along that front (normalized
+    objectives, sorted by h_1), duplicates dropped. They span the explored range of
+    objective 2 and follow the front where it lies, also across gaps of a broken front."""
+    if points <= 2 or len(Hf) < 2:
+        return []
+    Hs = Hf[np.argsort(Hf[:, 0])]
+    arc = np.concatenate([[0.0], np.cumsum(np.linalg.norm(np.diff(Hs, axis=0), axis=1))])
+    out: list[float] = []
+    for i in range(1, points - 1):
+        j = int(np.argmin(np.abs(arc - arc[-1] * i / (points - 1))))
+        b = float(Hs[j, 1])
+        if 0.0 < b < 1.0 and all(abs(b - c) > 1e-9 for c in out):
+            out.append(b)
+    return out
+
+
 def seed_plan(X, F, group, senses, starts: int, points: int) -> SeedPlan | None:
     """Seeding plan from the explored feasible designs (None when there are none).
 
@@ -142,8 +161,7 @@ def seed_plan(X, F, group, senses, starts: int, points: int) -> SeedPlan | None:
     plan.ideal = ideal
     plan.scale = np.where(span > 1e-12 * (np.abs(ideal) + 1.0), span, np.abs(ideal) + 1.0)
     H = (Z - ideal) / plan.scale
-    for i in range(1, points - 1):
-        bound = 1.0 - i / (points - 1)
+    for bound in _levels(H[front], points):
         meets = np.flatnonzero(H[:, 1] <= bound + 1e-12)
         order = meets[np.lexsort((H[meets, 1], H[meets, 0]))]
         plan.levels.append((bound, [X[j] for j in _best_distinct(order, group, starts)]))
