@@ -940,12 +940,13 @@ def _columns(problem: GoalProblem) -> list[tuple[str, str, Any]]:
 REACH_FRACTION = 1e-3  # an extreme counts as reached within this share of the front's span
 
 
-def coverage(goal: Goal, uniq, F, feas, chosen, scans: dict) -> dict:
+def coverage(goal: Goal, uniq, X, F, feas, chosen, scans: dict) -> dict:
     """How well the front covers what the run saw (module notes of ``write_report``).
 
     ``largest_gap``: largest distance between neighbours along the front, each objective
-    divided by the front's span; ``explored_beyond``: stored explored feasible designs no
-    front point weakly dominates (zero when the front holds every stored evaluation);
+    divided by the front's span; ``explored_beyond``: stored explored feasible designs that
+    no front row weakly dominates and that do not coincide with a front row (merge
+    tolerance): zero when the front holds every stored evaluation;
     ``scan_beyond``: the same for the scanned points (at the scan's model); ``extremes``:
     per objective the best front value and the searches that reached it (within
     ``REACH_FRACTION`` of the span); ``warnings``: extremes reached by a single search.
@@ -962,17 +963,19 @@ def coverage(goal: Goal, uniq, F, feas, chosen, scans: dict) -> dict:
     scale = onp.where(span > 0, span, onp.abs(Zf).max(axis=0) + 1.0)
     tol = 1e-9 * scale
 
-    def beyond(Z) -> int:
+    def beyond(Z) -> onp.ndarray:
         Z = onp.asarray(Z, float).reshape(-1, len(senses))
         if len(Z) == 0:
-            return 0
-        dominated = onp.all(Zf[None, :, :] <= Z[:, None, :] + tol, axis=2).any(axis=1)
-        return int((~dominated).sum())
+            return onp.zeros(0, bool)
+        return ~onp.all(Zf[None, :, :] <= Z[:, None, :] + tol, axis=2).any(axis=1)
 
     explored = [i for i, r in enumerate(uniq) if r.stage == "explore" and feas[i]]
-    out["explored_beyond"] = beyond(F[explored] * sign)
+    out["explored_beyond"] = sum(
+        1 for i, b in zip(explored, beyond(F[explored] * sign), strict=True)
+        if b and merge_coinciding(goal, X, [*chosen, i])[-1] == i)
     scanned = [f for sc in scans.values() for f in sc.get("F", []) if f is not None]
-    out["scan_beyond"] = beyond(onp.asarray(scanned, float) * sign) if scanned else 0
+    if scanned:
+        out["scan_beyond"] = int(beyond(onp.asarray(scanned, float) * sign).sum())
     if len(senses) == 2 and len(chosen) > 1:
         order = onp.argsort(Zf[:, 0])
         Zn = Zf[order] / scale
@@ -1048,10 +1051,11 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
                                                    key=lambda i: -sign[0] * F[i, 0]))
     ref, ref_source = reference_point(goal)
     summary.reference, summary.reference_source = [float(v) for v in ref], ref_source
-    if M == 2:
-        summary.hypervolume = (hypervolume(F[chosen], senses, ref)
+    if M == 2:  # every feasible non-dominated evaluation (merging only shortens the table)
+        nd = non_dominated(onp.where(pool[:, None], F, onp.nan), senses) if chosen else []
+        summary.hypervolume = (hypervolume(F[nd], senses, ref)
                                if chosen and feas.any() else 0.0)
-    summary.coverage = coverage(goal, uniq, F, feas, chosen, store.scans())
+    summary.coverage = coverage(goal, uniq, X, F, feas, chosen, store.scans())
     # table
     extra = _columns(problem)
     olabels = [objective_label(o, problem) for o in goal.objectives]

@@ -177,7 +177,7 @@ def test_hypervolume_ignores_unrelated_evaluations(small_run, tmp_path):
 
 def test_materials_share_the_reference_point(tmp_path):
     text = GOAL.replace("seed: 2\n", "seed: 2\nmaterials: [Si, TiO2]\n").replace(
-        "  front: {points: 3, reference: {g: 0.5, docp: 0.5}}\n", "  front: {points: 3}\n"
+        "  front: {points: 5, reference: {g: 0.5, docp: 0.5}}\n", "  front: {points: 3}\n"
     ).replace("samples: 64", "samples: 8").replace("max_evals_per_start: 25",
                                                   "max_evals_per_start: 3")
     summaries = run_goal_file(_write(tmp_path, text), out=tmp_path / "runs", workers=0,
