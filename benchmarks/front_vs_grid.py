@@ -1,7 +1,7 @@
 """Front of a run against a brute-force grid front of the same goal (run by hand).
 
 Usage: python benchmarks/front_vs_grid.py GOAL.yaml [RUN_DIR ...] [--material Si]
-       [--points R,P,W] [--lmax N]
+       [--points R,P,W] [--lmax N] [--cache grid.npz]
 
 The grid: every geometry variable on R (then P) equally spaced values, the wavelength
 variable scanned on W values in one vectorized solve per geometry (chiropt.goals.scan),
@@ -61,13 +61,20 @@ def main(argv=None):
     ap.add_argument("--material", default=None)
     ap.add_argument("--points", default="33,33,41")
     ap.add_argument("--lmax", type=int, default=None)
+    ap.add_argument("--cache", default=None, help="npz file keeping the grid front")
     a = ap.parse_args(argv)
     goals = load_goal(a.goal)
     goal = next(g for g in goals if a.material in (None, g.material))
     senses = tuple(o.sense for o in goal.objectives)
     ref, _ = reference_point(goal)
     t0 = time.time()
-    Fg, n_feas = grid_front(goal, [int(p) for p in a.points.split(",")], a.lmax)
+    if a.cache and Path(a.cache).exists():
+        data = onp.load(a.cache)
+        Fg, n_feas = data["F"], int(data["n"])
+    else:
+        Fg, n_feas = grid_front(goal, [int(p) for p in a.points.split(",")], a.lmax)
+        if a.cache:
+            onp.savez(a.cache, F=Fg, n=n_feas)
     hv_g = hypervolume(Fg, senses, ref)
     print(f"grid {a.points} ({goal.run_name}, lmax {a.lmax or goal.design.lmax}): "
           f"{n_feas} feasible points, {time.time() - t0:.0f} s; best "

@@ -72,10 +72,22 @@ Metrics
     ISRES, ESCH), ``starts`` (number of scrambled-Sobol start points, default 4),
     ``xtol_rel`` (default 1e-6), ``ftol_rel`` (default 1e-8), ``max_evals_per_start``
     (evaluation cap of every local search, default 150), ``front: {method:
-    epsilon-constraint | weighted-sum, points: N}`` (two objectives only; default
-    epsilon-constraint, 9 points including the two anchors). With two objectives each start
-    traces a whole front from its own start point; the reported front is the non-dominated
-    set of every feasible evaluation of the run.
+    epsilon-constraint | weighted-sum, points: N, reference: {METRIC: V, ...}}`` (two
+    objectives only; default epsilon-constraint, 9 points including the two anchors;
+    ``reference`` is the hypervolume reference point, one value per objective keyed by its
+    metric or its label such as ``g@700nm``; default: the incident plane wave's value of
+    each metric, g, c, u, s0 = 1, docp = 0). ``explore: {samples: N, share: F,
+    wavelength_points: P, keep: K, batch: B, lmax: L}``: the global exploration that runs
+    before the local searches: N scrambled-Sobol geometries (default: the share F, 0.25, of
+    the evaluation budget, divided by K; ``samples: 0`` switches it off), each solved over
+    P values of a wavelength variable (default 21) in one vectorized solve, its K best
+    points (default 3; two objectives: spread along the scan's own front) evaluated and
+    stored; B geometries per task (default 16); L the multipole order of the scan (default
+    the goal's model; the kept points are always evaluated at the goal's model). The local
+    searches start from the best explored feasible designs: ``starts`` searches per anchor
+    and per epsilon-constraint level, the levels spread along the explored front. The
+    reported front is the non-dominated set of every feasible evaluation of the run,
+    explored ones included.
 ``budget``
     ``wall_time`` (``8h``, ``90m``, ``1h30m``, ``45s`` or a number of seconds) and/or
     ``evaluations`` (a total, split evenly over the local searches so that a run stays
