@@ -74,7 +74,7 @@ from chiropt.search.driver import minimize
 from chiropt.search.executor import ProcessExecutor, SerialExecutor
 from chiropt.goals.reference import reference_point
 from chiropt.goals.scan import explore_grid, scan_wavelengths
-from chiropt.search.explore import pick_along_axis, search_key, seed_plan
+from chiropt.search.explore import anchor_starts, pick_along_axis, search_key, seed_plan
 from chiropt.search.fronts import (Scalarized, anchor_second_stage, epsilon_constraint,
                                    weighted_sum)
 from chiropt.search.multistart import sobol_starts, start_seed
@@ -279,9 +279,12 @@ EXPLORE_SEED = 2**20  # the stream of the exploration sample (starts use 0, 1, .
 
 
 def _local_count(goal: Goal) -> tuple[int, int]:
+    """(local searches of a seeded run, searches per start of an unseeded one)."""
     s = goal.search
-    per_start = 1 if len(goal.objectives) == 1 else 4 + max(0, s.front_points - 2)
-    return s.starts * per_start, per_start
+    if len(goal.objectives) == 1:
+        return s.starts, 1
+    levels = max(0, s.front_points - 2)
+    return 4 * anchor_starts(s.starts) + levels * s.starts, 4 + levels
 
 
 def plan_searches(goal: Goal) -> tuple[int, int]:

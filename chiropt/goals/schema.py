@@ -84,10 +84,10 @@ Metrics
     points (default 3; two objectives: spread along the scan's own front) evaluated and
     stored; B geometries per task (default 16); L the multipole order of the scan (default
     the goal's model; the kept points are always evaluated at the goal's model). The local
-    searches start from the best explored feasible designs: ``starts`` searches per anchor
-    and per epsilon-constraint level, the levels spread along the explored front. The
-    reported front is the non-dominated set of every feasible evaluation of the run,
-    explored ones included.
+    searches start from the best explored feasible designs: ``max(2, starts)`` searches per
+    anchor and ``starts`` per epsilon-constraint level, the levels spread along the
+    explored front. The reported front is the non-dominated set of every feasible
+    evaluation of the run, explored ones included.
 ``budget``
     ``wall_time`` (``8h``, ``90m``, ``1h30m``, ``45s`` or a number of seconds) and/or
     ``evaluations`` (a total, split evenly over the local searches so that a run stays

@@ -160,7 +160,8 @@ def plot_front(path, problem, records, F, feasible, chosen, picks) -> Path:
         ax.set_xlabel(f"DOCP, helicity average, at {where} [-]")
         ax.set_ylabel(f"CD enhancement g at {where} [-]")
         ax.set_title("(DOCP, g) plane")
-        ax.legend(loc="best")
+        if ax.get_legend_handles_labels()[0]:
+            ax.legend(loc="best")
     fig.suptitle(f"run {goal.run_name}", fontsize=10, color=PALETTE["c"])
     path = Path(path)
     save(fig, path)
@@ -219,8 +220,9 @@ def plot_convergence(path, problem, records, *, reference) -> Path:
     else:
         ax.set_ylabel("hypervolume of the feasible front [objective units²]")
     ax.set_xlabel("evaluation of this search [-]")
-    ax.set_title(f"convergence of each start, run {goal.run_name}")
-    ax.legend(loc="best")
+    ax.set_title(f"convergence of each search, run {goal.run_name}")
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(loc="best")
     path = Path(path)
     save(fig, path)
     return path

@@ -13,8 +13,8 @@ Conventions (common practice, no source)
   ``keep``: the extreme of each objective first, then the ones farthest (in the scan's own
   normalized objectives) from those already kept. Without a feasible point the least
   violating one is kept, so the constraints are still seen there.
-- Seeding (two objectives): anchor ``k`` is searched from the ``starts`` explored
-  feasible designs best in objective ``k``, each from another geometry; the normalization
+- Seeding (two objectives): anchor ``k`` is searched from the ``max(2, starts)``
+  explored feasible designs best in objective ``k``, each from another geometry; the normalization
   ``h = (z - ideal) / scale`` uses the explored front's extremes; the ``points - 2``
   epsilon-constraint levels bound ``h_2`` at the values of explored front points spread
   evenly by arc length along the explored front (``_levels``), so they span the whole
@@ -30,7 +30,7 @@ import numpy as np
 
 from chiropt.search.pareto import non_dominated, to_minimization
 
-__all__ = ["SeedPlan", "pick_along_axis", "search_key", "seed_plan"]
+__all__ = ["SeedPlan", "anchor_starts", "pick_along_axis", "search_key", "seed_plan"]
 
 
 def search_key(stage: str, start: int) -> str:
@@ -102,6 +102,12 @@ class SeedPlan:
     scale: np.ndarray = field(default_factory=lambda: np.ones(2))
 
 
+def anchor_starts(starts: int) -> int:
+    """Searches per anchor of a front: ``starts``, but at least 2 (an extreme found by a
+    single search is easily a local one)."""
+    return max(2, int(starts))
+
+
 def _best_distinct(order, group, starts: int) -> list[int]:
     out, seen = [], set()
     for i in order:
@@ -150,7 +156,8 @@ def seed_plan(X, F, group, senses, starts: int, points: int) -> SeedPlan | None:
     plan = SeedPlan()
     for k in range(M):
         order = np.lexsort(tuple(Z[:, j] for j in reversed(range(M)) if j != k) + (Z[:, k],))
-        plan.anchors.append([X[i] for i in _best_distinct(order, group, starts)])
+        n = anchor_starts(starts) if M == 2 else starts
+        plan.anchors.append([X[i] for i in _best_distinct(order, group, n)])
     if M == 1:
         return plan
     front = non_dominated(F, senses)
