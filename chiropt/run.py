@@ -786,12 +786,20 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
             bar.close()
             log.bar = None
     errors = [o for o in outcomes.values() if o.status == "error"]
-    for o in errors:
-        log(f"search {o.index} failed: {o.message}")
+    for key, o in outcomes.items():
+        if o.status == "error":
+            log(f"{key} failed: {o.message}")
     if status == "complete":
         if errors:
-            status = (f"failed: {len(errors)} of {len(tasks)} searches failed (first: search "
-                      f"{errors[0].index}: {errors[0].message[:200]})")
+            kinds = {t.key: isinstance(t, ExploreTask) for t in tasks}
+            bad = [k for k, o in outcomes.items() if o.status == "error"]
+            n_x = sum(kinds[k] for k in bad)
+            n_all_x = sum(kinds.values())
+            what = [f"{len(bad) - n_x} of {len(tasks) - n_all_x} searches"] if n_x < len(bad) \
+                else []
+            what += [f"{n_x} of {n_all_x} exploration batches"] if n_x else []
+            status = (f"failed: {' and '.join(what)} failed (first: {bad[0]}: "
+                      f"{outcomes[bad[0]].message[:200]})")
         elif any(o.status == "deadline" for o in outcomes.values()):
             status = "stopped: wall-time budget spent (run the same command to continue)"
         elif len(outcomes) < len(tasks):
