@@ -614,6 +614,7 @@ class RunSummary:
     front_objectives: onp.ndarray | None = None
     reference_source: str = ""
     coverage: dict = field(default_factory=dict)
+    nondominated: onp.ndarray | None = None  # every feasible non-dominated evaluation
 
     def to_json(self) -> dict:
         """The run's figures as plain data (``summary.json``)."""
@@ -902,7 +903,8 @@ def write_comparison(summaries: list[RunSummary], path: Path) -> list[float]:
     senses = tuple(o.sense for o in goal.objectives)
     runs = {}
     for s in summaries:
-        F = s.front_objectives if s.front_objectives is not None else onp.zeros((0, len(ref)))
+        F = next((a for a in (s.nondominated, s.front_objectives) if a is not None),
+                 onp.zeros((0, len(ref))))
         hv = hypervolume(F, senses, ref) if len(F) and len(ref) == 2 else None
         best = [None if not len(F) else float(F[:, k].max() if sense == "max"
                                               else F[:, k].min())
@@ -1066,6 +1068,7 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         nd = non_dominated(onp.where(pool[:, None], F, onp.nan), senses) if chosen else []
         summary.hypervolume = (hypervolume(F[nd], senses, ref)
                                if chosen and feas.any() else 0.0)
+        summary.nondominated = F[nd] if chosen and feas.any() else onp.zeros((0, M))
     summary.coverage = coverage(goal, uniq, X, F, feas, chosen, store.scans())
     # table
     extra = _columns(problem)
