@@ -11,16 +11,26 @@ Run folder ``<out>/<name>-<material>/``
   objectives, constraints, status, reason, wall time). The source of truth: everything below
   is regenerated from it (``write_report``).
 - ``front.csv``: the non-dominated feasible set (one objective: the best design of each
-  search), hypervolume in a header line; ``candidates/c<index>.yaml``: design files of up to
+  search), hypervolume at the goal's fixed reference point (``chiropt.goals.reference``)
+  and coverage figures in header lines; ``summary.json`` (the same figures as data);
+  ``candidates/c<index>.yaml``: design files of up to
   ``front.points`` (one objective: 10) front points spread along the front, which
   ``chiropt evaluate`` reproduces; ``front.png``, ``convergence.png``; ``run.log``.
 
 Searches
 --------
-- One objective: one local search per scrambled-Sobol start (stage ``start``, search k).
-- Two objectives: every start traces a whole front (epsilon-constraint or weighted sum) from
-  its own start point (stage ``front-k``); the reported front is the non-dominated set of
-  every feasible evaluation of the run.
+- Exploration first (``search.explore``): scrambled-Sobol geometries in batches (tasks
+  ``explore-b``), each scanned along a wavelength variable in one vectorized solve
+  (``chiropt.goals.scan``; the scan kept in the store's ``scans`` table), its best points
+  evaluated at the goal's model (stage ``explore``, search = geometry index).
+- Then the local searches, seeded from the explored feasible designs
+  (``chiropt.search.explore.seed_plan``). One objective: ``starts`` local searches from
+  the best explored designs (stage ``start``, search k). Two objectives: lexicographic
+  anchors (stages ``anchor1``/``anchor2`` then ``anchor1-lex``/``anchor2-lex``, search j)
+  and epsilon-constraint (or weighted-sum) levels (stage ``level-i``, search j), all
+  independent, so they run in parallel. Without a feasible explored design: Sobol starts,
+  each tracing a whole front (stage ``front-k``). The reported front is the non-dominated
+  set of every feasible evaluation of the run, explored ones included.
 - Searches run through an ``Executor`` (a process pool by default; ``workers=0`` runs them
   in this process). Each search has a fixed evaluation cap, ``max_evals_per_start`` lowered
   to ``budget.evaluations / number of searches``, so results do not depend on timing.
@@ -28,9 +38,11 @@ Searches
   The wall-time budget counts per invocation; when it runs out, fresh evaluations stop
   (``DeadlineReached``, never stored) and the report is written from what is stored.
 - Resume identity (``goal_identity``): everything that changes evaluations; not the
-  ``description`` and not the budgets (``max_evals_per_start``, ``budget.evaluations``,
-  ``budget.wall_time``), which may grow to extend a finished run (see the store's
-  ``supersede``).
+  ``description``, not the hypervolume reference and not the budgets
+  (``max_evals_per_start``, ``budget.evaluations``, ``budget.wall_time``, the
+  exploration's ``samples``/``share``/``batch``), which may grow to extend a finished run:
+  a changed search plan (cap or number of explored geometries) continues the searches and
+  keeps the rows off their new paths as superseded (see the store's ``supersede``).
 - Feasible: status ok and every scaled constraint ``<= FEASIBILITY_TOL``.
 - Front rows that coincide within ``merge_tolerance`` (every variable within
   ``max(xtol_rel |x|, MERGE_FRACTION (max - min))``) are merged into one row.
@@ -311,7 +323,9 @@ def local_tasks(goal: Goal, store: EvaluationStore, common: dict) -> tuple[list[
     problem = GoalProblem(goal)
     s = goal.search
     M = problem.n_objectives
-    recs = [r for r in store.records("explore") if r.evaluation.status == "ok"
+    n_explore = explore_size(goal)  # rows of a larger earlier exploration stay unused here
+    recs = [r for r in store.records("explore") if r.start < n_explore
+            and r.evaluation.status == "ok"
             and "objectives" in r.evaluation.metrics
             and all(v <= FEASIBILITY_TOL for v in r.evaluation.metrics.get("constraints", []))]
     X = onp.array([r.x for r in recs], float).reshape(len(recs), len(goal.variables))
@@ -351,6 +365,11 @@ def goal_identity(goal: Goal) -> str:
     for key in ("description", "budget"):
         d.pop(key, None)
     d["search"] = {k: v for k, v in d["search"].items() if k != "max_evals_per_start"}
+    # not evaluations either: the hypervolume reference, how geometries are batched, and
+    # the exploration's size (it may grow like a budget: the store's search plan)
+    d["search"]["front"].pop("reference", None)
+    d["search"]["explore"] = {k: v for k, v in d["search"]["explore"].items()
+                              if k not in ("batch", "samples", "share")}
     text = json.dumps(d, sort_keys=True, default=str)
     return hashlib.sha256(text.encode()).hexdigest()[:16]
 

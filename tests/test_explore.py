@@ -238,3 +238,20 @@ def test_kill_during_exploration_then_resume_gives_the_same_front(small_run, tmp
     assert s.status == "complete"
     assert _rows(s.run_dir) == _rows(reference.run_dir)
     assert onp.array_equal(s.front_objectives, reference.front_objectives)
+
+
+def test_a_new_reference_point_resumes_the_same_store(small_run, tmp_path):
+    # the reference decides no evaluation: the same run folder replays with another one,
+    # evaluates nothing new, and reports the hypervolume at the new point
+    import shutil
+
+    goal, s = small_run
+    shutil.copytree(s.run_dir, tmp_path / "runs" / s.run_dir.name)
+    (other,) = load_goal(_write(tmp_path, GOAL.replace("reference: {g: 0.5, docp: 0.5}",
+                                                       "reference: {g: 1.0, docp: 0.8}")))
+    again = run_goal(other, out=tmp_path / "runs", workers=0, progress=False)
+    assert again.status == "complete" and again.n_evaluations == s.n_evaluations
+    assert again.reference == [1.0, 0.8]
+    assert again.hypervolume == pytest.approx(
+        hypervolume(_store_front(s.run_dir), SENSES, [1.0, 0.8]), rel=1e-12)
+    assert again.hypervolume < s.hypervolume
