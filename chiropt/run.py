@@ -11,16 +11,26 @@ Run folder ``<out>/<name>-<material>/``
   objectives, constraints, status, reason, wall time). The source of truth: everything below
   is regenerated from it (``write_report``).
 - ``front.csv``: the non-dominated feasible set (one objective: the best design of each
-  search), hypervolume in a header line; ``candidates/c<index>.yaml``: design files of up to
+  search), hypervolume at the goal's fixed reference point (``chiropt.goals.reference``)
+  and coverage figures in header lines; ``summary.json`` (the same figures as data);
+  ``candidates/c<index>.yaml``: design files of up to
   ``front.points`` (one objective: 10) front points spread along the front, which
   ``chiropt evaluate`` reproduces; ``front.png``, ``convergence.png``; ``run.log``.
 
 Searches
 --------
-- One objective: one local search per scrambled-Sobol start (stage ``start``, search k).
-- Two objectives: every start traces a whole front (epsilon-constraint or weighted sum) from
-  its own start point (stage ``front-k``); the reported front is the non-dominated set of
-  every feasible evaluation of the run.
+- Exploration first (``search.explore``): scrambled-Sobol geometries in batches (tasks
+  ``explore-b``), each scanned along a wavelength variable in one vectorized solve
+  (``chiropt.goals.scan``; the scan kept in the store's ``scans`` table), its best points
+  evaluated at the goal's model (stage ``explore``, search = geometry index).
+- Then the local searches, seeded from the explored feasible designs
+  (``chiropt.search.explore.seed_plan``). One objective: ``starts`` local searches from
+  the best explored designs (stage ``start``, search k). Two objectives: lexicographic
+  anchors (stages ``anchor1``/``anchor2`` then ``anchor1-lex``/``anchor2-lex``, search j)
+  and epsilon-constraint (or weighted-sum) levels (stage ``level-i``, search j), all
+  independent, so they run in parallel. Without a feasible explored design: Sobol starts,
+  each tracing a whole front (stage ``front-k``). The reported front is the non-dominated
+  set of every feasible evaluation of the run, explored ones included.
 - Searches run through an ``Executor`` (a process pool by default; ``workers=0`` runs them
   in this process). Each search has a fixed evaluation cap, ``max_evals_per_start`` lowered
   to ``budget.evaluations / number of searches``, so results do not depend on timing.
@@ -28,9 +38,11 @@ Searches
   The wall-time budget counts per invocation; when it runs out, fresh evaluations stop
   (``DeadlineReached``, never stored) and the report is written from what is stored.
 - Resume identity (``goal_identity``): everything that changes evaluations; not the
-  ``description`` and not the budgets (``max_evals_per_start``, ``budget.evaluations``,
-  ``budget.wall_time``), which may grow to extend a finished run (see the store's
-  ``supersede``).
+  ``description``, not the hypervolume reference and not the budgets
+  (``max_evals_per_start``, ``budget.evaluations``, ``budget.wall_time``, the
+  exploration's ``samples``/``share``/``batch``), which may grow to extend a finished run:
+  a changed search plan (cap or number of explored geometries) continues the searches and
+  keeps the rows off their new paths as superseded (see the store's ``supersede``).
 - Feasible: status ok and every scaled constraint ``<= FEASIBILITY_TOL``.
 - Front rows that coincide within ``merge_tolerance`` (every variable within
   ``max(xtol_rel |x|, MERGE_FRACTION (max - min))``) are merged into one row.
@@ -72,12 +84,16 @@ from chiropt.model import LMAX_CAP, validity
 from chiropt.response import VALIDITY_TOLERANCE
 from chiropt.search.driver import minimize
 from chiropt.search.executor import ProcessExecutor, SerialExecutor
-from chiropt.search.fronts import Scalarized, epsilon_constraint, weighted_sum
+from chiropt.goals.reference import reference_point
+from chiropt.goals.scan import explore_grid, scan_wavelengths
+from chiropt.search.explore import anchor_starts, pick_along_axis, search_key, seed_plan
+from chiropt.search.fronts import (Scalarized, anchor_second_stage, epsilon_constraint,
+                                   weighted_sum)
 from chiropt.search.multistart import sobol_starts, start_seed
 from chiropt.search.pareto import hypervolume, non_dominated
 from chiropt.sensitivity import compute_quantities
 from chiropt.report.labels import objective_label, spec_label
-from chiropt.store.evaluations import CachingWrap, EvaluationStore, close_all
+from chiropt.store.evaluations import CachedProblem, CachingWrap, EvaluationStore, close_all
 
 try:
     import fcntl
@@ -90,6 +106,7 @@ __all__ = ["FEASIBILITY_TOL", "RunSummary", "plan_searches", "run_goal", "run_go
 FEASIBILITY_TOL = 1e-6
 STORE_NAME = "evaluations.sqlite"
 STOP_NAME = ".stop"
+SUMMARY_NAME = "summary.json"
 LOCK_NAME = ".lock"
 REPRODUCE_TOL = 1e-9
 MERGE_FRACTION = 1e-3
@@ -112,6 +129,40 @@ class SearchTask:
     deadline: float | None
     stop_file: str | None = None
     supersede_tag: str | None = None
+    kind: str = "trace"  # "trace" (a whole front), "single", "anchor", "level"
+    k: int = 0  # anchor: the objective; level: the level number (1, 2, ...)
+    start: int = 0  # index of the search among those of its anchor or level
+    bound: float = 0.0  # level: the bound on the normalized objective 2
+    ideal: tuple[float, ...] = ()
+    scale: tuple[float, ...] = ()
+
+    @property
+    def key(self) -> str:
+        """Label of the task (progress, convergence plot)."""
+        if self.kind == "trace":
+            return f"front-{self.index}"
+        if self.kind == "single":
+            return f"start-{self.index}"
+        if self.kind == "anchor":
+            return search_key(f"anchor{self.k + 1}", self.start)
+        return search_key(f"level-{self.k}", self.start)
+
+
+@dataclass(frozen=True)
+class ExploreTask:
+    """A batch of exploration geometries: each scanned, its kept points evaluated."""
+
+    goal: Goal
+    store_path: str
+    index: int
+    geometries: tuple[int, ...]
+    X: onp.ndarray
+    deadline: float | None
+    stop_file: str | None = None
+
+    @property
+    def key(self) -> str:
+        return f"explore-{self.index}"
 
 
 @dataclass
@@ -123,9 +174,9 @@ class TaskOutcome:
     message: str = ""
 
 
-def _run_task(task: SearchTask) -> TaskOutcome:
+def _run_task(task: SearchTask | ExploreTask) -> TaskOutcome:
     try:
-        return _search(task)
+        return _explore(task) if isinstance(task, ExploreTask) else _search(task)
     except Exception as exc:  # a search that dies is a failed search, never a silent one
         return TaskOutcome(task.index, "error", f"{type(exc).__name__}: {exc}")
     finally:
@@ -139,11 +190,25 @@ def _search(task: SearchTask) -> TaskOutcome:
     s = goal.search
     options = dict(max_evals=task.max_evals, xtol_rel=s.xtol_rel, ftol_rel=s.ftol_rel,
                    feasibility_tol=FEASIBILITY_TOL)
+    M = problem.n_objectives
     try:
-        if problem.n_objectives == 1:
+        if M == 1:
             scal = Scalarized(problem, "single", 0, 0.0, [0.0], [1.0])
             minimize(wrap(scal, "start", task.index), task.x0, s.algorithm, seed=task.seed,
                      **options)
+        elif task.kind == "anchor":
+            stage = f"anchor{task.k + 1}"
+            scal = Scalarized(problem, "single", task.k, 0.0, onp.zeros(2), onp.ones(2))
+            first = minimize(wrap(scal, stage, task.start), task.x0, s.algorithm,
+                             seed=task.seed, **options)
+            scal, tol = anchor_second_stage(problem, task.k, first, ANCHOR_TOL, options)
+            minimize(wrap(scal, f"{stage}-lex", task.start), first.x_best, s.algorithm,
+                     seed=task.seed + 1, **{**options, "feasibility_tol": tol})
+        elif task.kind == "level":
+            kind = "bounded" if s.front_method == "epsilon-constraint" else "weighted"
+            scal = Scalarized(problem, kind, 0, task.bound, task.ideal, task.scale)
+            minimize(wrap(scal, f"level-{task.k}", task.start), task.x0, s.algorithm,
+                     seed=task.seed, **options)
         else:
             trace = epsilon_constraint if s.front_method == "epsilon-constraint" else weighted_sum
             trace(problem, s.front_points, algorithm=s.algorithm, x0=task.x0, seed=task.seed,
@@ -155,15 +220,143 @@ def _search(task: SearchTask) -> TaskOutcome:
     return TaskOutcome(task.index, "done")
 
 
-def plan_searches(goal: Goal) -> tuple[int, int]:
-    """(number of local searches, evaluation cap of each) for a goal."""
+def _explore(task: ExploreTask) -> TaskOutcome:
+    """Scan each geometry along the wavelength axis (one solve), store the kept points.
+
+    A geometry's scan is stored (``EvaluationStore.put_scan``) before its kept points are
+    evaluated (stage ``explore``, search = geometry index), so a killed run resumes
+    without solving it again and replays what was evaluated.
+    """
+    goal = task.goal
+    e = goal.search.explore
+    problem = GoalProblem(goal, deadline=task.deadline, stop_file=task.stop_file)
+    M = problem.n_objectives
+    scal = Scalarized(problem, "single", 0, 0.0, onp.zeros(M), onp.ones(M))
+    store = EvaluationStore(task.store_path)
+    grid = explore_grid(problem, e.wavelength_points)
+    try:
+        for g, x in zip(task.geometries, task.X, strict=True):
+            scan = store.get_scan(g)
+            if scan is None:
+                problem.check_stop()
+                out = scan_wavelengths(problem, x, grid, e.lmax)
+                picks = pick_along_axis(out["F"], out["G"], out["ok"], problem.senses, e.keep,
+                                        FEASIBILITY_TOL)
+                viol = onp.max(onp.maximum(out["G"], 0.0), axis=1) if out["G"].shape[1] \
+                    else onp.zeros(len(out["F"]))
+                feas = out["ok"] & (viol <= FEASIBILITY_TOL)
+                scan = {"kept": [out["X"][i].tolist() for i in picks],
+                        "F": [f.tolist() if ok else None for f, ok in zip(out["F"], feas,
+                                                                          strict=True)],
+                        "error": out.get("error", "")}
+                store.put_scan(g, scan)
+            cached = CachedProblem(scal, task.store_path, "explore", g)
+            for xk in scan["kept"]:
+                cached.evaluate(onp.asarray(xk, float), False)
+    except DeadlineReached as exc:
+        return TaskOutcome(task.index, "deadline", str(exc))
+    return TaskOutcome(task.index, "done")
+
+
+ANCHOR_TOL = 1e-9
+EXPLORE_MIN = 8
+
+
+def explore_size(goal: Goal) -> int:
+    """Number of geometries the exploration samples (``search.explore``)."""
+    e = goal.search.explore
+    n_geom = sum(v.path != WAVELENGTH_PATH for v in goal.variables)
+    if e.samples is not None:
+        n = e.samples
+    else:
+        n_local, _ = _local_count(goal)
+        total = goal.budget.evaluations or n_local * goal.search.max_evals_per_start
+        n = max(EXPLORE_MIN, int(e.share * total) // e.keep) if e.share > 0 else 0
+    return min(n, 1) if n_geom == 0 else n
+
+
+def explore_points(goal: Goal, problem: GoalProblem) -> onp.ndarray:
+    """The sampled geometries (N, n): scrambled Sobol over the geometry variables, the
+    wavelength variable (scanned, not sampled) at its middle."""
+    n = explore_size(goal)
+    geo = [i for i, v in enumerate(goal.variables) if v.path != WAVELENGTH_PATH]
+    X = onp.repeat((0.5 * (problem.lower + problem.upper))[None], n, axis=0)
+    if n and geo:
+        X[:, geo] = sobol_starts(problem.lower[geo], problem.upper[geo], n,
+                                 seed=start_seed(goal.seed, EXPLORE_SEED))
+    return X
+
+
+EXPLORE_SEED = 2**20  # the stream of the exploration sample (starts use 0, 1, ...)
+
+
+def _local_count(goal: Goal) -> tuple[int, int]:
+    """(local searches of a seeded run, searches per start of an unseeded one)."""
     s = goal.search
-    per_start = 1 if len(goal.objectives) == 1 else 4 + max(0, s.front_points - 2)
-    n = s.starts * per_start
+    if len(goal.objectives) == 1:
+        return s.starts, 1
+    levels = max(0, s.front_points - 2)
+    return 4 * anchor_starts(s.starts) + levels * s.starts, 4 + levels
+
+
+def plan_searches(goal: Goal) -> tuple[int, int]:
+    """(number of local searches, evaluation cap of each) for a goal.
+
+    With ``budget.evaluations``, the exploration's share (``explore_size * keep``) is taken
+    first and the rest split evenly over the local searches.
+    """
+    s = goal.search
+    n, _ = _local_count(goal)
     cap = s.max_evals_per_start
     if goal.budget.evaluations is not None:
-        cap = max(1, min(cap, goal.budget.evaluations // n))
+        left = goal.budget.evaluations - explore_size(goal) * s.explore.keep
+        cap = max(1, min(cap, left // n))
     return n, cap
+
+
+def local_tasks(goal: Goal, store: EvaluationStore, common: dict) -> tuple[list[SearchTask], str]:
+    """The local searches, seeded from the stored explored designs; (tasks, how seeded).
+
+    Falls back to scrambled-Sobol starts (and, with two objectives, one whole front per
+    start) when the exploration found no feasible design.
+    """
+    problem = GoalProblem(goal)
+    s = goal.search
+    M = problem.n_objectives
+    n_explore = explore_size(goal)  # rows of a larger earlier exploration stay unused here
+    recs = [r for r in store.records("explore") if r.start < n_explore
+            and r.evaluation.status == "ok"
+            and "objectives" in r.evaluation.metrics
+            and all(v <= FEASIBILITY_TOL for v in r.evaluation.metrics.get("constraints", []))]
+    X = onp.array([r.x for r in recs], float).reshape(len(recs), len(goal.variables))
+    F = onp.array([r.evaluation.metrics["objectives"] for r in recs], float).reshape(-1, M)
+    plan = seed_plan(X, F, onp.array([r.start for r in recs]), problem.senses, s.starts,
+                     s.front_points)
+    if plan is None:
+        starts = sobol_starts(problem.lower, problem.upper, s.starts, seed=goal.seed)
+        kind = "single" if M == 1 else "trace"
+        return ([SearchTask(x0=starts[k], index=k, seed=start_seed(goal.seed, k), kind=kind,
+                            **common) for k in range(s.starts)],
+                "no feasible explored design: scrambled-Sobol starts")
+    tasks: list[SearchTask] = []
+    if M == 1:
+        for j, x0 in enumerate(plan.anchors[0]):
+            tasks.append(SearchTask(x0=x0, index=j, seed=start_seed(goal.seed, j),
+                                    kind="single", **common))
+        return tasks, f"{len(tasks)} starts from the best explored designs"
+    for k in (0, 1):
+        for j, x0 in enumerate(plan.anchors[k]):
+            tasks.append(SearchTask(x0=x0, index=len(tasks), seed=start_seed(
+                goal.seed, len(tasks)), kind="anchor", k=k, start=j, **common))
+    ideal, scale = tuple(float(v) for v in plan.ideal), tuple(float(v) for v in plan.scale)
+    for i, (bound, x0s) in enumerate(plan.levels, start=1):
+        for j, x0 in enumerate(x0s):
+            value = bound if s.front_method == "epsilon-constraint" else bound
+            tasks.append(SearchTask(x0=x0, index=len(tasks), seed=start_seed(
+                goal.seed, len(tasks)), kind="level", k=i, start=j, bound=value, ideal=ideal,
+                scale=scale, **common))
+    return tasks, (f"anchors and {len(plan.levels)} levels seeded from {len(recs)} explored "
+                   "feasible designs")
 
 
 def goal_identity(goal: Goal) -> str:
@@ -172,6 +365,11 @@ def goal_identity(goal: Goal) -> str:
     for key in ("description", "budget"):
         d.pop(key, None)
     d["search"] = {k: v for k, v in d["search"].items() if k != "max_evals_per_start"}
+    # not evaluations either: the hypervolume reference, how geometries are batched, and
+    # the exploration's size (it may grow like a budget: the store's search plan)
+    d["search"]["front"].pop("reference", None)
+    d["search"]["explore"] = {k: v for k, v in d["search"]["explore"].items()
+                              if k not in ("batch", "samples", "share")}
     text = json.dumps(d, sort_keys=True, default=str)
     return hashlib.sha256(text.encode()).hexdigest()[:16]
 
@@ -250,15 +448,19 @@ class Progress:
     of the finished searches once some have finished) at the measured rate of this run.
     """
 
-    def __init__(self, store_path: str, goal: Goal, tasks: list[str], task_cap: int,
+    def __init__(self, store_path: str, goal: Goal, tasks: list[str], task_cap,
                  deadline: float | None, emit=None, bar=None):
         self.path, self.goal, self.deadline, self.emit, self.bar = (
             store_path, goal, deadline, emit, bar)
-        self.tasks, self.task_cap = tasks, task_cap
-        self.total = len(tasks) * task_cap
+        self.tasks = list(tasks)
+        # the evaluation cap of each task (one number: the same for all)
+        self.caps = (dict(task_cap) if isinstance(task_cap, dict)
+                     else {k: int(task_cap) for k in tasks})
         self.finished: set[str] = set()
         self.senses = tuple(o.sense for o in goal.objectives)
         self.problem = GoalProblem(goal)
+        self.reference = reference_point(goal)[0]
+        self.batch = goal.search.explore.batch
         self.last_id = 0
         self.count = 0
         self.failed = 0
@@ -270,9 +472,20 @@ class Progress:
         self.t0 = time.time()
         self.n0: int | None = None
 
-    @staticmethod
-    def task_key(stage: str, start: int) -> str:
-        return stage if stage.startswith("front-") else f"start-{start}"
+    @property
+    def total(self) -> int:
+        return sum(self.caps.values())
+
+    def add_task(self, key: str, cap: int) -> None:
+        """A task planned once the exploration is done."""
+        if key not in self.caps:
+            self.tasks.append(key)
+        self.caps[key] = int(cap)
+
+    def task_key(self, stage: str, start: int) -> str:
+        if stage == "explore":
+            return f"explore-{start // self.batch}"
+        return search_key(stage, start)
 
     def poll(self) -> None:
         try:
@@ -315,13 +528,12 @@ class Progress:
 
     def remaining(self) -> tuple[int, bool]:
         """(evaluations left, estimated from finished searches?)"""
-        used = [self.per_task.get(k, 0) for k in self.finished]
-        per = self.task_cap
+        done = [k for k in self.finished if not k.startswith("explore")]
+        used = [self.per_task.get(k, 0) / max(1, self.caps.get(k, 1)) for k in done]
         est = bool(used)
-        if est:
-            per = min(self.task_cap, max(1, int(round(sum(used) / len(used)))))
-        left = sum(max(0, per - self.per_task.get(k, 0)) for k in self.tasks
-                   if k not in self.finished)
+        share = min(1.0, sum(used) / len(used)) if est else 1.0
+        left = sum(max(0, int(round(share * self.caps[k])) - self.per_task.get(k, 0))
+                   for k in self.tasks if k not in self.finished)
         return left, est
 
     def eta(self) -> str:
@@ -346,8 +558,8 @@ class Progress:
                 v = col.max() if o.sense == "max" else col.min()
                 parts.append(f"{objective_label(o, self.problem)} {v:.4g}")
             best = "best " + ", ".join(parts)
-            if len(self.senses) == 2 and self.worst is not None:
-                hv = hypervolume(self.F[self.front], self.senses, self.worst)
+            if len(self.senses) == 2:
+                hv = hypervolume(self.F[self.front], self.senses, self.reference)
                 best += f"; front {len(self.front)}, HV {hv:.4g}"
         return best
 
@@ -419,6 +631,21 @@ class RunSummary:
     candidates: list[Path] = field(default_factory=list)
     reproduce_max_dev: float = 0.0
     front_objectives: onp.ndarray | None = None
+    reference_source: str = ""
+    coverage: dict = field(default_factory=dict)
+    nondominated: onp.ndarray | None = None  # every feasible non-dominated evaluation
+
+    def to_json(self) -> dict:
+        """The run's figures as plain data (``summary.json``)."""
+        labels = [objective_label(o, GoalProblem(self.goal)) for o in self.goal.objectives]
+        hv = self.hypervolume
+        return {"run": self.goal.run_name, "status": self.status,
+                "evaluations": self.n_evaluations, "failed": self.n_failed,
+                "feasible": self.n_feasible, "objectives": labels,
+                "hypervolume": None if hv != hv else float(hv),
+                "reference": dict(zip(labels, self.reference, strict=True)),
+                "reference_source": self.reference_source,
+                "front_points": len(self.front), "coverage": self.coverage}
 
 
 def _workers(workers) -> int:
@@ -490,24 +717,32 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
         f"# resolved goal of run {goal.run_name} (source: {goal.source or 'inline'})\n"
         + yaml.safe_dump(resolved, sort_keys=False))
     n_search, cap = plan_searches(goal)
-    per_task = n_search // goal.search.starts
-    starts = sobol_starts(problem.lower, problem.upper, goal.search.starts, seed=goal.seed)
+    X_explore = explore_points(goal, problem)
     resumed = store.count()
     if lock.previous:
         log(f"note: took over the lock of a process that is gone ({lock.previous})")
     old_caps = list(store.get_meta("earlier_caps", []))
+    plan_now = {"cap": cap, "explore": len(X_explore)}
+    stored_plan = store.get_meta("search_plan")
     stored_cap = store.get_meta("evaluation_cap")
-    if stored_cap is not None and stored_cap != cap:
-        old_caps.append(stored_cap)
+    if stored_plan is None and stored_cap is not None:
+        stored_plan = {"cap": stored_cap, "explore": len(X_explore)}
+    if stored_plan is not None and stored_plan != plan_now:
+        old_caps.append(stored_plan.get("cap"))
         store.set_meta("earlier_caps", old_caps)
-        log(f"note: the evaluation cap of each search changed from {stored_cap} to {cap}: "
+        log(f"note: the search plan changed (evaluation cap of each search {stored_plan['cap']}"
+            f" -> {cap}, explored geometries {stored_plan['explore']} -> {len(X_explore)}): "
             "searches are continued (rows that no longer lie on a search's path are kept "
             "as superseded evaluations)")
     store.set_meta("evaluation_cap", cap)
+    store.set_meta("search_plan", plan_now)
     tag = f"superseded{len(old_caps)}" if old_caps else None
     log(f"run {goal.run_name}: {len(goal.variables)} variables, {len(goal.objectives)} "
         f"objective(s), {problem.n_constraints} constraint rows, {len(problem.wavelengths_nm)} "
-        f"wavelengths; {goal.search.algorithm}, {goal.search.starts} starts, {n_search} "
+        f"wavelengths; exploration of {len(X_explore)} geometries"
+        + (f" x {goal.search.explore.wavelength_points} wavelengths"
+           if problem.shift_index is not None else "")
+        + f"; {goal.search.algorithm}, {goal.search.starts} starts, {n_search} "
         f"searches of <= {cap} evaluations" + (f"; resuming ({resumed} stored)" if resumed
                                                 else ""))
     if goal.search.algorithm == "DIRECT-L" and goal.search.starts > 1:
@@ -519,56 +754,41 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
     task_goal = replace(goal, located=None)
     stop_file = run_dir / STOP_NAME
     stop_file.unlink(missing_ok=True)
-    tasks = [SearchTask(task_goal, store_path, k, starts[k], start_seed(goal.seed, k), cap,
-                        deadline, str(stop_file), tag) for k in range(goal.search.starts)]
-    keys = [f"front-{k}" if len(goal.objectives) == 2 else f"start-{k}" for k in range(len(tasks))]
+    B = goal.search.explore.batch
+    explore_tasks = [ExploreTask(task_goal, store_path, b, tuple(range(i, min(i + B, len(
+        X_explore)))), X_explore[i:i + B], deadline, str(stop_file))
+        for b, i in enumerate(range(0, len(X_explore), B))]
+    common = dict(goal=task_goal, store_path=store_path, max_evals=cap, deadline=deadline,
+                  stop_file=str(stop_file), supersede_tag=tag)
     bar = None
     if tty:
         from tqdm import tqdm
 
-        bar = tqdm(total=n_search * cap, file=sys.stderr, unit="eval", dynamic_ncols=True,
-                   desc=goal.run_name, leave=True)
+        bar = tqdm(total=len(X_explore) * goal.search.explore.keep + n_search * cap,
+                   file=sys.stderr, unit="eval", dynamic_ncols=True, desc=goal.run_name,
+                   leave=True)
         log.bar = bar
-    prog = Progress(store_path, goal, keys, per_task * cap, deadline,
+    caps = {t.key: len(t.geometries) * goal.search.explore.keep for t in explore_tasks}
+    prog = Progress(store_path, goal, list(caps), caps, deadline,
                     emit=log if progress else None, bar=bar)
     prog.poll()
     status = "complete"
-    executor = (SerialExecutor() if n_workers == 0
-                else ProcessExecutor(min(n_workers, len(tasks))))
-    outcomes: dict[int, TaskOutcome] = {}
-    # in this process (workers 0) the searches run inside submit: report from a thread
-    stop_reports = threading.Event()
-    reporter = None
-    if n_workers == 0 and progress:
-        reporter = threading.Thread(target=_report_every, daemon=True, args=(
-            prog, stop_reports, interval_s if tty else 10 * interval_s), name="chiropt-progress")
-        reporter.start()
+    executor = (SerialExecutor() if n_workers == 0 else ProcessExecutor(n_workers))
+    outcomes: dict[str, TaskOutcome] = {}
+    tasks: list = list(explore_tasks)
     try:
-        try:
-            futures = {executor.submit(_run_task, t): t.index for t in tasks}
-        finally:
-            stop_reports.set()
-            if reporter is not None:
-                reporter.join()
-        if hasattr(executor, "pids") and executor.pids():
-            log(f"workers: pid {', '.join(map(str, executor.pids()))} (parent {os.getpid()})")
-        last = logged = time.time()
-        pending = set(futures)
-        while pending:
-            done, pending = wait(pending, timeout=interval_s, return_when=FIRST_COMPLETED)
-            for f in done:
-                k = futures[f]
-                try:
-                    outcomes[k] = f.result()
-                except Exception as exc:  # a worker process that died (BrokenProcessPool)
-                    outcomes[k] = TaskOutcome(k, "error", f"{type(exc).__name__}: {exc}")
-                prog.finished.add(keys[k])
-            if time.time() - last >= (interval_s if tty else 10 * interval_s) or not pending:
-                prog.report()
-                last = time.time()
-                if tty and (last - logged >= 10 * interval_s or not pending):
-                    log(prog.line(), echo=False)  # run.log keeps the progress lines too
-                    logged = last
+        status = _execute(executor, explore_tasks, outcomes, prog, log, n_workers, progress,
+                          tty, interval_s)
+        stopped = any(o.status != "done" for o in outcomes.values())
+        if status == "complete" and not stopped:
+            local, how = local_tasks(goal, store, common)
+            log(f"exploration done: {len(X_explore)} geometries, "
+                f"{store.count('explore')} evaluations; local searches: {how}")
+            for t in local:
+                prog.add_task(t.key, cap * (2 if t.kind == "anchor" else 1))
+            tasks += local
+            status = _execute(executor, local, outcomes, prog, log, n_workers, progress, tty,
+                              interval_s)
     except KeyboardInterrupt:
         status = "interrupted"
         stop_file.touch()  # workers stop at their next fresh evaluation
@@ -586,16 +806,24 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
             bar.close()
             log.bar = None
     errors = [o for o in outcomes.values() if o.status == "error"]
-    for o in sorted(errors, key=lambda o: o.index):
-        log(f"search {o.index} failed: {o.message}")
+    for key, o in outcomes.items():
+        if o.status == "error":
+            log(f"{key} failed: {o.message}")
     if status == "complete":
         if errors:
-            status = (f"failed: {len(errors)} of {len(tasks)} searches failed (first: search "
-                      f"{errors[0].index}: {errors[0].message[:200]})")
-        elif len(outcomes) < len(tasks):
-            status = f"failed: {len(tasks) - len(outcomes)} searches did not report back"
+            kinds = {t.key: isinstance(t, ExploreTask) for t in tasks}
+            bad = [k for k, o in outcomes.items() if o.status == "error"]
+            n_x = sum(kinds[k] for k in bad)
+            n_all_x = sum(kinds.values())
+            what = [f"{len(bad) - n_x} of {len(tasks) - n_all_x} searches"] if n_x < len(bad) \
+                else []
+            what += [f"{n_x} of {n_all_x} exploration batches"] if n_x else []
+            status = (f"failed: {' and '.join(what)} failed (first: {bad[0]}: "
+                      f"{outcomes[bad[0]].message[:200]})")
         elif any(o.status == "deadline" for o in outcomes.values()):
             status = "stopped: wall-time budget spent (run the same command to continue)"
+        elif len(outcomes) < len(tasks):
+            status = f"failed: {len(tasks) - len(outcomes)} searches did not report back"
     store.set_meta("status", status)
     summary = write_report(run_dir, goal, store=store, status=status, log=log)
     after = store.count()
@@ -610,6 +838,45 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
         + (f", hypervolume {summary.hypervolume:.6g}" if len(goal.objectives) == 2 else "")
         + f"; re-evaluated front reproduces the store to {summary.reproduce_max_dev:.2e}")
     return summary
+
+
+def _execute(executor, tasks, outcomes: dict, prog: Progress, log, n_workers: int,
+             progress: bool, tty: bool, interval_s: float) -> str:
+    """Run ``tasks`` on ``executor``, recording each outcome under its key; the status."""
+    stop_reports = threading.Event()
+    reporter = None
+    # in this process (workers 0) the searches run inside submit: report from a thread
+    if n_workers == 0 and progress:
+        reporter = threading.Thread(target=_report_every, daemon=True, args=(
+            prog, stop_reports, interval_s if tty else 10 * interval_s), name="chiropt-progress")
+        reporter.start()
+    try:
+        futures = {executor.submit(_run_task, t): t for t in tasks}
+    finally:
+        stop_reports.set()
+        if reporter is not None:
+            reporter.join()
+    if hasattr(executor, "pids") and executor.pids() and not getattr(executor, "_logged", 0):
+        log(f"workers: pid {', '.join(map(str, executor.pids()))} (parent {os.getpid()})")
+        executor._logged = 1
+    last = logged = time.time()
+    pending = set(futures)
+    while pending:
+        done, pending = wait(pending, timeout=interval_s, return_when=FIRST_COMPLETED)
+        for f in done:
+            t = futures[f]
+            try:
+                outcomes[t.key] = f.result()
+            except Exception as exc:  # a worker process that died (BrokenProcessPool)
+                outcomes[t.key] = TaskOutcome(t.index, "error", f"{type(exc).__name__}: {exc}")
+            prog.finished.add(t.key)
+        if time.time() - last >= (interval_s if tty else 10 * interval_s) or not pending:
+            prog.report()
+            last = time.time()
+            if tty and (last - logged >= 10 * interval_s or not pending):
+                log(prog.line(), echo=False)  # run.log keeps the progress lines too
+                logged = last
+    return "complete"
 
 
 def _report_every(prog: Progress, stop: threading.Event, period_s: float) -> None:
@@ -637,8 +904,37 @@ def run_goal_file(path: str | Path, *, out: str | Path | None = None, workers: i
     if len(summaries) > 1:
         from chiropt.report.front import plot_comparison
 
-        plot_comparison(summaries, root / f"{goals[0].name}-compare.png")
+        ref = write_comparison(summaries, root / f"{goals[0].name}-compare.json")
+        plot_comparison(summaries, root / f"{goals[0].name}-compare.png", reference=ref)
     return summaries
+
+
+def write_comparison(summaries: list[RunSummary], path: Path) -> list[float]:
+    """The runs of several materials at one reference point (the first goal's); returns it.
+
+    Every material of a goal file has the same objectives, so the default reference (and
+    a ``search.front.reference``) is the same for all; each hypervolume is recomputed at
+    that one point all the same.
+    """
+    goal = summaries[0].goal
+    ref, source = reference_point(goal)
+    labels = [objective_label(o, GoalProblem(goal)) for o in goal.objectives]
+    senses = tuple(o.sense for o in goal.objectives)
+    runs = {}
+    for s in summaries:
+        F = next((a for a in (s.nondominated, s.front_objectives) if a is not None),
+                 onp.zeros((0, len(ref))))
+        hv = hypervolume(F, senses, ref) if len(F) and len(ref) == 2 else None
+        best = [None if not len(F) else float(F[:, k].max() if sense == "max"
+                                              else F[:, k].min())
+                for k, sense in enumerate(senses)]
+        runs[s.goal.run_name] = {"material": s.goal.material, "status": s.status,
+                                 "evaluations": s.n_evaluations, "hypervolume": hv,
+                                 "best": dict(zip(labels, best, strict=True))}
+    data = {"goal": goal.name, "reference": dict(zip(labels, ref, strict=True)),
+            "reference_source": source, "runs": runs}
+    path.write_text(json.dumps(data, indent=1) + "\n")
+    return list(ref)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -671,6 +967,67 @@ def _columns(problem: GoalProblem) -> list[tuple[str, str, Any]]:
             cols.append((lab, m, spec))
             seen.add(lab)
     return cols
+
+
+REACH_FRACTION = 1e-3  # an extreme counts as reached within this share of the front's span
+
+
+def coverage(goal: Goal, uniq, X, F, feas, chosen, scans: dict) -> dict:
+    """How well the front covers what the run saw (module notes of ``write_report``).
+
+    ``largest_gap``: largest distance between neighbours along the front, each objective
+    divided by the front's span; ``explored_beyond``: stored explored feasible designs that
+    no front row weakly dominates and that do not coincide with a front row (merge
+    tolerance): zero when the front holds every stored evaluation;
+    ``scan_beyond``: the same for the scanned points (at the scan's model); ``extremes``:
+    per objective the best front value and the searches that reached it (within
+    ``REACH_FRACTION`` of the span); ``warnings``: extremes reached by a single search.
+    """
+    senses = tuple(o.sense for o in goal.objectives)
+    problem = GoalProblem(goal)
+    out: dict[str, Any] = {"largest_gap": 0.0, "largest_gap_between": [], "explored_beyond": 0,
+                           "scan_beyond": 0, "extremes": [], "warnings": []}
+    if not chosen or not feas.any():
+        return out
+    sign = onp.array([-1.0 if s == "max" else 1.0 for s in senses])
+    Zf = F[chosen] * sign
+    span = onp.ptp(Zf, axis=0)
+    scale = onp.where(span > 0, span, onp.abs(Zf).max(axis=0) + 1.0)
+    tol = 1e-9 * scale
+
+    def beyond(Z) -> onp.ndarray:
+        Z = onp.asarray(Z, float).reshape(-1, len(senses))
+        if len(Z) == 0:
+            return onp.zeros(0, bool)
+        return ~onp.all(Zf[None, :, :] <= Z[:, None, :] + tol, axis=2).any(axis=1)
+
+    explored = [i for i, r in enumerate(uniq) if r.stage == "explore" and feas[i]]
+    out["explored_beyond"] = sum(
+        1 for i, b in zip(explored, beyond(F[explored] * sign), strict=True)
+        if b and merge_coinciding(goal, X, [*chosen, i])[-1] == i)
+    scanned = [f for sc in scans.values() for f in sc.get("F", []) if f is not None]
+    if scanned:
+        out["scan_beyond"] = int(beyond(onp.asarray(scanned, float) * sign).sum())
+    if len(senses) == 2 and len(chosen) > 1:
+        order = onp.argsort(Zf[:, 0])
+        Zn = Zf[order] / scale
+        d = onp.linalg.norm(onp.diff(Zn, axis=0), axis=1)
+        j = int(onp.argmax(d))
+        out["largest_gap"] = float(d[j])
+        out["largest_gap_between"] = [(Zf[order[j]] * sign).tolist(),
+                                      (Zf[order[j + 1]] * sign).tolist()]
+    Z = F * sign
+    for k, o in enumerate(goal.objectives):
+        best = float(Zf[:, k].min())
+        reach = sorted({search_key(uniq[i].stage, uniq[i].start) for i in range(len(uniq))
+                        if feas[i] and Z[i, k] <= best + REACH_FRACTION * scale[k]})
+        label = objective_label(o, problem)
+        out["extremes"].append({"objective": label, "best": best * sign[k], "searches": reach})
+        if len(reach) == 1:
+            out["warnings"].append(f"the best {label} of the front ({best * sign[k]:.4g}) was "
+                                   f"reached by a single search ({reach[0]}); more starts or "
+                                   "a larger exploration may find a better one")
+    return out
 
 
 def _higher_lmax_problem(goal: Goal):
@@ -719,24 +1076,27 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         for i, r in enumerate(uniq):
             if not pool[i] or ":" in r.stage:
                 continue
-            key = (r.stage, r.start)
+            key = (r.stage, 0 if r.stage == "explore" else r.start)  # exploration: one
             if key not in best or sign[0] * F[i, 0] > sign[0] * F[best[key], 0]:
                 best[key] = i
         chosen = merge_coinciding(goal, X, sorted(set(best.values()),
                                                    key=lambda i: -sign[0] * F[i, 0]))
-    ref = []
-    if feas.any():
-        ref = list(onp.min(F[feas] * sign, axis=0) * sign)
-        if M == 2:
-            summary.hypervolume = hypervolume(F[chosen], senses, ref) if chosen else 0.0
-        summary.reference = [float(v) for v in ref]
+    ref, ref_source = reference_point(goal)
+    summary.reference, summary.reference_source = [float(v) for v in ref], ref_source
+    if M == 2:  # every feasible non-dominated evaluation (merging only shortens the table)
+        nd = non_dominated(onp.where(pool[:, None], F, onp.nan), senses) if chosen else []
+        summary.hypervolume = (hypervolume(F[nd], senses, ref)
+                               if chosen and feas.any() else 0.0)
+        summary.nondominated = F[nd] if chosen and feas.any() else onp.zeros((0, M))
+    summary.coverage = coverage(goal, uniq, X, F, feas, chosen, store.scans())
     # table
     extra = _columns(problem)
     olabels = [objective_label(o, problem) for o in goal.objectives]
     hi_problem, hi_labels = _higher_lmax_problem(goal), [f"{lab} (lmax+1)" for lab in olabels]
     columns = (["index"] + problem.paths + olabels + [c[0] for c in extra]
                + ["feasible", "max_violation", "stage", "search", "seq"]
-               + (hi_labels if hi_problem is not None else []) + ["lmax", "lmax_change"])
+               + (hi_labels if hi_problem is not None else [])
+               + ["lmax", "lmax_change", "model_check"])
     worst_change = 0.0
     rows, front_rows = [], []
     max_dev = 0.0
@@ -752,7 +1112,8 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
             row += [float(v) for v in hi_problem.evaluate(r.x, False).f]
         check = validity(problem.design_at(r.x))
         worst_change = max(worst_change, check["worst"])
-        row += [check["lmax"], check["worst"]]
+        row += [check["lmax"], check["worst"],
+                "passed" if check["worst"] <= VALIDITY_TOLERANCE else "failed"]
         rows.append(row)
         front_rows.append(dict(zip(columns, row, strict=True)))
         # fresh re-evaluation from a newly built design
@@ -778,10 +1139,18 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
               f"unique designs); status: {status or 'report regenerated'}",
               "objectives: " + ", ".join(f"{'maximize' if s == 'max' else 'minimize'} {lab}"
                                          for s, lab in zip(senses, olabels, strict=True))]
-    if M == 2 and ref:
-        header.append(f"hypervolume = {float(summary.hypervolume)!r} (reference point: worst "
-                      f"feasible value of each objective in the run: "
-                      f"{[float(v) for v in ref]})")
+    if M == 2:
+        header.append(f"hypervolume = {float(summary.hypervolume)!r} (reference point "
+                      f"{dict(zip(olabels, summary.reference, strict=True))}; {ref_source})")
+        cov = summary.coverage
+        header.append(f"coverage: largest gap along the front {cov['largest_gap']:.4g} "
+                      "(objectives divided by the front's span); explored designs beyond the "
+                      "front: "
+                      f"{cov['explored_beyond']} stored, {cov['scan_beyond']} scanned")
+    for w in summary.coverage.get("warnings", []):
+        log(f"WARNING: {w}")
+    header.append("model_check: 'failed' when one more multipole order changes a reported "
+                  f"quantity of the design by more than {VALIDITY_TOLERANCE:g} (lmax_change)")
     header.append("variables in user units (nm, deg); metric columns are averages over each "
                   "spec's wavelengths; max_violation in scaled constraint units; designs that "
                   f"coincide within max(xtol_rel |x|, {MERGE_FRACTION:g} x bound width) in every "
@@ -794,6 +1163,7 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
     write_front_csv(run_dir / "front.csv", columns, rows, header=header)
     summary.front = front_rows
     summary.front_objectives = F[chosen] if chosen else onp.zeros((0, M))
+    (run_dir / SUMMARY_NAME).write_text(json.dumps(summary.to_json(), indent=1) + "\n")
     # candidates: spread along the front
     cand_dir = run_dir / "candidates"
     cand_dir.mkdir(exist_ok=True)

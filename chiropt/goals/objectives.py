@@ -321,12 +321,16 @@ class GoalProblem:
         """Spectra of every quantity at ``x`` (plain lists over ``wavelengths_at(x)``)."""
         return _plain(compute_quantities(self.eval_design, self.values(onp.asarray(x, float))))
 
-    def evaluate(self, x, need_grad: bool) -> VectorEvaluation:
-        """Objectives, constraints and (with ``need_grad``) their exact Jacobians at ``x``."""
+    def check_stop(self) -> None:
+        """Raise :class:`DeadlineReached` when the wall time is spent or the run stops."""
         if self.deadline is not None and time.time() > self.deadline:
             raise DeadlineReached("the wall-time budget is spent")
         if self.stop_file is not None and os.path.exists(self.stop_file):
             raise DeadlineReached("the run was interrupted")
+
+    def evaluate(self, x, need_grad: bool) -> VectorEvaluation:
+        """Objectives, constraints and (with ``need_grad``) their exact Jacobians at ``x``."""
+        self.check_stop()
         x = onp.asarray(x, float)
         M, m = self.n_objectives, self.n_constraints
         keep: dict = {}

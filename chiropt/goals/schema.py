@@ -72,10 +72,22 @@ Metrics
     ISRES, ESCH), ``starts`` (number of scrambled-Sobol start points, default 4),
     ``xtol_rel`` (default 1e-6), ``ftol_rel`` (default 1e-8), ``max_evals_per_start``
     (evaluation cap of every local search, default 150), ``front: {method:
-    epsilon-constraint | weighted-sum, points: N}`` (two objectives only; default
-    epsilon-constraint, 9 points including the two anchors). With two objectives each start
-    traces a whole front from its own start point; the reported front is the non-dominated
-    set of every feasible evaluation of the run.
+    epsilon-constraint | weighted-sum, points: N, reference: {METRIC: V, ...}}`` (two
+    objectives only; default epsilon-constraint, 9 points including the two anchors;
+    ``reference`` is the hypervolume reference point, one value per objective keyed by its
+    metric or its label such as ``g@700nm``; default: the incident plane wave's value of
+    each metric, g, c, u, s0 = 1, docp = 0). ``explore: {samples: N, share: F,
+    wavelength_points: P, keep: K, batch: B, lmax: L}``: the global exploration that runs
+    before the local searches: N scrambled-Sobol geometries (default: the share F, 0.25, of
+    the evaluation budget, divided by K; ``samples: 0`` switches it off), each solved over
+    P values of a wavelength variable (default 21) in one vectorized solve, its K best
+    points (default 3; two objectives: spread along the scan's own front) evaluated and
+    stored; B geometries per task (default 16); L the multipole order of the scan (default
+    the goal's model; the kept points are always evaluated at the goal's model). The local
+    searches start from the best explored feasible designs: ``max(2, starts)`` searches per
+    anchor and ``starts`` per epsilon-constraint level, the levels spread along the
+    explored front. The reported front is the non-dominated set of every feasible
+    evaluation of the run, explored ones included.
 ``budget``
     ``wall_time`` (``8h``, ``90m``, ``1h30m``, ``45s`` or a number of seconds) and/or
     ``evaluations`` (a total, split evenly over the local searches so that a run stays
@@ -102,8 +114,9 @@ from chiropt.yamlio import Located, check_keys, load_yaml
 
 __all__ = [
     "AVERAGED", "EXPLAIN", "FABRICATION_KINDS", "FRONT_METHODS", "METRIC_NAMES", "Budget",
-    "FabricationConstraint", "Goal", "MetricConstraint", "Objective", "SearchSettings",
-    "Variable", "WavelengthSpec", "goal_from_dict", "load_goal", "parse_wall_time",
+    "ExploreSettings", "FabricationConstraint", "Goal", "MetricConstraint", "Objective",
+    "SearchSettings", "Variable", "WavelengthSpec", "goal_from_dict", "load_goal",
+    "parse_wall_time",
 ]  # fmt: skip
 
 # the user reference only: from its heading on (the module notes above it are for developers)
@@ -240,11 +253,43 @@ class SearchSettings:
     max_evals_per_start: int = 150
     front_method: str = "epsilon-constraint"
     front_points: int = 9
+    front_reference: tuple[tuple[str, float], ...] | None = None
+    explore: ExploreSettings = field(default_factory=lambda: ExploreSettings())
 
     def to_dict(self) -> dict:
+        front: dict[str, Any] = {"method": self.front_method, "points": self.front_points}
+        if self.front_reference is not None:
+            front["reference"] = dict(self.front_reference)
         return {"algorithm": self.algorithm, "starts": self.starts, "xtol_rel": self.xtol_rel,
                 "ftol_rel": self.ftol_rel, "max_evals_per_start": self.max_evals_per_start,
-                "front": {"method": self.front_method, "points": self.front_points}}
+                "front": front, "explore": self.explore.to_dict()}
+
+
+@dataclass(frozen=True)
+class ExploreSettings:
+    """The global exploration before the local searches (``search.explore``).
+
+    ``samples`` geometries (None: ``share`` of the evaluation budget, ``keep`` evaluations
+    per geometry); ``wavelength_points`` grid points scanned along a wavelength variable in
+    one solve; ``keep`` points kept per geometry; ``batch`` geometries per task; ``lmax`` the
+    multipole order of the scan (None: the goal's model).
+    """
+
+    samples: int | None = None
+    share: float = 0.25
+    wavelength_points: int = 21
+    keep: int = 3
+    batch: int = 16
+    lmax: int | None = None
+
+    def to_dict(self) -> dict:
+        out: dict[str, Any] = {"share": self.share, "wavelength_points": self.wavelength_points,
+                               "keep": self.keep, "batch": self.batch}
+        if self.samples is not None:
+            out["samples"] = self.samples
+        if self.lmax is not None:
+            out["lmax"] = self.lmax
+        return out
 
 
 @dataclass(frozen=True)
@@ -624,7 +669,7 @@ def _one_goal(ctx: _Ctx, data: dict, name: str, design_dict: dict, design_base, 
                                        "{fabrication: ..., value: ...}")
     constraints = tuple(_constraint(ctx, c, f"constraints[{i}]", design, design_wl)
                         for i, c in enumerate(cons_raw))
-    search = _search(ctx, data.get("search") or {}, len(objectives))
+    search = _search(ctx, data.get("search") or {}, objectives)
     budget = _budget(ctx, data.get("budget") or {})
     seed = ctx.integer(data.get("seed", 1), "seed", low=0, high=2**31 - 1)
     return Goal(name=name, design=design, material=label, variables=tuple(variables),
@@ -731,8 +776,10 @@ def _constraint(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl):
     return MetricConstraint(key, metric, lo, hi, _spec(ctx, raw, key, design_wl))
 
 
-def _search(ctx: _Ctx, raw: Any, n_objectives: int) -> SearchSettings:
-    allowed = {"algorithm", "starts", "xtol_rel", "ftol_rel", "max_evals_per_start", "front"}
+def _search(ctx: _Ctx, raw: Any, objectives) -> SearchSettings:
+    n_objectives = len(objectives)
+    allowed = {"algorithm", "starts", "xtol_rel", "ftol_rel", "max_evals_per_start", "front",
+               "explore"}
     ctx.keys(raw, allowed, "search")
     s = SearchSettings()
     algo = raw.get("algorithm", s.algorithm)
@@ -745,11 +792,11 @@ def _search(ctx: _Ctx, raw: Any, n_objectives: int) -> SearchSettings:
     ftol = ctx.number(raw.get("ftol_rel", s.ftol_rel), "search.ftol_rel", low=0.0, high=1.0)
     cap = ctx.integer(raw.get("max_evals_per_start", s.max_evals_per_start),
                       "search.max_evals_per_start", low=1, high=10**7)
-    method, points = s.front_method, s.front_points
+    method, points, reference = s.front_method, s.front_points, None
     if "front" in raw:
         if n_objectives < 2:
             raise ctx.error("search.front", "a front needs two objectives; this goal has one")
-        ctx.keys(raw["front"], {"method", "points"}, "search.front")
+        ctx.keys(raw["front"], {"method", "points", "reference"}, "search.front")
         method = raw["front"].get("method", method)
         if method not in FRONT_METHODS:
             raise ctx.error("search.front.method", f"got {method!r}, allowed: "
@@ -757,8 +804,55 @@ def _search(ctx: _Ctx, raw: Any, n_objectives: int) -> SearchSettings:
                                                    f"{_closest(str(method), FRONT_METHODS)}")
         points = ctx.integer(raw["front"].get("points", points), "search.front.points", low=2,
                              high=1000)
+        if "reference" in raw["front"]:
+            reference = _reference(ctx, raw["front"]["reference"], objectives)
+    explore = _explore(ctx, raw.get("explore") or {})
     return replace(s, algorithm=algo, starts=starts, xtol_rel=xtol, ftol_rel=ftol,
-                   max_evals_per_start=cap, front_method=method, front_points=points)
+                   max_evals_per_start=cap, front_method=method, front_points=points,
+                   front_reference=reference, explore=explore)
+
+
+def reference_keys(objective) -> tuple[str, ...]:
+    """Names a ``search.front.reference`` entry may use for an objective: its label
+    (``g@700nm``) and, for a plain metric, the metric (``g``)."""
+    return (objective.label(),) + (() if objective.weighted else (objective.terms[0][0],))
+
+
+def _reference(ctx: _Ctx, raw: Any, objectives) -> tuple[tuple[str, float], ...]:
+    key = "search.front.reference"
+    names = [reference_keys(o) for o in objectives]
+    allowed = {n for ns in names for n in ns}
+    ctx.keys(raw, allowed, key)
+    out = []
+    for o, ns in zip(objectives, names, strict=True):
+        given = [n for n in ns if n in raw]
+        if len(given) != 1:
+            raise ctx.error(key, f"give exactly one reference value for objective {o.key} "
+                                 f"(key {' or '.join(ns)}); got {len(given)}")
+        out.append((given[0], ctx.number(raw[given[0]], f"{key}.{given[0]}")))
+    if len({k for k, _ in out}) != len(out):
+        raise ctx.error(key, "the two objectives share a metric: use their labels "
+                             f"({', '.join(o.label() for o in objectives)}) as keys")
+    return tuple(out)
+
+
+def _explore(ctx: _Ctx, raw: Any) -> ExploreSettings:
+    key = "search.explore"
+    ctx.keys(raw, {"samples", "share", "wavelength_points", "keep", "batch", "lmax"}, key)
+    e = ExploreSettings()
+    samples = None
+    if "samples" in raw:
+        samples = ctx.integer(raw["samples"], f"{key}.samples", low=0, high=10**6)
+    share = ctx.number(raw.get("share", e.share), f"{key}.share", low=0.0, high=0.9)
+    points = ctx.integer(raw.get("wavelength_points", e.wavelength_points),
+                         f"{key}.wavelength_points", low=1, high=1001)
+    keep = ctx.integer(raw.get("keep", e.keep), f"{key}.keep", low=1, high=100)
+    batch = ctx.integer(raw.get("batch", e.batch), f"{key}.batch", low=1, high=10**4)
+    lmax = None
+    if "lmax" in raw:
+        lmax = ctx.integer(raw["lmax"], f"{key}.lmax", low=1, high=8)
+    return ExploreSettings(samples=samples, share=share, wavelength_points=points, keep=keep,
+                           batch=batch, lmax=lmax)
 
 
 def _budget(ctx: _Ctx, raw: Any) -> Budget:

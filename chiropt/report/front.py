@@ -160,7 +160,8 @@ def plot_front(path, problem, records, F, feasible, chosen, picks) -> Path:
         ax.set_xlabel(f"DOCP, helicity average, at {where} [-]")
         ax.set_ylabel(f"CD enhancement g at {where} [-]")
         ax.set_title("(DOCP, g) plane")
-        ax.legend(loc="best")
+        if ax.get_legend_handles_labels()[0]:
+            ax.legend(loc="best")
     fig.suptitle(f"run {goal.run_name}", fontsize=10, color=PALETTE["c"])
     path = Path(path)
     save(fig, path)
@@ -172,6 +173,7 @@ def plot_convergence(path, problem, records, *, reference) -> Path:
 
     ``records`` are all stored evaluations (any status), ordered by stage, search, seq.
     """
+    from chiropt.search.explore import search_key
     from chiropt.search.pareto import hypervolume, non_dominated
 
     goal = problem.goal
@@ -183,11 +185,10 @@ def plot_convergence(path, problem, records, *, reference) -> Path:
     for r in records:
         if ":" in r.stage:  # rows superseded by a grown budget: not on a search's path
             continue
-        key = r.stage if r.stage.startswith("front-") else f"start-{r.start}"
+        key = search_key(r.stage, r.start)
         streams.setdefault(key, []).append(r)
     sign = 1.0 if senses[0] == "max" else -1.0
-    for n, (key, recs) in enumerate(sorted(streams.items(), key=lambda kv: int(
-            kv[0].split("-")[1]))):
+    for n, (key, recs) in enumerate(sorted(streams.items())):
         color = START_COLORS[n % len(START_COLORS)]
         ys, best_y = [], []
         front = onp.zeros((0, M))
@@ -212,22 +213,24 @@ def plot_convergence(path, problem, records, *, reference) -> Path:
         x = onp.arange(1, len(recs) + 1)
         if M == 1:
             ax.plot(x, ys, ".", color=color, ms=2.5, alpha=0.5)
-        ax.plot(x, best_y, "-", color=color, lw=1.3, label=f"start {key.split('-')[1]}")
+        ax.plot(x, best_y, "-", color=color, lw=1.3, label=key)
     if M == 1:
         ylab = _axis_label(objective_label(goal.objectives[0], problem))
         ax.set_ylabel(f"{ylab}\n(dots: every evaluation, line: best feasible)")
     else:
         ax.set_ylabel("hypervolume of the feasible front [objective units²]")
-    ax.set_xlabel("evaluation of this start [-]")
-    ax.set_title(f"convergence of each start, run {goal.run_name}")
-    ax.legend(loc="best")
+    ax.set_xlabel("evaluation of this search [-]")
+    ax.set_title(f"convergence of each search, run {goal.run_name}")
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(loc="best")
     path = Path(path)
     save(fig, path)
     return path
 
 
-def plot_comparison(summaries, path) -> Path:
-    """The fronts of several runs (materials) in one objective-space figure."""
+def plot_comparison(summaries, path, reference=None) -> Path:
+    """The fronts of several runs (materials) in one objective-space figure, with the
+    common hypervolume reference point (two objectives) when given."""
     fig, axes = new_figure(1, 1, width=6.0, height=4.4)
     ax = axes[0, 0]
     from chiropt.goals.objectives import GoalProblem
@@ -245,6 +248,9 @@ def plot_comparison(summaries, path) -> Path:
             ax.plot(F[:, 0], F[:, 1], "-o", ms=3.5, color=color, label=name)
         else:
             ax.bar(n, F[0, 0], color=color, label=name)
+    if len(labels) == 2 and reference is not None:
+        ax.plot([reference[0]], [reference[1]], "x", color=PALETTE["c"], ms=7,
+                label="hypervolume reference")
     if len(labels) == 2:
         ax.set_xlabel(_axis_label(labels[0]))
         ax.set_ylabel(_axis_label(labels[1]))

@@ -53,7 +53,8 @@ from chiropt.search.pareto import non_dominated
 from chiropt.problem import Evaluation, Problem, VectorProblem
 from chiropt.search.problem import check_bounds
 
-__all__ = ["FrontPoint", "FrontResult", "Scalarized", "epsilon_constraint", "weighted_sum"]
+__all__ = ["FrontPoint", "FrontResult", "Scalarized", "anchor_second_stage",
+           "epsilon_constraint", "weighted_sum"]
 
 
 class Scalarized:
@@ -265,17 +266,7 @@ def _trace(
     # stage two: the other objective, with this one held at its optimum
     second_tasks = []
     for k in (0, 1):
-        zk = float(sign[k] * _best_objectives(first[k])[k])
-        if not np.isfinite(zk):
-            raise InputError(
-                "search.anchors",
-                f"the search for the optimum of objective {k + 1} found no successful "
-                f"evaluation ({first[k].n_failed} failed); check the model and the bounds",
-            )
-        slack = anchor_tol * (abs(zk) + 1.0)
-        scal = Scalarized(problem, "bounded", 1 - k, zk + slack, zero, one)
-        # accept only points within the slack, so the anchor keeps its optimum
-        tol = min(_tol(options), slack)
+        scal, tol = anchor_second_stage(problem, k, first[k], anchor_tol, options)
         second_tasks.append(task(scal, first[k].x_best, 2 + k, feasibility_tol=tol))
     second = ex.map(_run_front_task, second_tasks)
     anchors = [second[k] if second[k].feasible else first[k] for k in (0, 1)]
@@ -320,6 +311,27 @@ def _trace(
         evaluations=_all_evaluations(first + second + results[2:], senses, m, options),
         degenerate=degenerate,
     )
+
+
+def anchor_second_stage(problem: VectorProblem, k: int, first: SearchResult,
+                        anchor_tol: float, options) -> tuple[Scalarized, float]:
+    """Stage two of the lexicographic anchor of objective ``k`` (see the module notes).
+
+    Returns the scalarized problem (the other objective, with objective ``k`` held within
+    ``anchor_tol (|z_k*| + 1)`` of the optimum ``first`` found) and the feasibility
+    tolerance its search accepts (no more than that slack, so the anchor keeps its optimum).
+    """
+    sign = np.array([-1.0 if s == "max" else 1.0 for s in problem.senses])
+    zk = float(sign[k] * _best_objectives(first)[k])
+    if not np.isfinite(zk):
+        raise InputError(
+            "search.anchors",
+            f"the search for the optimum of objective {k + 1} found no successful "
+            f"evaluation ({first.n_failed} failed); check the model and the bounds",
+        )
+    slack = anchor_tol * (abs(zk) + 1.0)
+    scal = Scalarized(problem, "bounded", 1 - k, zk + slack, np.zeros(2), np.ones(2))
+    return scal, min(_tol(options), slack)
 
 
 def _tol(options) -> float:

@@ -25,6 +25,9 @@ Conventions
   stored tail no longer matches is continued instead: its mismatching rows are kept under
   the stage ``superseded<n>:<stage>`` (still real evaluations of the same goal) and the
   search evaluates afresh from there.
+- Exploration scans (one vectorized solve of a geometry along the wavelength axis) are
+  kept in the table ``scans`` (geometry index -> the points kept and the scan's values),
+  so a resumed run does not solve them again; the kept points are ordinary evaluations.
 - ``close`` checkpoints the WAL into the database and closes, so a finished run leaves no
   ``-wal``/``-shm`` files (SQLite removes them when the last connection closes cleanly).
 """
@@ -72,6 +75,10 @@ CREATE TABLE IF NOT EXISTS evaluations (
     wall_time_s REAL NOT NULL,
     created TEXT NOT NULL,
     UNIQUE (stage, start, seq)
+);
+CREATE TABLE IF NOT EXISTS scans (
+    start INTEGER PRIMARY KEY,
+    data TEXT NOT NULL
 );
 CREATE TABLE IF NOT EXISTS meta (
     key TEXT PRIMARY KEY,
@@ -357,6 +364,23 @@ class EvaluationStore:
             "wall_time_s": np.array([r.wall_time_s for r in recs], dtype=float),
             "created": np.array([r.created for r in recs], dtype=str),
         }
+
+    # -- exploration scans --------------------------------------------------------------------
+    def put_scan(self, start: int, data: dict) -> None:
+        """Record the outcome of the exploration scan of geometry ``start`` (JSON data)."""
+        self._conn.execute("INSERT OR REPLACE INTO scans (start, data) VALUES (?, ?)",
+                           (int(start), _dumps(data)))
+
+    def get_scan(self, start: int) -> dict | None:
+        """The stored scan of geometry ``start``, or None."""
+        row = self._conn.execute("SELECT data FROM scans WHERE start = ?",
+                                 (int(start),)).fetchone()
+        return None if row is None else json.loads(row[0])
+
+    def scans(self) -> dict[int, dict]:
+        """Every stored scan by geometry index."""
+        rows = self._conn.execute("SELECT start, data FROM scans ORDER BY start").fetchall()
+        return {int(k): json.loads(v) for k, v in rows}
 
     def supersede(self, stage: str, start: int, seq: int, tag: str) -> int:
         """Move rows ``seq, seq + 1, ...`` of search ``(stage, start)`` to ``tag:stage``.
