@@ -368,6 +368,7 @@ def goal_identity(goal: Goal) -> str:
     # not evaluations either: the hypervolume reference, how geometries are batched, and
     # the exploration's size (it may grow like a budget: the store's search plan)
     d["search"]["front"].pop("reference", None)
+    d["search"].pop("confirm", None)   # re-solves the front after the fact: no evaluation
     d["search"]["explore"] = {k: v for k, v in d["search"]["explore"].items()
                               if k not in ("batch", "samples", "share")}
     text = json.dumps(d, sort_keys=True, default=str)
@@ -1038,6 +1039,75 @@ def _higher_lmax_problem(goal: Goal):
     return GoalProblem(replace(goal, design=replace(goal.design, lmax=lmax + 1)))
 
 
+CONFIRM_NAME = "confirmed.json"
+
+
+def _confirm_front(run_dir: Path, goal: Goal, X, log):
+    """Front designs re-solved by ``search.confirm.model``, cached in ``confirmed.json``
+    (keyed by the design vector and the model section, so a resumed or regenerated report
+    solves each design once and a changed model never reuses old values)."""
+    from chiropt.search.confirm import Confirmed, confirm_designs
+
+    path = run_dir / CONFIRM_NAME
+    model_key = json.dumps(goal.search.confirm_model, sort_keys=True)
+    cache = {}
+    if path.is_file():
+        try:
+            cache = json.loads(path.read_text())
+        except ValueError:
+            cache = {}
+    cache = cache if cache.get("model") == model_key else {"model": model_key, "designs": {}}
+    todo = [x for x in X if onp.asarray(x, float).tobytes().hex() not in cache["designs"]]
+    if todo:
+        log(f"confirming {len(todo)} front design(s) with model {goal.search.confirm_model}")
+        for c in confirm_designs(goal, todo, goal.search.confirm_model):
+            cache["designs"][onp.asarray(c.x, float).tobytes().hex()] = {
+                "f": [float(v) for v in c.f], "g": [float(v) for v in c.g],
+                "status": c.status, "model": c.model, "change": float(c.change)}
+        path.write_text(json.dumps(cache, indent=1) + "\n")
+    out = []
+    for x in X:
+        e = cache["designs"][onp.asarray(x, float).tobytes().hex()]
+        out.append(Confirmed(onp.asarray(x, float), onp.asarray(e["f"], float),
+                             onp.asarray(e["g"], float), e["status"], e["model"], e["change"]))
+    return out
+
+
+def _polish_front(run_dir: Path, goal: Goal, problem, X, confirmed, olabels, log):
+    """Polish the best confirmed front design of each objective in the confirmation model;
+    write ``confirmed.csv`` and ``candidates/polished-<objective>.yaml``."""
+    from chiropt.export import write_candidate, write_front_csv
+    from chiropt.search.confirm import confirm_goal, polish
+
+    sign = onp.array([1.0 if s == "max" else -1.0 for s in problem.senses])
+    ok = [k for k, c in enumerate(confirmed)
+          if c.status == "ok" and onp.all(c.g <= FEASIBILITY_TOL)]
+    if not ok:
+        log("WARNING: no confirmed front design is feasible in the confirmation model; "
+            "nothing polished")
+        return
+    cols = ["objective"] + problem.paths + [f"{lab} (confirmed)" for lab in olabels]
+    rows = []
+    rproblem = GoalProblem(confirm_goal(goal, goal.search.confirm_model))
+    for m, lab in enumerate(olabels):
+        k = max(ok, key=lambda j, m=m: sign[m] * confirmed[j].f[m])
+        keep = float(confirmed[k].f[1 - m])
+        res = polish(goal, goal.search.confirm_model, X[k], m, keep,
+                     max_evals=goal.search.confirm_polish)
+        log(f"polished best {lab}: {float(confirmed[k].f[m]):.6g} -> {float(res.f[m]):.6g} "
+            f"({res.model})")
+        rows.append([lab, *[float(v) for v in res.x], *[float(v) for v in res.f]])
+        data = rproblem.design_at(res.x).to_dict()
+        data["name"] = f"{goal.run_name}-polished-{m}"
+        write_candidate(run_dir / "candidates" / f"polished-{m}.yaml", data,
+                        comments=[f"front design best in {lab}, polished in the confirmation "
+                                  f"model ({res.model})"] +
+                        [f"{lb} = {float(v)!r}" for lb, v in zip(olabels, res.f, strict=True)])
+    write_front_csv(run_dir / "confirmed.csv", cols, rows,
+                    header=[f"best front designs of run {goal.run_name} polished with model "
+                            f"{goal.search.confirm_model}"])
+
+
 def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | None = None,
                  status: str = "", log=None) -> RunSummary:
     """Regenerate front.csv, candidates/, plots from the store of a run folder."""
@@ -1112,7 +1182,8 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
             row += [float(v) for v in hi_problem.evaluate(r.x, False).f]
         check = validity(problem.design_at(r.x))
         worst_change = max(worst_change, check["worst"])
-        row += [check["lmax"], check["worst"],
+        row += [check["lmax"] if check["lmax"] is not None else check.get("label"),
+                check["worst"],
                 "passed" if check["worst"] <= VALIDITY_TOLERANCE else "failed"]
         rows.append(row)
         front_rows.append(dict(zip(columns, row, strict=True)))
@@ -1125,9 +1196,32 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
             max_dev = max(max_dev, dev)
     summary.reproduce_max_dev = max_dev
     if worst_change > VALIDITY_TOLERANCE:
-        log(f"WARNING: one more multipole order changes a front design's reported quantities "
-            f"by up to {worst_change:.3g} (> {VALIDITY_TOLERANCE:g}); consider model: "
-            "{lmax: auto} (columns 'lmax_change' and '(lmax+1)' of front.csv)")
+        if goal.design.solver == "fourier":
+            log(f"WARNING: the next harmonic count changes a front design's reported "
+                f"quantities by up to {worst_change:.3g} (> {VALIDITY_TOLERANCE:g}); consider "
+                "more model.harmonics, or search.confirm (column 'lmax_change' of front.csv "
+                "holds the change)")
+        else:
+            log(f"WARNING: one more multipole order changes a front design's reported "
+                f"quantities by up to {worst_change:.3g} (> {VALIDITY_TOLERANCE:g}); consider "
+                "model: {lmax: auto} (columns 'lmax_change' and '(lmax+1)' of front.csv)")
+    confirmed = None
+    if goal.search.confirm_model is not None and chosen:
+        confirmed = _confirm_front(run_dir, goal, [uniq[i].x for i in chosen], log)
+        columns += ([f"{lab} (confirmed)" for lab in olabels]
+                    + ["confirm_feasible", "confirm_model", "confirm_change"])
+        for row, front_row, c in zip(rows, front_rows, confirmed, strict=True):
+            extra_vals = ([float(v) for v in c.f]
+                          + [bool(c.status == "ok" and onp.all(c.g <= FEASIBILITY_TOL)),
+                             c.model, float(c.change)])
+            row += extra_vals
+            front_row.update(zip(columns[-len(extra_vals):], extra_vals, strict=True))
+        if goal.search.confirm_polish and M == 2:
+            try:
+                _polish_front(run_dir, goal, problem, [uniq[i].x for i in chosen], confirmed,
+                              olabels, log)
+            except Exception as exc:  # the polish must never lose a run's results
+                log(f"WARNING: polishing failed: {type(exc).__name__}: {exc}")
     if max_dev > REPRODUCE_TOL:
         log(f"WARNING: re-evaluated front quantities differ from the store by {max_dev:.3e} "
             f"(> {REPRODUCE_TOL:g})")
@@ -1191,7 +1285,8 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
                                                   comments=lines))
     # plots
     try:
-        plot_front(run_dir / "front.png", problem, uniq, F, feas, chosen, picks)
+        plot_front(run_dir / "front.png", problem, uniq, F, feas, chosen, picks,
+                   confirmed=None if confirmed is None else onp.array([c.f for c in confirmed]))
         plot_convergence(run_dir / "convergence.png", problem, recs, reference=ref)
     except Exception as exc:  # a plot must never lose a run's results
         log(f"WARNING: plotting failed: {type(exc).__name__}: {exc}")

@@ -87,7 +87,14 @@ Metrics
     searches start from the best explored feasible designs: ``max(2, starts)`` searches per
     anchor and ``starts`` per epsilon-constraint level, the levels spread along the
     explored front. The reported front is the non-dominated set of every feasible
-    evaluation of the run, explored ones included.
+    evaluation of the run, explored ones included. ``confirm: {model: {...}, polish: N}``:
+    after the searches, every front design is solved again with this model section (for
+    example ``{solver: fourier, harmonics: auto}``, the rigorous model for disks standing
+    on the substrate) and its values are written beside the search model's in front.csv
+    (columns ``... (confirmed)``, ``confirm_model``, ``confirm_change``) and marked on
+    front.png; with ``polish: N`` the best front design of each objective is improved by
+    a local search of at most N iterations in that model (``confirmed.csv`` and
+    ``candidates/polished-*.yaml``).
 ``budget``
     ``wall_time`` (``8h``, ``90m``, ``1h30m``, ``45s`` or a number of seconds) and/or
     ``evaluations`` (a total, split evenly over the local searches so that a run stays
@@ -255,14 +262,19 @@ class SearchSettings:
     front_points: int = 9
     front_reference: tuple[tuple[str, float], ...] | None = None
     explore: ExploreSettings = field(default_factory=lambda: ExploreSettings())
+    confirm_model: dict | None = None
+    confirm_polish: int = 0
 
     def to_dict(self) -> dict:
         front: dict[str, Any] = {"method": self.front_method, "points": self.front_points}
         if self.front_reference is not None:
             front["reference"] = dict(self.front_reference)
-        return {"algorithm": self.algorithm, "starts": self.starts, "xtol_rel": self.xtol_rel,
-                "ftol_rel": self.ftol_rel, "max_evals_per_start": self.max_evals_per_start,
-                "front": front, "explore": self.explore.to_dict()}
+        out = {"algorithm": self.algorithm, "starts": self.starts, "xtol_rel": self.xtol_rel,
+               "ftol_rel": self.ftol_rel, "max_evals_per_start": self.max_evals_per_start,
+               "front": front, "explore": self.explore.to_dict()}
+        if self.confirm_model is not None:
+            out["confirm"] = {"model": dict(self.confirm_model), "polish": self.confirm_polish}
+        return out
 
 
 @dataclass(frozen=True)
@@ -779,7 +791,7 @@ def _constraint(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl):
 def _search(ctx: _Ctx, raw: Any, objectives) -> SearchSettings:
     n_objectives = len(objectives)
     allowed = {"algorithm", "starts", "xtol_rel", "ftol_rel", "max_evals_per_start", "front",
-               "explore"}
+               "explore", "confirm"}
     ctx.keys(raw, allowed, "search")
     s = SearchSettings()
     algo = raw.get("algorithm", s.algorithm)
@@ -807,9 +819,19 @@ def _search(ctx: _Ctx, raw: Any, objectives) -> SearchSettings:
         if "reference" in raw["front"]:
             reference = _reference(ctx, raw["front"]["reference"], objectives)
     explore = _explore(ctx, raw.get("explore") or {})
+    confirm_model, polish = None, 0
+    if raw.get("confirm") is not None:
+        conf = raw["confirm"]
+        ctx.keys(conf, {"model", "polish"}, "search.confirm")
+        if not isinstance(conf.get("model"), dict):
+            raise ctx.error("search.confirm.model", "missing; a model section such as "
+                                                    "{solver: fourier, harmonics: auto}")
+        confirm_model = dict(conf["model"])
+        polish = ctx.integer(conf.get("polish", 0), "search.confirm.polish", low=0, high=200)
     return replace(s, algorithm=algo, starts=starts, xtol_rel=xtol, ftol_rel=ftol,
                    max_evals_per_start=cap, front_method=method, front_points=points,
-                   front_reference=reference, explore=explore)
+                   front_reference=reference, explore=explore, confirm_model=confirm_model,
+                   confirm_polish=polish)
 
 
 def reference_keys(objective) -> tuple[str, ...]:

@@ -72,7 +72,7 @@ def _order_overlay(ax, problem, rec, spec) -> str:
         return f"per-order overlay skipped ({type(exc).__name__})"
 
 
-def plot_front(path, problem, records, F, feasible, chosen, picks) -> Path:
+def plot_front(path, problem, records, F, feasible, chosen, picks, confirmed=None) -> Path:
     """The front in objective space and, with a region, in the (DOCP, g) plane coloured by u.
 
     Parameters
@@ -82,6 +82,8 @@ def plot_front(path, problem, records, F, feasible, chosen, picks) -> Path:
     records : stored evaluations (unique designs, status ok), rows of ``F``
     F : (N, M) objective values; feasible : (N,) bool
     chosen : indices of the front (in ``records``); picks : front positions with a candidate
+    confirmed : optional (len(chosen), M) values of the front re-solved by the
+        confirmation model (drawn as open markers joined to the search model's points)
     """
     goal = problem.goal
     region = goal.design.region is not None
@@ -98,6 +100,12 @@ def plot_front(path, problem, records, F, feasible, chosen, picks) -> Path:
             Fc = F[chosen]
             ax.plot(Fc[:, 0], Fc[:, 1], "-o", color=FRONT_COLOR, ms=4, lw=1.2,
                     label="non-dominated front")
+            if confirmed is not None and len(confirmed) == len(chosen):
+                Cf = onp.asarray(confirmed, float)
+                for a, b in zip(Fc, Cf, strict=True):
+                    ax.plot([a[0], b[0]], [a[1], b[1]], color=FRONT_COLOR, lw=0.6, ls=":")
+                ax.scatter(Cf[:, 0], Cf[:, 1], s=22, facecolors="none",
+                           edgecolors=FRONT_COLOR, lw=1.0, label="confirmed (rigorous model)")
             span = onp.ptp(F[fe], axis=0) if fe.any() else onp.ones(2)
             span = onp.where(span > 0, span, 1.0)
             placed: list = []

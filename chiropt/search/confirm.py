@@ -94,8 +94,8 @@ def polish(goal, model: dict, x0, objective: int, keep_at_least: float | None, *
 
     problem = GoalProblem(confirm_goal(goal, model))
     sign = onp.array([1.0 if s == "max" else -1.0 for s in problem.senses])
-    lo = onp.array([v.low for v in goal.variables], float)
-    hi = onp.array([v.high for v in goal.variables], float)
+    lo = onp.array([v.lower for v in goal.variables], float)
+    hi = onp.array([v.upper for v in goal.variables], float)
     span = onp.where(hi > lo, hi - lo, 1.0)
     cache: dict = {}
 
