@@ -37,6 +37,7 @@ it is not differentiated.
 
 from __future__ import annotations
 
+import hashlib
 from dataclasses import dataclass
 from typing import Any
 
@@ -44,7 +45,12 @@ import autograd.numpy as np
 import numpy as onp
 from autograd.tracer import getval
 
+from chiropt.fourier.linalg import inv
+
 NORMAL_GRID = 256
+#: projector roots by the content of the normal-field matrices they come from (so a
+#: changed geometry never reuses another's; plain values, not differentiated)
+_ROOTS: dict = {}
 FACTORIZATIONS = ("normal", "laurent")
 
 
@@ -136,12 +142,12 @@ def layer_matrices(eps_back, inclusions, lattice, mn, dmn, inverse, *,
     G_diff = dmn[:, 0:1] * b1[None, :] + dmn[:, 1:2] * b2[None, :]
     mats = shape_matrices(inclusions, G_diff, lattice.area, inverse)
     E = _composite(eps_back, [e for _, e in inclusions], mats, M)
-    ezz_inv = np.linalg.inv(E)
+    ezz_inv = inv(E)
     if factorization == "laurent" or not inclusions:
         zero = np.zeros_like(E)
         return LayerMatrices(E, zero, zero, E, ezz_inv)
     Einv = _composite(1.0 / eps_back, [1.0 / e for _, e in inclusions], mats, M)
-    Eta = np.linalg.inv(Einv)
+    Eta = inv(Einv)
     if normals is None:
         normals = normal_field_matrices(inclusions, lattice, dmn, inverse)
     Rt, Rn = normal_projector_roots(normals)
@@ -167,12 +173,19 @@ def normal_projector_roots(normals):
     Plain values (the normal field is not differentiated).
     """
     Nxx, Nxy, Nyy = (onp.asarray(getval(n)) for n in normals)
+    key = hashlib.sha1(b"".join(onp.ascontiguousarray(n).tobytes()
+                                for n in (Nxx, Nxy, Nyy))).hexdigest()
+    if key in _ROOTS:
+        return _ROOTS[key]
     Pn = onp.block([[Nxx, Nxy], [Nxy, Nyy]])
     Pn = 0.5 * (Pn + Pn.conj().T)
     w, U = onp.linalg.eigh(Pn)
     w = onp.clip(w, 0.0, 1.0)
     Rn = (U * onp.sqrt(w)) @ U.conj().T
     Rt = (U * onp.sqrt(1.0 - w)) @ U.conj().T
+    if len(_ROOTS) >= 16:   # a search moves few normal fields; keep the latest
+        _ROOTS.pop(next(iter(_ROOTS)))
+    _ROOTS[key] = (Rt, Rn)
     return Rt, Rn
 
 

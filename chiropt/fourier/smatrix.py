@@ -35,6 +35,7 @@ import autograd.numpy as np
 from autograd.tracer import getval
 
 from chiropt.fourier.eig import eig_modes
+from chiropt.fourier.linalg import inv
 
 GAMMA_FLOOR = 1e-10
 
@@ -110,14 +111,14 @@ def _inv_W(m: Modes):
     if m.uniform:
         return None
     if m.W_inv is None:
-        m.W_inv = np.linalg.inv(m.W)
+        m.W_inv = inv(m.W)
     return m.W_inv
 
 
 def _inv_V(m: Modes):
     if not m.uniform:
         if m.V_inv is None:
-            m.V_inv = np.linalg.inv(m.V)
+            m.V_inv = inv(m.V)
         return m.V_inv
     a, b, c, d = m.V[:, 0], m.V[:, 1], m.V[:, 2], m.V[:, 3]
     det = a * d - b * c
@@ -153,7 +154,7 @@ def interface(below: Modes, above: Modes):
         T1 = np.matmul(Wb_inv, Wa)
     T2 = np.matmul(_inv_V(below), _dense(above, "V"))
     Ap, Am = T1 + T2, T1 - T2
-    Ai = np.linalg.inv(Ap)
+    Ai = inv(Ap)
     AmAi = np.matmul(Am, Ai)
     return AmAi, 0.5 * (Ap - np.matmul(AmAi, Am)), 2.0 * Ai, -np.matmul(Ai, Am)
 
@@ -246,7 +247,7 @@ def star(A, B):
     B11, B12, B21, B22 = B
     n = A11.shape[-1]
     eye = np.eye(n)
-    D = np.linalg.inv(eye - np.matmul(A22, B11))        # (I - A22 B11)^-1
+    D = inv(eye - np.matmul(A22, B11))        # (I - A22 B11)^-1
     DA22 = np.matmul(D, A22)
     DA21 = np.matmul(D, A21)
     A12B11 = np.matmul(A12, B11)

@@ -23,6 +23,7 @@ from typing import Any
 import autograd.numpy as np
 
 from chiropt.fourier.harmonics import difference_table
+from chiropt.fourier.linalg import solve
 from chiropt.fourier.permittivity import layer_matrices, plain_normals
 from chiropt.fourier.smatrix import (
     Modes,
@@ -219,7 +220,7 @@ def layer_amplitudes(sol: StackSolution, j: int, *, from_above=None, from_below=
     U11X = U11 * X[:, None, :]
     eye = np.eye(n)
     rhs = src_a + np.matmul(L22X, src_b) * np.ones((1, 1, C))
-    a = np.linalg.solve(eye - np.matmul(L22X, U11X), rhs)
+    a = solve(eye - np.matmul(L22X, U11X), rhs)
     b = src_b + np.matmul(U11X, a)
     return a, b
 

@@ -168,8 +168,9 @@ def plot_front(path, problem, records, F, feasible, chosen, picks, confirmed=Non
         ax.set_xlabel(f"DOCP, helicity average, at {where} [-]")
         ax.set_ylabel(f"CD enhancement g at {where} [-]")
         ax.set_title("(DOCP, g) plane")
-        if ax.get_legend_handles_labels()[0]:
-            ax.legend(loc="best")
+        if ax.get_legend_handles_labels()[0]:   # below the panel: the labels are long
+            ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), fontsize=6,
+                      frameon=False)
     fig.suptitle(f"run {goal.run_name}", fontsize=10, color=PALETTE["c"])
     path = Path(path)
     save(fig, path)

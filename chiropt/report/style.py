@@ -33,5 +33,5 @@ def new_figure(rows: int = 1, cols: int = 1, *, width: float = 6.4, height: floa
 def save(fig, path) -> None:
     """Write a PNG at 150 dpi and close the figure."""
     fig.tight_layout()
-    fig.savefig(path, dpi=150)
+    fig.savefig(path, dpi=150, bbox_inches="tight")
     plt.close(fig)
