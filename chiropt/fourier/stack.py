@@ -140,35 +140,26 @@ def solve_stack(stack: FourierStack, *, interior: bool = False) -> StackSolution
     n_local = 0
     while n_local < len(stack.layers) and not stack.layers[n_local].inclusions:
         n_local += 1
-    S = None
-    if n_local == len(stack.layers):   # no patterned layer at all
-        S = local_interface(sequence[0], sequence[1])
-        for j in range(n_local):
-            if interior:
-                lower.append(local_to_dense(S))
-            M = Kx.shape[-1]
-            S = local_star_phase(S, phase(modes[j], stack.layers[j].thickness * k0)[:, :M])
+    all_uniform = n_local == len(stack.layers)
+    M = Kx.shape[-1]
+    S = local_interface(sequence[0], sequence[1]) if n_local or all_uniform else None
+    for j in range(n_local):
+        if interior:
+            lower.append(local_to_dense(S))
+        S = local_star_phase(S, phase(modes[j], stack.layers[j].thickness * k0)[:, :M])
+        if j + 1 < n_local or all_uniform:   # the next interface is still uniform-uniform
             S = local_star(S, local_interface(modes[j], sequence[j + 2]))
+    if all_uniform:
         S = local_to_dense(S)
+    elif n_local == 0:
+        S = interface(sequence[0], sequence[1])
     else:
-        if n_local:
-            S = local_interface(sequence[0], sequence[1])
-        for j in range(n_local):
-            if interior:
-                lower.append(local_to_dense(S))
-            M = Kx.shape[-1]
-            S = local_star_phase(S, phase(modes[j], stack.layers[j].thickness * k0)[:, :M])
-            if j + 1 < n_local:
-                S = local_star(S, local_interface(modes[j], sequence[j + 2]))
-        if n_local == 0:
-            S = interface(sequence[0], sequence[1])
-        else:
-            S = star(local_to_dense(S), interface(modes[n_local - 1], sequence[n_local + 1]))
-        for j in range(n_local, len(stack.layers)):
-            if interior:
-                lower.append(S)
-            S = star_phase(S, phase(modes[j], stack.layers[j].thickness * k0))
-            S = star(S, interface(modes[j], sequence[j + 2]))
+        S = star(local_to_dense(S), interface(modes[n_local - 1], sequence[n_local + 1]))
+    for j in range(n_local, len(stack.layers)):
+        if interior:
+            lower.append(S)
+        S = star_phase(S, phase(modes[j], stack.layers[j].thickness * k0))
+        S = star(S, interface(modes[j], sequence[j + 2]))
     upper = []
     if interior:
         T = interface(sequence[-2], sequence[-1])
