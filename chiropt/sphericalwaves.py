@@ -55,6 +55,7 @@ from functools import cache
 import autograd.numpy as np
 import numpy as onp
 import scipy.special as sps
+from autograd.extend import defvjp, primitive
 
 # ------------------------------------------------------------------ indexing
 
@@ -112,36 +113,76 @@ def spherical_harmonics(u, lmax: int):
     Y_{l,-m} = N_lm (u_x - i u_y)^m P_l^(m)(u_z), P_l^(m) the m-th derivative of the
     Legendre polynomial, by the recurrence (l - m) P_l^(m) = (2l - 1) t P_{l-1}^(m)
     - (l + m - 1) P_{l-2}^(m), P_m^(m) = (2m - 1)!!. It equals the usual harmonic on the
-    real sphere and is its analytic continuation elsewhere.
+    real sphere and is its analytic continuation elsewhere. One autograd primitive: its
+    derivative (the same polynomials differentiated in u_x, u_y, u_z, the components taken
+    as independent) is computed with the values, so the reverse pass has one node instead
+    of one per (l, m) term.
 
     References
     ----------
     DLMF 14.7.8, 14.10.3 (Legendre recurrences), 14.30.1 (Y_lm); Jackson (1999) eq. 3.53.
     """
+    return _harmonics(u, int(lmax))
+
+
+def _harmonic_table(u, lmax: int, derivative: bool):
+    """Plain values Y (..., J) and, with ``derivative``, dY/du (..., J, 3)."""
+    u = onp.asarray(u)
     ux, uy, t = u[..., 0], u[..., 1], u[..., 2]
     plus, minus = ux + 1j * uy, ux - 1j * uy
-    out = {}
-    pw_p = [1.0 + 0 * t]
-    pw_m = [1.0 + 0 * t]
-    for _ in range(1, lmax + 1):
+    one = onp.ones_like(t, dtype=complex)
+    pw_p, pw_m = [one], [one]
+    for _ in range(lmax):
         pw_p.append(pw_p[-1] * plus)
         pw_m.append(pw_m[-1] * minus)
-    for m in range(0, lmax + 1):
+    J = (lmax + 1) ** 2
+    Y = onp.empty(t.shape + (J,), dtype=complex)
+    D = onp.empty(t.shape + (J, 3), dtype=complex) if derivative else None
+    for m in range(lmax + 1):
         dfact = float(onp.prod(onp.arange(2 * m - 1, 0, -2))) if m > 0 else 1.0
-        q_prev, q = None, dfact + 0 * t
+        q_prev, q = 0.0 * one, dfact * one
+        dq_prev, dq = 0.0 * one, 0.0 * one
         for l in range(m, lmax + 1):
             if l > m:
-                nxt = ((2 * l - 1) * t * q - (l + m - 1) * (q_prev if q_prev is not None else 0.0)
-                       ) / (l - m)
-                q_prev, q = q, nxt
+                nxt = ((2 * l - 1) * t * q - (l + m - 1) * q_prev) / (l - m)
+                dnxt = ((2 * l - 1) * (q + t * dq) - (l + m - 1) * dq_prev) / (l - m)
+                q_prev, q, dq_prev, dq = q, nxt, dq, dnxt
             c = _norm(l, m)
-            out[(l, m)] = c * (-1) ** m * pw_p[m] * q
+            sign = (-1) ** m
+            Y[..., l * (l + 1) + m] = c * sign * pw_p[m] * q
             if m > 0:
-                out[(l, -m)] = c * pw_m[m] * q
-    # + 0j: every entry complex, so the reverse pass never casts a complex cotangent
-    # into a real slot (autograd's add takes the real part where it should)
-    return np.stack([out[(l, m)] + 0j for l in range(lmax + 1) for m in range(-l, l + 1)],
-                    axis=-1)
+                Y[..., l * (l + 1) - m] = c * pw_m[m] * q
+            if derivative:
+                lower_p = m * pw_p[m - 1] if m > 0 else 0.0 * one
+                lower_m = m * pw_m[m - 1] if m > 0 else 0.0 * one
+                k = l * (l + 1) + m
+                D[..., k, 0] = c * sign * lower_p * q
+                D[..., k, 1] = c * sign * 1j * lower_p * q
+                D[..., k, 2] = c * sign * pw_p[m] * dq
+                if m > 0:
+                    k = l * (l + 1) - m
+                    D[..., k, 0] = c * lower_m * q
+                    D[..., k, 1] = -1j * c * lower_m * q
+                    D[..., k, 2] = c * pw_m[m] * dq
+    return Y, D
+
+
+@primitive
+def _harmonics(u, lmax):
+    return _harmonic_table(u, lmax, False)[0]
+
+
+def _harmonics_vjp(ans, u, lmax):
+    _, D = _harmonic_table(u, lmax, True)
+
+    def vjp(g):
+        out = onp.einsum("...j,...jc->...c", g, D)
+        return out if onp.iscomplexobj(u) else onp.real(out)
+
+    return vjp
+
+
+defvjp(_harmonics, _harmonics_vjp, None)
 
 
 def _cpm(l, m, sign):

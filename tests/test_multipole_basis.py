@@ -240,3 +240,23 @@ def test_mode_table_order():
     tau, ls, ms = mode_table(2)
     assert list(tau[:4]) == [0, 1, 0, 1] and list(ls[:6]) == [1] * 6
     assert list(ms[:6]) == [-1, -1, 0, 0, 1, 1] and len(tau) == 16
+
+
+@pytest.mark.parametrize("complex_u", [False, True])
+def test_spherical_harmonics_primitive_derivative_matches_finite_differences(complex_u):
+    # central differences of the polynomial form (common practice, no source); complex
+    # directions are those of evanescent waves
+    import autograd.numpy as anp
+    from autograd import grad
+
+    rng = np.random.default_rng(3)
+    u0 = rng.normal(size=(4, 3)) + (1j * rng.normal(size=(4, 3)) if complex_u else 0.0)
+    w = rng.normal(size=(4, 16)) + 1j * rng.normal(size=(4, 16))
+    du = rng.normal(size=(4, 3))
+
+    def f(s):
+        return anp.real(anp.sum(w * spherical_harmonics(u0 + s * du, 3)))
+
+    h = 1e-6
+    fd = (f(h) - f(-h)) / (2 * h)
+    assert abs(grad(f)(0.0) - fd) < 1e-7 * max(1.0, abs(fd))
