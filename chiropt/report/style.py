@@ -7,6 +7,8 @@ Okabe & Ito (2008) colour-blind-safe set; helicity is told apart by line style
 
 from __future__ import annotations
 
+import warnings
+
 import matplotlib
 
 matplotlib.use("Agg")
@@ -32,6 +34,8 @@ def new_figure(rows: int = 1, cols: int = 1, *, width: float = 6.4, height: floa
 
 def save(fig, path) -> None:
     """Write a PNG at 150 dpi and close the figure."""
-    fig.tight_layout()
+    with warnings.catch_warnings():   # legends placed outside an axes: the tight
+        warnings.simplefilter("ignore", UserWarning)   # bounding box below takes them in
+        fig.tight_layout()
     fig.savefig(path, dpi=150, bbox_inches="tight")
     plt.close(fig)
