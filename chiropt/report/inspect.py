@@ -71,17 +71,37 @@ def _cell_outline(ax, design):
     a1, a2 = lattice_vectors_nm(design.lattice)
     corners = onp.array([[0, 0], a1, a1 + a2, a2, [0, 0]])
     ax.plot(corners[:, 0], corners[:, 1], color="white", linewidth=0.8)
-    from matplotlib.patches import Circle
-
     for part in design.particles:
         for i in (0, 1):
             for j in (0, 1):  # the particle and its images at the cell corners
                 centre = onp.asarray(part.position_nm) + i * a1 + j * a2
-                ax.add_patch(Circle(centre, part.radius_nm, fill=False, color="white",
-                                    linestyle=":", linewidth=0.8))
+                for patch in _footprint(part, centre):
+                    ax.add_patch(patch)
     xs, ys = corners[:, 0], corners[:, 1]
     ax.set_xlim(xs.min(), xs.max())
     ax.set_ylim(ys.min(), ys.max())
+
+
+def _footprint(part, centre):
+    """Dotted outline patches of a particle's cross-section at ``centre`` [nm]."""
+    import math
+
+    from matplotlib.patches import Circle, Ellipse, Polygon
+
+    from chiropt.fourier.shapes import Rectangle
+
+    style = {"fill": False, "color": "white", "linestyle": ":", "linewidth": 0.8}
+    angle = part.angle_deg or 0.0
+    if part.shape == "elliptic_cylinder":
+        return [Ellipse(centre, 2 * part.radius_nm, 2 * part.radius_b_nm, angle=angle, **style)]
+    if part.shape == "box":   # the same outline the solver uses (lengths in nm here)
+        box = Rectangle(part.size_nm[0], part.size_nm[1], angle=math.radians(angle),
+                        centre=tuple(centre), corner_radius=part.corner_radius_nm or 0.0)
+        return [Polygon(onp.asarray(box.vertices), closed=True, **style)]
+    out = [Circle(centre, part.radius_nm, **style)]
+    if part.shape == "ring":
+        out.append(Circle(centre, part.inner_radius_nm, **style))
+    return out
 
 
 def _plot_maps(maps, design, at_nm, z_nm, path):
