@@ -518,3 +518,14 @@ def test_staircased_sphere_approaches_the_mie_based_multipole_model():
     assert errs[1] < errs[0] < 0.5 * mie
     check = validity(sphere({"solver": "fourier", "harmonics": 25, "slices": 4}))
     assert check["slicing_change"] > 0 and check["worst"] >= check["slicing_change"]
+
+
+def test_illumination_from_the_substrate_side_conserves_energy():
+    # Poynting's theorem (common practice, no source): lossless array lit from the glass
+    d = _disk_design(illumination={"wavelength_nm": [650.0, 800.0], "polar_deg": 15.0,
+                                   "azimuth_deg": 10.0, "side": "substrate"},
+                     region=None)
+    f = run_model(d).fractions
+    R, T = onp.asarray(f["R"]), onp.asarray(f["T"])
+    assert onp.max(onp.abs(R + T - 1)) < 1e-10
+    assert onp.all(R > 0) and onp.all(T > 0)
