@@ -175,9 +175,9 @@ def _harmonics(u, lmax):
 def _harmonics_vjp(ans, u, lmax):
     _, D = _harmonic_table(u, lmax, True)
 
-    def vjp(g):
-        out = onp.einsum("...j,...jc->...c", g, D)
-        return out if onp.iscomplexobj(u) else onp.real(out)
+    def vjp(g):   # autograd operations: the vjp is itself differentiated by --grad
+        out = np.einsum("...j,...jc->...c", g, D)
+        return out if onp.iscomplexobj(u) else np.real(out)
 
     return vjp
 

@@ -529,3 +529,23 @@ def test_illumination_from_the_substrate_side_conserves_energy():
     R, T = onp.asarray(f["R"]), onp.asarray(f["T"])
     assert onp.max(onp.abs(R + T - 1)) < 1e-10
     assert onp.all(R > 0) and onp.all(T > 0)
+
+
+def test_spectrum_sensitivities_of_a_fourier_design_match_finite_differences():
+    # the --grad path (reverse-of-reverse Jacobian, which differentiates the primitives'
+    # own derivative rules again) against central differences (common practice)
+    from chiropt.design import design_from_dict as build
+    from chiropt.sensitivity import spectrum_sensitivities
+
+    d = _disk_design(illumination={"wavelength_nm": [700.0, 800.0]})
+    sens = spectrum_sensitivities(d, ["particles[0].radius_nm"])
+    h = 1e-3
+    data = d.to_dict()
+
+    def g_at(r):
+        data["particles"][0]["radius_nm"] = r
+        return onp.asarray(quantities_of(run_model(build(data)))["g"], float)
+
+    fd = (g_at(100 + h) - g_at(100 - h)) / (2 * h)
+    got = onp.asarray(sens["g"]["particles[0].radius_nm"], float)
+    assert onp.max(onp.abs(got - fd)) < 1e-6 * max(1.0, float(onp.max(onp.abs(fd))))

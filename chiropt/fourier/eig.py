@@ -23,8 +23,11 @@ the rule is exact.
 
 from __future__ import annotations
 
+import autograd.numpy as anp
 import numpy as onp
 from autograd.extend import defvjp, primitive
+
+from chiropt.fourier.linalg import solve
 
 DEGENERACY = 1e-9
 
@@ -50,13 +53,13 @@ def _eig_vjp(ans, A):
     F = _pair_factors(lam)
     WT = onp.swapaxes(W, -1, -2)
 
-    def vjp(g):
+    def vjp(g):   # autograd operations: differentiable again in the cotangent
         g_lam, g_W = g
-        Z = F * (WT @ g_W) if g_W is not None else onp.zeros_like(W)
+        Z = F * anp.matmul(WT, g_W) if g_W is not None else onp.zeros_like(W)
         if g_lam is not None:
             Z = Z + g_lam[..., :, None] * onp.eye(lam.shape[-1])
         # A_bar = W^-T Z W^T
-        return onp.linalg.solve(WT, Z @ WT)
+        return solve(WT, anp.matmul(Z, WT))
 
     return vjp
 

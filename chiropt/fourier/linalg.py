@@ -14,12 +14,13 @@ Must not import: solve, multipole, fields, metrics, search, store, report, cli.
 
 from __future__ import annotations
 
+import autograd.numpy as anp
 import numpy as onp
 from autograd.extend import defvjp, primitive
 
 
 def _T(a):
-    return onp.swapaxes(a, -1, -2)
+    return anp.swapaxes(a, -1, -2)
 
 
 @primitive
@@ -28,7 +29,9 @@ def inv(A):
     return onp.linalg.inv(A)
 
 
-defvjp(inv, lambda ans, A: lambda g: -(_T(ans) @ g @ _T(ans)))
+# the rules use autograd operations on the cotangent: they are differentiated again when a
+# Jacobian is built by reverse-of-reverse mode (chiropt.sensitivity)
+defvjp(inv, lambda ans, A: lambda g: -anp.matmul(anp.matmul(_T(ans), g), _T(ans)))
 
 
 @primitive
@@ -38,11 +41,11 @@ def solve(A, b):
 
 
 def _solve_vjp_b(ans, A, b):
-    return lambda g: onp.linalg.solve(_T(A), g)
+    return lambda g: solve(_T(A), g)
 
 
 def _solve_vjp_A(ans, A, b):
-    return lambda g: -(onp.linalg.solve(_T(A), g) @ _T(ans))
+    return lambda g: -anp.matmul(solve(_T(A), g), _T(ans))
 
 
 defvjp(solve, _solve_vjp_A, _solve_vjp_b)
