@@ -26,6 +26,10 @@ from chiropt.structure import Structure, build_structure
 LMAX_CAP = 8
 
 
+class TruncationWarning(UserWarning):
+    """A model's own truncation target was not reached (results are estimates)."""
+
+
 @dataclass
 class ModelOutput:
     """What one forward run produced.
@@ -35,7 +39,8 @@ class ModelOutput:
     (or None); lmax: the multipole degree used (None for the Fourier solver);
     harmonics: the Fourier solver's harmonic count (None for the others);
     harmonics_change: with ``harmonics: auto``, the largest change of R, T and the region
-    metrics at the last step of the count (None otherwise).
+    metrics at the last step of the count (None otherwise); harmonics_changes: that change
+    per quantity (the error estimate beside each one).
     """
 
     structure: Structure
@@ -45,6 +50,7 @@ class ModelOutput:
     lmax: int | None
     harmonics: int | None = None
     harmonics_change: float | None = None
+    harmonics_changes: dict | None = None
 
 
 def metrics_tolerance(design: Design) -> float:
@@ -180,12 +186,13 @@ def _run_fourier(design, values, *, harmonics, area_grid, warn):
         if count != "auto":
             return _fourier_once(design, values, int(count), area_grid, warn)
         plain = None if values is None else {k: getval(v) for k, v in values.items()}
-        previous, change = None, None
+        previous, change, changes = None, None, None
         for step in [s for s in HARMONIC_STEPS if s <= design.harmonics_max]:
             out = _fourier_once(design, plain, step, 0, False)
             here = {k: onp.asarray(getval(v)) for k, v in quantities_of(out).items()}
             if previous is not None:
-                change = max(float(onp.max(onp.abs(here[k] - previous[k]))) for k in here)
+                changes = {k: float(onp.max(onp.abs(here[k] - previous[k]))) for k in here}
+                change = max(changes.values())
                 if change < design.harmonics_tolerance:
                     break
             previous = here
@@ -194,6 +201,15 @@ def _run_fourier(design, values, *, harmonics, area_grid, warn):
         if traced or area_grid or warn:
             out = _fourier_once(design, values, chosen, area_grid, warn)
         out.harmonics_change = change
+        out.harmonics_changes = changes
+        if change is None or change >= design.harmonics_tolerance:
+            warnings.warn(f"harmonics: auto stopped at model.harmonics_max = "
+                          f"{design.harmonics_max} ({chosen} harmonics) before converging: the "
+                          f"last step changed a quantity by "
+                          f"{float('nan') if change is None else change:.3g} (model."
+                          f"harmonics_tolerance {design.harmonics_tolerance:g}); raise "
+                          "harmonics_max or read the results as estimates",
+                          TruncationWarning, stacklevel=3)
         return out
 
 

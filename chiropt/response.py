@@ -51,6 +51,7 @@ class Response:
     lmax: int | None = 1
     harmonics: int | None = None
     harmonics_change: float | None = None
+    harmonics_changes: dict | None = None
     validity: dict | None = None
     solution: Solution | None = field(default=None, repr=False)
 
@@ -79,6 +80,8 @@ class Response:
             out["harmonics"] = self.harmonics
             if self.harmonics_change is not None:
                 out["harmonics_change"] = self.harmonics_change
+            if self.harmonics_changes is not None:   # per quantity: its error estimate
+                out["harmonics_change_by_quantity"] = self.harmonics_changes
         if self.validity is not None:
             out["validity"] = self.validity
         return out
@@ -116,5 +119,6 @@ def evaluate(design: Design, *, keep_solution: bool = False,
                     A=onp.asarray(frac["A"]), A_dipoles=onp.asarray(frac["A_dipoles"]),
                     rayleigh=onp.asarray(sol.rayleigh), warnings=notes, metrics=metrics,
                     lmax=out.lmax, harmonics=out.harmonics,
-                    harmonics_change=out.harmonics_change, validity=check,
+                    harmonics_change=out.harmonics_change,
+                    harmonics_changes=out.harmonics_changes, validity=check,
                     solution=sol if keep_solution else None)
