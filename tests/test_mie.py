@@ -549,3 +549,29 @@ def test_gradient_along_array_matches_elementwise():
         for v in x
     ]
     assert np.allclose(total(x), per_element, rtol=1e-13)
+
+
+@pytest.mark.parametrize("x0,m0", [(0.05, 3.5 + 0.01j), (2.2, 1.5 + 1e-4j), (5.0, 3.7 + 0.1j),
+                                   (1.7, 0.06 + 4.0j), (3.1, 2.0 + 1e-4j)])
+def test_mie_primitive_derivatives_match_finite_differences(x0, m0):
+    # central differences of a_n, b_n in x and in Re m, Im m (common practice, no source):
+    # small x, nearly real m (near poles of the ratio function), a metal-like index
+    import autograd.numpy as anp
+    from autograd import grad
+
+    w = np.array([1.0 + 2.0j, -0.5 + 1.0j, 0.3 - 0.2j, 1.0, 0.1j, -1.0])
+
+    def f(x, mr, mi):
+        a, b = mie_coefficients(x, mr + 1j * mi, 6)
+        return anp.real(anp.sum(a[0] * w)) + anp.imag(anp.sum(b[0] * w))
+
+    args = [np.array([x0]), np.array([m0.real]), np.array([m0.imag])]
+    h = 1e-6
+    for k in range(3):
+        g = float(grad(f, k)(*args)[0])
+        up = [a.copy() for a in args]
+        dn = [a.copy() for a in args]
+        up[k] += h
+        dn[k] -= h
+        fd = float((f(*up) - f(*dn)) / (2 * h))
+        assert abs(g - fd) < 1e-6 * max(1.0, abs(fd))

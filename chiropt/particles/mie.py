@@ -30,6 +30,7 @@ import operator
 from typing import NamedTuple
 
 import autograd.numpy as np
+from autograd.extend import defvjp, primitive
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
@@ -224,10 +225,107 @@ def mie_coefficients(x, m, n_max: int):
     ones = np.ones(shape)
     x = _as_array(x) * ones
     m = _as_complex(m) * ones
-    z_sq = (m * x) ** 2
-    abs_z = float(np.max(np.abs(getval(m) * getval(x))))
-    big_g = ratio_g(z_sq, n_max, downward_start(n_max, abs_z))
-    return _coefficients_from_g(x, m, big_g, big_g, n_max)
+    ab = _sphere_ab(x, m, n_max)
+    return ab[0], ab[1]
+
+
+def _sphere_ab_values(x, m, n_max: int, derivative: bool = False):
+    """Plain a_n, b_n (..., n_max) and, with ``derivative``, their derivatives in x and m.
+
+    Derivatives of the form of :func:`mie_coefficients` (a = N/(N - i P), so
+    da = i (N dP - P dN)/(N - i P)^2), with
+    dG_n/dz = D_n + z D_n', D_n' = n(n+1)/z^2 - 1 - D_n^2, D_n = (G_n + n + 1)/z (the
+    Riccati equation of the logarithmic derivative, Bohren & Huffman eq. 4.88's D_n), z = m x,
+    and f_n' = f_{n-1} - (n/x) f_n for psi and chi (DLMF 10.51.2 for x j_n, x y_n).
+    """
+    import numpy as onp
+
+    x = onp.asarray(x, float)
+    m = onp.asarray(m, complex)
+    z = m * x
+    big_g = ratio_g(z * z, n_max, downward_start(n_max, float(onp.max(onp.abs(z)))))
+    big_g = [onp.asarray(g) for g in big_g]
+    g_x = ratio_g(x * x, n_max + 1, downward_start(n_max + 1, float(onp.max(x))))
+    psi, chi = riccati_psi_chi(x, g_x, n_max + 1)
+    psi = [onp.asarray(v) for v in psi]
+    chi = [onp.asarray(v) for v in chi]
+    m2 = m * m
+    a, b = [], []
+    dax, dam, dbx, dbm = [], [], [], []
+    for n in range(1, n_max + 1):
+        p0, p1, pm = psi[n + 1], psi[n + 2], psi[n]          # psi_n, psi_{n+1}, psi_{n-1}
+        c0, cm = chi[n + 1], chi[n]                          # chi_n, chi_{n-1}
+        G = big_g[n - 1]
+        Na = ((n + 1.0) * (1.0 - m2) + G) * p0 + m2 * x * p1
+        Pa = (n + 1.0 + G + n * m2) * c0 - m2 * x * cm
+        Nb = G * p0 + x * p1
+        Pb = (2.0 * n + 1.0 + G) * c0 - x * cm
+        a.append(Na / (Na - 1j * Pa))
+        b.append(Nb / (Nb - 1j * Pb))
+        if not derivative:
+            continue
+        D = (G + n + 1.0) / z
+        dG = D + z * (n * (n + 1.0) / (z * z) - 1.0 - D * D)    # dG/dz
+        dp0 = pm - n * p0 / x
+        dp1 = p0 - (n + 1.0) * p1 / x
+        dc0 = cm - n * c0 / x
+        dcm = -c0 + n * cm / x
+        dNa_x = dG * m * p0 + ((n + 1.0) * (1.0 - m2) + G) * dp0 + m2 * p1 + m2 * x * dp1
+        dNa_m = (-2.0 * m * (n + 1.0) + dG * x) * p0 + 2.0 * m * x * p1
+        dPa_x = dG * m * c0 + (n + 1.0 + G + n * m2) * dc0 - m2 * cm - m2 * x * dcm
+        dPa_m = (dG * x + 2.0 * n * m) * c0 - 2.0 * m * x * cm
+        dNb_x = dG * m * p0 + G * dp0 + p1 + x * dp1
+        dNb_m = dG * x * p0
+        dPb_x = dG * m * c0 + (2.0 * n + 1.0 + G) * dc0 - cm - x * dcm
+        dPb_m = dG * x * c0
+        qa, qb = (Na - 1j * Pa) ** 2, (Nb - 1j * Pb) ** 2
+        dax.append(1j * (Na * dPa_x - Pa * dNa_x) / qa)
+        dam.append(1j * (Na * dPa_m - Pa * dNa_m) / qa)
+        dbx.append(1j * (Nb * dPb_x - Pb * dNb_x) / qb)
+        dbm.append(1j * (Nb * dPb_m - Pb * dNb_m) / qb)
+    ab = onp.stack([onp.stack(a, axis=-1), onp.stack(b, axis=-1)])
+    if not derivative:
+        return ab, None
+    st = lambda v: onp.stack(v, axis=-1)  # noqa: E731
+    return ab, (onp.stack([st(dax), st(dbx)]), onp.stack([st(dam), st(dbm)]))
+
+
+@primitive
+def _sphere_ab(x, m, n_max):
+    """[a, b] (2, ..., n_max) of a homogeneous sphere as one autograd primitive."""
+    return _sphere_ab_values(x, m, n_max)[0]
+
+
+_DERIVATIVES: dict = {}
+
+
+def _sphere_ab_derivatives(x, m, n_max):
+    """(d/dx, d/dm) of [a, b], memoized by the argument values (the reverse passes of one
+    Jacobian ask for them once per output row and argument)."""
+    import numpy as onp
+
+    key = (onp.asarray(x, float).tobytes(), onp.asarray(m, complex).tobytes(),
+           onp.shape(x), int(n_max))
+    if key not in _DERIVATIVES:
+        if len(_DERIVATIVES) >= 8:
+            _DERIVATIVES.pop(next(iter(_DERIVATIVES)))
+        _DERIVATIVES[key] = _sphere_ab_values(x, m, n_max, derivative=True)[1]
+    return _DERIVATIVES[key]
+
+
+def _sphere_ab_vjp_x(ans, x, m, n_max):
+    dx, _ = _sphere_ab_derivatives(x, m, n_max)
+    # x is real: the real part of the holomorphic rule (autograd operations on g, so the
+    # rule is differentiable again for reverse-of-reverse Jacobians)
+    return lambda g: np.real(np.sum(g * dx, axis=(0, -1)))
+
+
+def _sphere_ab_vjp_m(ans, x, m, n_max):
+    _, dm = _sphere_ab_derivatives(x, m, n_max)
+    return lambda g: np.sum(g * dm, axis=(0, -1))
+
+
+defvjp(_sphere_ab, _sphere_ab_vjp_x, _sphere_ab_vjp_m, None)
 
 
 def coreshell_mie_coefficients(x_core, x_shell, m_core, m_shell, n_max: int):
