@@ -89,7 +89,9 @@ def main(argv=None):
         print(f"run {run}: {n} evaluations; best "
               + ", ".join(f"{F[:, k].max() if s == 'max' else F[:, k].min():.4f}"
                           for k, s in enumerate(senses))
-              + f"; hypervolume {hv:.5f} = {hv / hv_g:.3f} x grid")
+              + f"; hypervolume {hv:.5f}"
+              + (f" = {hv / hv_g:.3f} x grid" if hv_g > 0 else
+                 " (the grid front has none above the reference point)"))
 
 
 if __name__ == "__main__":
