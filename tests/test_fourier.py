@@ -549,3 +549,26 @@ def test_spectrum_sensitivities_of_a_fourier_design_match_finite_differences():
     fd = (g_at(100 + h) - g_at(100 - h)) / (2 * h)
     got = onp.asarray(sens["g"]["particles[0].radius_nm"], float)
     assert onp.max(onp.abs(got - fd)) < 1e-6 * max(1.0, float(onp.max(onp.abs(fd))))
+
+
+def test_boxes_rings_and_ellipses_of_different_heights_conserve_energy():
+    # Poynting's theorem (common practice, no source): three shapes, three heights (so
+    # three patterned sub-layers), an oblique lattice, oblique incidence, lossless media
+    d = design_from_dict({
+        "lattice": {"kind": "oblique", "period_nm": [430, 410], "angle_deg": 70},
+        "particles": [
+            {"shape": "box", "size_nm": [180, 110], "angle_deg": 25, "corner_radius_nm": 15,
+             "height_nm": 90, "material": {"n": 3.4}, "position_nm": [-90, 0]},
+            {"shape": "ring", "radius_nm": 70, "inner_radius_nm": 30, "height_nm": 140,
+             "material": {"n": 2.4}, "position_nm": [110, 120]},
+            {"shape": "elliptic_cylinder", "radius_nm": 50, "radius_b_nm": 25,
+             "angle_deg": 10, "height_nm": 60, "material": {"n": 2.0},
+             "position_nm": [150, -120]}],
+        "substrate": {"material": {"n": 1.5}}, "layers": [{"material": {"n": 1.9},
+                                                          "thickness_nm": 30}],
+        "illumination": {"wavelength_nm": [690.0, 820.0], "polar_deg": 12, "azimuth_deg": 35},
+        "model": {"solver": "fourier", "harmonics": 49}})
+    f = run_model(d).fractions
+    R, T = onp.asarray(f["R"]), onp.asarray(f["T"])
+    assert onp.max(onp.abs(R + T - 1)) < 1e-10
+    assert onp.min(R) > 1e-4   # the particles scatter
