@@ -1093,7 +1093,7 @@ def _polish_front(run_dir: Path, goal: Goal, problem, X, confirmed, olabels, log
         k = max(ok, key=lambda j, m=m: sign[m] * confirmed[j].f[m])
         keep = float(confirmed[k].f[1 - m])
         res = polish(goal, goal.search.confirm_model, X[k], m, keep,
-                     max_evals=goal.search.confirm_polish)
+                     max_evals=goal.search.confirm_polish, start=confirmed[k])
         log(f"polished best {lab}: {float(confirmed[k].f[m]):.6g} -> {float(res.f[m]):.6g} "
             f"({res.model})")
         rows.append([lab, *[float(v) for v in res.x], *[float(v) for v in res.f]])

@@ -128,6 +128,17 @@ def _broadcast_shape(*values) -> tuple:
 # ---------------------------------------------------------------- kernel
 
 
+def _numerators(n, x, m_sq, ga, gb, psi_n, psi_n1, chi_n, chi_nm1):
+    """N_a, P_a, N_b, P_b of :func:`mie_coefficients` (a_n = N_a/(N_a - i P_a), likewise
+    b_n): numerators times x m^2 and x, written with psi_{n+1} so that nothing cancels at
+    small x."""
+    num_a = ((n + 1.0) * (1.0 - m_sq) + ga) * psi_n + m_sq * x * psi_n1
+    p_a = (n + 1.0 + ga + n * m_sq) * chi_n - m_sq * x * chi_nm1
+    num_b = gb * psi_n + x * psi_n1
+    p_b = (2.0 * n + 1.0 + gb) * chi_n - x * chi_nm1
+    return num_a, p_a, num_b, p_b
+
+
 def _coefficients_from_g(x, m, big_g_a: list, big_g_b: list, n_max: int):
     """``a_n``, ``b_n`` from the ratio functions of the outermost medium.
 
@@ -144,13 +155,8 @@ def _coefficients_from_g(x, m, big_g_a: list, big_g_b: list, n_max: int):
     for n in range(1, n_max + 1):
         psi_n, psi_n1 = psi[n + 1], psi[n + 2]
         chi_n, chi_nm1 = chi[n + 1], chi[n]
-        ga = big_g_a[n - 1]
-        gb = big_g_b[n - 1]
-        # numerators (times x m^2 and x) written with psi_{n+1}: no cancellation at small x
-        num_a = ((n + 1.0) * (1.0 - m_sq) + ga) * psi_n + m_sq * x * psi_n1
-        p_a = (n + 1.0 + ga + n * m_sq) * chi_n - m_sq * x * chi_nm1
-        num_b = gb * psi_n + x * psi_n1
-        p_b = (2.0 * n + 1.0 + gb) * chi_n - x * chi_nm1
+        num_a, p_a, num_b, p_b = _numerators(n, x, m_sq, big_g_a[n - 1], big_g_b[n - 1],
+                                             psi_n, psi_n1, chi_n, chi_nm1)
         a_list.append(num_a / (num_a - 1j * p_a))
         b_list.append(num_b / (num_b - 1j * p_b))
     return np.stack(a_list, axis=-1), np.stack(b_list, axis=-1)
@@ -256,10 +262,7 @@ def _sphere_ab_values(x, m, n_max: int, derivative: bool = False):
         p0, p1, pm = psi[n + 1], psi[n + 2], psi[n]          # psi_n, psi_{n+1}, psi_{n-1}
         c0, cm = chi[n + 1], chi[n]                          # chi_n, chi_{n-1}
         G = big_g[n - 1]
-        Na = ((n + 1.0) * (1.0 - m2) + G) * p0 + m2 * x * p1
-        Pa = (n + 1.0 + G + n * m2) * c0 - m2 * x * cm
-        Nb = G * p0 + x * p1
-        Pb = (2.0 * n + 1.0 + G) * c0 - x * cm
+        Na, Pa, Nb, Pb = _numerators(n, x, m2, G, G, p0, p1, c0, cm)
         a.append(Na / (Na - 1j * Pa))
         b.append(Nb / (Nb - 1j * Pb))
         if not derivative:

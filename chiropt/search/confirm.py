@@ -83,12 +83,13 @@ def confirm_designs(goal, X, model: dict) -> list[Confirmed]:
 
 
 def polish(goal, model: dict, x0, objective: int, keep_at_least: float | None, *,
-           max_evals: int = 15) -> Confirmed:
+           max_evals: int = 15, start: Confirmed | None = None) -> Confirmed:
     """Short SLSQP polish of ``x0`` in the confirmation model.
 
     Maximizes (or minimizes, per its sense) objective ``objective`` within the variable
     bounds, subject to the goal's constraints and, for two objectives, the other one kept
     at least at ``keep_at_least`` in its own sense. Exact gradients of the model.
+    ``start``: ``x0`` already confirmed with ``model`` (not solved again).
     """
     from chiropt.goals.objectives import GoalProblem
 
@@ -124,7 +125,7 @@ def polish(goal, model: dict, x0, objective: int, keep_at_least: float | None, *
     res = minimize(fun, z0, jac=True, method="SLSQP", bounds=[(0.0, 1.0)] * len(z0),
                    constraints=cons, options={"maxiter": max_evals, "ftol": 1e-9})
     best = confirm_designs(goal, [lo + onp.clip(res.x, 0.0, 1.0) * span], model)[0]
-    start = confirm_designs(goal, [x0], model)[0]
+    start = start if start is not None else confirm_designs(goal, [x0], model)[0]
     ok = best.status == "ok" and (not problem.n_constraints or onp.all(best.g <= 1e-9))
     better = ok and sign[objective] * best.f[objective] >= sign[objective] * start.f[objective]
     return best if better else start
