@@ -388,6 +388,7 @@ def test_a_front_extended_by_a_grown_budget_equals_a_fresh_run(tmp_path):
 
 
 def _blas_threads(_):
+    import chiropt.model  # noqa: F401  (loads every linear-algebra library a task uses)
     from threadpoolctl import threadpool_info
     return [pool["num_threads"] for pool in threadpool_info() if pool["user_api"] == "blas"]
 

@@ -62,8 +62,11 @@ def limit_blas_threads(threads: int = 1):
     """Limit the BLAS/LAPACK (and OpenMP) thread pools of this process to ``threads``.
 
     Returns threadpoolctl's limiter (its effect lasts for the process; ``restore_original_
-    limits()`` undoes it). Works after numpy is imported, whatever the start method.
+    limits()`` undoes it). numpy and scipy carry separate OpenBLAS libraries and a limit
+    reaches only the libraries already loaded, so both are imported first.
     """
+    import numpy  # noqa: F401
+    import scipy.linalg  # noqa: F401
     from threadpoolctl import threadpool_limits
     return threadpool_limits(limits=int(threads))
 
