@@ -185,7 +185,7 @@ def _harmonics_vjp(ans, u, lmax):
     _, D = _harmonic_table(u, lmax, True)
 
     def vjp(g):   # autograd operations: the vjp is itself differentiated by --grad
-        out = np.einsum("...j,...jc->...c", g, D)
+        out = np.matmul(g[..., None, :], D)[..., 0, :]   # sum_j g_j dY_j/du_c
         return out if onp.iscomplexobj(u) else np.real(out)
 
     return vjp

@@ -2,7 +2,8 @@
 
 Owns: ``Tangent`` (a value and its derivatives along D directions, ``t`` of shape
 (D,) + value shape) and the functions the lattice-sum kernels need on it (``exp``,
-``sqrt``, ``real``, ``imag``, ``wofz``, ``einsum``, ``stack``, ``where``). Each function
+``sqrt``, ``real``, ``imag``, ``wofz``, ``einsum``, ``matmul``, ``sum``, ``stack``,
+``where``). Each function
 accepts plain numpy arrays too and then does plain numpy, so one kernel serves the value
 (no tangents, no tape) and the value with its Jacobian (one pass, all directions).
 Must not import: any chiropt module but ``chiropt.lattice.faddeeva``.
@@ -245,6 +246,22 @@ def einsum(subscripts: str, *operands):
         part = onp.einsum(f"{spec}->Z{output}", *ops, optimize=len(ops) > 2)
         t = part if t is None else t + part
     return Tangent(out, t)
+
+
+def matmul(x, M):
+    """x @ M for a constant 2-D matrix M (contracts the last axis of x)."""
+    M = onp.asarray(M)
+    if not isinstance(x, Tangent):
+        return onp.asarray(x) @ M
+    return Tangent(x.v @ M, _full_tangent(x) @ M)
+
+
+def sum(x, axis: int):  # noqa: A001 (the numpy name, on purpose)
+    """Sum over one axis of the value (and the same axis of each derivative)."""
+    if not isinstance(x, Tangent):
+        return onp.sum(x, axis=axis)
+    t_axis = axis + 1 if axis >= 0 else axis
+    return Tangent(onp.sum(x.v, axis=axis), onp.sum(_full_tangent(x), axis=t_axis))
 
 
 def value(x):

@@ -160,8 +160,7 @@ def _spectral(k, kpar, a1, a2, rho, z, E, mn, pmax):
     qpow = [1.0 + 0 * qq]
     for _ in range(pmax // 2):
         qpow.append(qpow[-1] * qq)
-    basis = T.stack([T.stack([f * qp for qp in qpow], axis=-1) for f in fn],
-                    axis=-2)                                            # (W, P, G, n, j)
+    basis = T.stack([f * qp for f in fn for qp in qpow], axis=-1)    # (W, P, G, n j)
     powers = []                                                         # (q_x +- i q_y)^a
     for s in (1, -1):
         lst = [1.0 + 0j * qx]
@@ -170,10 +169,10 @@ def _spectral(k, kpar, a1, a2, rho, z, E, mn, pmax):
         powers += lst
     pick = absm + (pmax + 1) * (sgn < 0)
     angular = T.stack(powers, axis=-1)[..., pick]                      # (W, G, J)
-    radial = T.einsum("wpgnj,inj->wpgi", basis, coef)
+    radial = T.matmul(basis, coef.reshape(coef.shape[0], -1).T)       # (W, P, G, J)
     phase = T.exp(1j * (qx[:, None, :] * rho[0][None, :, None]
                         + qy[:, None, :] * rho[1][None, :, None])) / (4.0 * area)
-    return T.einsum("wpg,wgi,wpgi->wpi", phase, angular, radial)
+    return T.sum(phase[..., None] * (angular[:, None] * radial), axis=2)
 
 
 def _harmonics(ux, uy, uz, pmax):
@@ -227,11 +226,11 @@ def _spatial(k, kpar, a1, a2, d, E, nm, pmax, self_tol2):
     radial = per_p[..., ps]                                            # (W, P, N, J)
     phase = T.exp(1j * (kpar[0][:, None] * Rx[None, :] + kpar[1][:, None] * Ry[None, :]))
     keep = (~is_self).astype(float)
-    out = T.einsum("wn,pn,wpnj,pnj->wpj", phase, keep, radial, Y)
+    out = T.sum((phase[:, None, :] * keep[None])[..., None] * (radial * Y[None]), axis=2)
     if onp.any(is_self):
         ex = T.exp((k / (2 * E)) ** 2)
         h0 = -(1j * k / (4 * math.pi)) * ex * T.wofz(k / (2 * E)) - E / (2 * math.pi ** 1.5) * ex
-        self_phase = T.einsum("wn,pn->wp", phase, is_self.astype(float))  # (W, P)
+        self_phase = T.matmul(phase, is_self.T.astype(float))           # (W, P)
         first = (onp.arange((pmax + 1) ** 2) == 0).astype(float)
         out = out + (self_phase * h0[:, None])[..., None] * first / math.sqrt(4 * math.pi)
     return out
@@ -285,17 +284,19 @@ def lattice_sums(k, k_par, lattice: Lattice, d, pmax: int, *, tol=1e-10, splitti
     return _sums(k, k_par, lattice.a1, lattice.a2, d, pmax, float(tol), split)
 
 
-_DIRECTIONS = 10   # k; k_par x, y; a1 x, y; a2 x, y; d x, y, z
+_ARG_SIZES = (1, 2, 2, 2, 3)   # directions per argument: k; k_par; a1; a2; d (x, y, z)
 
 
-def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, derivatives):
-    """D_pM (W, P, J) and, with ``derivatives``, dD along the ten input directions.
+def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=()):
+    """D_pM (W, P, J) and, for the arguments ``wrt``, dD along their input directions.
 
-    Plain inputs. Truncations, the splitting parameter and the length unit come from the
-    plain values and are constants of the derivative. Returns the values, or (values,
-    derivatives (10, W, P, J)) with derivatives w.r.t. k [m], k_par [m], a1, a2 [1/m] and
-    d [1/m], each direction moving all wavelengths (or all displacements) at once: output
-    (w, p) depends on wavelength w and displacement p only.
+    Plain inputs; ``wrt`` lists argument positions (0 k, 1 k_par, 2 a1, 3 a2, 4 d).
+    Truncations, the splitting parameter and the length unit come from the plain values
+    and are constants of the derivative. Returns the values, or (values, derivatives
+    (D, W, P, J)) with D = 1, 2, 2, 2, 3 directions for the arguments in ``wrt``, in that
+    order: derivatives w.r.t. k [m], k_par [m], a1, a2 [1/m] and d [1/m] (x, y, z), each
+    direction moving all wavelengths (or all displacements) at once: output (w, p)
+    depends on wavelength w and displacement p only.
     """
     kv = onp.asarray(k, dtype=float)
     kparv = onp.asarray(k_par, dtype=float)
@@ -316,37 +317,49 @@ def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, derivatives):
     b1, b2 = latp.reciprocal()
     mn = order_indices(latp, q_cut + kpar_max)
     nm = integer_pairs_within(latp.a1, latp.a2, b1, b2, r_cut + rho_max)
-    inputs = [ksv, kparv[:, 0] * scale, kparv[:, 1] * scale, *(a1v / scale), *(a2v / scale),
-              *(dv.T / scale)]
-    if derivatives:
-        inputs = [T.Tangent.seed(x, i, _DIRECTIONS) for i, x in enumerate(inputs)]
-    ks, kpx, kpy, a1x, a1y, a2x, a2y, dx, dy, dz = inputs
+    groups = [[ksv], [kparv[:, 0] * scale, kparv[:, 1] * scale], list(a1v / scale),
+              list(a2v / scale), list(dv.T / scale)]
+    units = [scale, scale, 1.0 / scale, 1.0 / scale, 1.0 / scale]   # d(scaled)/d(input)
+    D = sum(_ARG_SIZES[i] for i in wrt)
+    seeded, unit = 0, []
+    for i in sorted(wrt):
+        groups[i] = [T.Tangent.seed(x, seeded + j, D) for j, x in enumerate(groups[i])]
+        seeded += _ARG_SIZES[i]
+        unit += [units[i]] * _ARG_SIZES[i]
+    (ks,), (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy, dz) = groups
     spec = _spectral(ks, (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy), dz, Es, mn, pmax)
     spat = _spatial(ks, (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy, dz), Es, nm, pmax, 1e-24)
     ps = onp.array([p for p in range(pmax + 1) for _ in range(-p, p + 1)])
     pref = (4 * math.pi / 1j) * (-1.0) ** ps * ks[:, None, None] ** (-(ps + 1.0))
     out = (spec + spat) * pref
-    if not derivatives:
+    if not wrt:
         return out
-    unit = onp.array([scale] * 3 + [1.0 / scale] * 7)   # d(scaled input)/d(input)
-    return out.v, out.t * unit[:, None, None, None]
+    if not isinstance(out, T.Tangent):   # cannot happen: some input carries a direction
+        raise AssertionError("lattice sums lost their derivatives")
+    return out.v, T._full_tangent(out) * onp.array(unit)[:, None, None, None]
 
 
 @primitive
 def _sums(k, k_par, a1, a2, d, pmax, tol, splitting):
     """D_pM from plain inputs: one autograd node (derivatives in ``_sums_vjp``)."""
-    return _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, False)
+    return _kernel(k, k_par, a1, a2, d, pmax, tol, splitting)
 
 
 def _sums_vjp(argnums, ans, args, kwargs):
-    """All ten directional derivatives at once; each reverse pass contracts them.
+    """The traced arguments' directional derivatives at once; each reverse pass contracts.
 
     Written with autograd operations, so that the vector-Jacobian product is itself
     differentiable in the cotangent (the reverse-of-reverse used by --grad sensitivities).
     """
-    _, t = _kernel(*args, True)
-    blocks = {0: (t[0], "wpj,wpj->w"), 1: (t[1:3], "wpj,cwpj->wc"), 2: (t[3:5], "wpj,cwpj->c"),
-              3: (t[5:7], "wpj,cwpj->c"), 4: (t[7:10], "wpj,cwpj->pc")}
+    wrt = tuple(sorted(argnums))
+    _, t = _kernel(*args, wrt=wrt)
+    rules = {0: "wpj,wpj->w", 1: "wpj,cwpj->wc", 2: "wpj,cwpj->c", 3: "wpj,cwpj->c",
+             4: "wpj,cwpj->pc"}
+    blocks, start = {}, 0
+    for i in wrt:
+        n = _ARG_SIZES[i]
+        blocks[i] = (t[start] if i == 0 else t[start:start + n], rules[i])
+        start += n
 
     def vjp(g):
         return tuple(np.real(np.einsum(blocks[i][1], g, blocks[i][0])) for i in argnums)
