@@ -31,6 +31,7 @@ from autograd.tracer import getval
 
 from chiropt.errors import InputError
 from chiropt.multipole.latticesums import lattice_sums
+from chiropt.multipole.reflected import reflected_interaction
 from chiropt.multipole.translation import translation_table
 from chiropt.sphericalwaves import (
     channel_modes,
@@ -202,11 +203,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
         rc_up = np.exp(1j * qr + 1j * kzh)                             # receive upward wave
         recv_up = channel_modes(P, "receive", lmax)                    # (W, G, 2, 2K)
         emit_dn = channel_modes(P * parity, "emit", lmax)
-        rv = (np.reshape(rc_up, (W, G, 1, N, 1)) * np.reshape(r, (W, G, 2, 1, 1))
-              * np.reshape(recv_up, (W, G, 2, 1, K2)))
-        em = np.reshape(ph_dn, (W, G, 1, N, 1)) * np.reshape(emit_dn, (W, G, 2, 1, K2))
-        Wmat = Wmat + np.matmul(np.transpose(np.reshape(rv, (W, 2 * G, N * K2)), (0, 2, 1)),
-                                np.reshape(em, (W, 2 * G, N * K2)))
+        Wmat = Wmat + reflected_interaction(rc_up, r, recv_up, ph_dn, emit_dn)
 
     # -- background field: (0,0)-order components on (s, p) ---------------------------------
     D0, U0, X0 = background_components(st, orders, coef)
