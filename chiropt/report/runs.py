@@ -37,7 +37,7 @@ from chiropt.run import CONFIRM_NAME, FEASIBILITY_TOL, STORE_NAME, SUMMARY_NAME
 from chiropt.search.pareto import hypervolume, non_dominated
 
 __all__ = ["ACTIVE_TOL", "RunData", "budget_used", "constraint_activity", "convergence",
-           "failures", "load_run", "material_sources"]
+           "failures", "is_feasible", "load_run", "material_sources"]
 
 ACTIVE_TOL = 1e-3
 RESOLVED_NAME = "goal.resolved.yaml"
@@ -80,7 +80,7 @@ def _number(text: str):
         return text
 
 
-def _feasible(ev) -> bool:
+def is_feasible(ev) -> bool:
     g = onp.asarray(ev.metrics.get("constraints", []), float)
     return ev.status == "ok" and "objectives" in ev.metrics and bool(
         onp.all(g <= FEASIBILITY_TOL))
@@ -122,7 +122,7 @@ def load_run(path: str | Path) -> RunData:
     M = len(goal.objectives)
     labels = [objective_label(o, problem) for o in goal.objectives]
     front_F = onp.array([[row[lab] for lab in labels] for row in front], float).reshape(-1, M)
-    feas = [r for r in records if _feasible(r.evaluation)]
+    feas = [r for r in records if is_feasible(r.evaluation)]
     F = onp.array([r.evaluation.metrics["objectives"] for r in feas], float).reshape(-1, M)
     nd = F[non_dominated(F, problem.senses)] if len(F) else onp.zeros((0, M))
     ref, source = reference_point(goal)
@@ -163,7 +163,7 @@ def budget_used(run: RunData) -> dict[str, Any]:
         stages[key] = stages.get(key, 0) + 1
     return {"evaluations": len(recs),
             "failed": sum(r.evaluation.status != "ok" for r in recs),
-            "feasible": sum(_feasible(r.evaluation) for r in recs),
+            "feasible": sum(is_feasible(r.evaluation) for r in recs),
             "by_stage": stages,
             "budget_evaluations": b.evaluations, "budget_wall_time": b.wall_time_text,
             "solve_time_s": float(sum(r.wall_time_s for r in recs)),
@@ -183,7 +183,7 @@ def _progress(recs, senses, reference) -> list[float]:
     front = onp.zeros((0, M))
     best, out = onp.nan, []
     for r in recs:
-        if _feasible(r.evaluation):
+        if is_feasible(r.evaluation):
             f = onp.asarray(r.evaluation.metrics["objectives"], float)
             if M == 1:
                 best = f[0] if onp.isnan(best) or sign * f[0] > sign * best else best
