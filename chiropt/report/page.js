@@ -419,41 +419,42 @@
   }
   function comparisonCard() {
     const c = DATA.comparison, runs = DATA.runs, M = runs[0].labels.length;
-    const kids = [];
-    if (M === 2) {
-      const pts = runs.flatMap(r => r.front.map(x => [x[r.labels[0]], x[r.labels[1]]]));
-      const f = frame({w: 560, h: 380, xr: extent(pts.map(p => p[0]).concat([c.reference[0]])),
-        yr: extent(pts.map(p => p[1]).concat([c.reference[1]])), xlabel: runs[0].labels[0],
-        ylabel: runs[0].labels[1], id: "overlay"});
-      runs.forEach((r, ri) => {
-        const col = RUN_COLOURS[ri % RUN_COLOURS.length];
-        line(f, r.front.map(x => x[r.labels[0]]), r.front.map(x => x[r.labels[1]]),
-             {stroke: col, "stroke-width": 1.4});
-        r.front.forEach((x, k) => f.g.append(s("circle", {class: "pt overlay-pt", r: 4.5,
-          cx: f.x(x[r.labels[0]]), cy: f.y(x[r.labels[1]]), fill: col, stroke: "#fff",
-          onclick: () => { show(ri); select(ri, k); document.getElementById(`run-${ri}`)
-            .scrollIntoView(); }}, s("title", {text: `${r.name}, design ${k}`}))));
-      });
-      const ref = c.reference;
-      f.g.append(s("path", {d: `M${f.x(ref[0]) - 5},${f.y(ref[1])}h10M${f.x(ref[0])},` +
-        `${f.y(ref[1]) - 5}v10`, stroke: "#20303b", "stroke-width": 1.5}));
-      kids.push(h("div", {cls: "grid2"}, h("div", {}, f.svg, legend(runs.map((r, i) =>
-        [RUN_COLOURS[i % RUN_COLOURS.length], r.name]).concat([["#20303b",
-        "common reference point (+)"]]))), h("div", {}, runTable(c, runs))));
-    } else kids.push(runTable(c, runs));
-    kids.push(h("h3", {text: "Which run holds the combined front where (best " +
-                              runs[0].labels[0] + " first)"}));
-    kids.push(table(["run", "points"].concat(runs[0].labels.map(l => `${l} range`))
+    const right = h("div", {}, runTable(c, runs));
+    right.append(h("h3", {text: "Which run holds the combined front where (best " +
+                                runs[0].labels[0] + " first)"}));
+    right.append(table(["run", "points"].concat(runs[0].labels.map(l => `${l} range`))
       .concat(M === 2 ? ["hypervolume only this stretch adds", "share"] : []),
       c.stretches.map(x => [c.names[x.run], x.points].concat(x.ranges.map(r =>
         `${fmt(r[0])} – ${fmt(r[1])}`)).concat(M === 2 ? [x.exclusive_hypervolume,
         x.share === null ? null : `${fmt(100 * x.share, 3)} %`] : [])), [1, 4, 5]));
-    kids.push(h("h3", {text: "Coverage: share of the column run's front that the row " +
-                              "run's front weakly dominates"}));
-    kids.push(table([""].concat(c.names), c.coverage.map((row, a) => [c.names[a]].concat(
+    right.append(h("h3", {text: "Coverage: share of the column run's front that the row " +
+                                "run's front weakly dominates"}));
+    right.append(table([""].concat(c.names), c.coverage.map((row, a) => [c.names[a]].concat(
       row.map(v => v === null ? null : `${fmt(100 * v, 3)} %`))),
       c.names.map((_, i) => i + 1)));
-    return card("Runs compared", ...kids);
+    if (M !== 2) return card("Runs compared", right);
+    const pts = runs.flatMap(r => r.front.map(x => [x[r.labels[0]], x[r.labels[1]]]));
+    const f = frame({w: 560, h: 380, xr: extent(pts.map(p => p[0]).concat([c.reference[0]])),
+      yr: extent(pts.map(p => p[1]).concat([c.reference[1]])), xlabel: runs[0].labels[0],
+      ylabel: runs[0].labels[1], id: "overlay"});
+    runs.forEach((r, ri) => {
+      const col = RUN_COLOURS[ri % RUN_COLOURS.length];
+      line(f, r.front.map(x => x[r.labels[0]]), r.front.map(x => x[r.labels[1]]),
+           {stroke: col, "stroke-width": 1.4});
+      r.front.forEach((x, k) => f.g.append(s("circle", {class: "pt overlay-pt", r: 4.5,
+        cx: f.x(x[r.labels[0]]), cy: f.y(x[r.labels[1]]), fill: col, stroke: "#fff",
+        "data-run": ri, "data-index": k,
+        onclick: () => { show(ri); select(ri, k); document.getElementById(`run-${ri}`)
+          .scrollIntoView(); }}, s("title", {text: `${r.name}, design ${k}`}))));
+    });
+    const ref = c.reference;
+    f.g.append(s("path", {d: `M${f.x(ref[0]) - 5},${f.y(ref[1])}h10M${f.x(ref[0])},` +
+      `${f.y(ref[1]) - 5}v10`, stroke: "#20303b", "stroke-width": 1.5}));
+    return card("Runs compared", h("div", {cls: "grid2"}, h("div", {}, f.svg,
+      legend(runs.map((r, i) => [RUN_COLOURS[i % RUN_COLOURS.length], r.name])
+        .concat([["#20303b", "common reference point (+)"]])),
+      h("div", {cls: "small muted", text: "Click a point to open that run's design."})),
+      right));
   }
   function runTable(c, runs) {
     return h("div", {}, h("p", {cls: "small muted", text: `Hypervolume at one reference ` +
