@@ -172,7 +172,7 @@ def test_compare_runs_with_other_variables_and_materials(report_runs, tmp_path, 
         assert float(r["hypervolume"]) == pytest.approx(expected, rel=1e-5)
         assert r["material"] == run.goal.material
     assert (out / "fronts.png").stat().st_size > 0
-    assert "## Which run holds the combined front where" in (out / "comparison.md").read_text()
+    assert "## Which run holds the combined front where" in (out / "README.md").read_text()
 
 
 def test_cli_refuses_runs_with_other_objectives(report_runs, tmp_path, capsys):

@@ -9,7 +9,7 @@ Owns: ``write_comparison_folder``. The figures are those of the HTML report's co
   hypervolume at the common reference point and the best value of each objective;
 - ``dominance.csv``: which run holds the combined front where (``compare`` module notes);
 - ``coverage.csv``: the coverage matrix, row run over column run;
-- ``comparison.md``: the three tables in Markdown, with the reference point.
+- ``README.md``: the three tables in Markdown, with the reference point.
 
 Must not import: cli.
 """
@@ -125,8 +125,8 @@ def write_comparison_folder(run_dirs, out: str | Path | None = None) -> list[Pat
           "## Which run holds the combined front where", "", _markdown(t["dominance"]), "",
           "## Coverage (share of the column run's front the row run's front weakly "
           "dominates)", "", _markdown(t["coverage"]), ""]
-    (out / "comparison.md").write_text("\n".join(md))
-    written.append(out / "comparison.md")
+    (out / "README.md").write_text("\n".join(md))
+    written.append(out / "README.md")
     _plot(runs, cmp, out / "fronts.png")
     written.append(out / "fronts.png")
     return written
