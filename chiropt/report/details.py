@@ -29,8 +29,11 @@ SPAN = 0.15  # spectra cover the goal's wavelengths widened by this fraction on 
 
 def _round(a) -> list:
     a = onp.asarray(a, float)
-    out = [float(f"{v:.{DIGITS}g}") if onp.isfinite(v) else None for v in a.ravel()]
-    return out
+    return [float(f"{v:.{DIGITS}g}") if onp.isfinite(v) else None for v in a.ravel()]
+
+
+def _short(v):
+    return None if v is None else _round([v])[0]
 
 
 def encode_map(a) -> dict[str, Any]:
@@ -106,9 +109,10 @@ def _near_field(design, w0: float, grid: int) -> tuple[dict, list]:
             "docp+1": encode_map(m["docp"]["+1"][0])}
     rows = sorted(order_table(sol, design.region, 0, tol=metrics_tolerance(design)),
                   key=lambda r: -r["share"])[:ORDERS]
-    table = [{"order": f"({r['m']},{r['n']})", "K": r["K"], "evanescent": r["evanescent"],
-              "share": r["share"], "g": r["g"], "docp+1": r["docp"]["+1"],
-              "docp-1": r["docp"]["-1"], "bound": r["bound"]} for r in rows]
+    table = [{"order": f"({r['m']},{r['n']})", "K": _short(r["K"]),
+              "evanescent": r["evanescent"], "share": _short(r["share"]), "g": _short(r["g"]),
+              "docp+1": _short(r["docp"]["+1"]), "docp-1": _short(r["docp"]["-1"]),
+              "bound": _short(r["bound"])} for r in rows]
     return maps, table
 
 

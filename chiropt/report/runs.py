@@ -33,8 +33,9 @@ from chiropt.goals.objectives import GoalProblem
 from chiropt.goals.reference import reference_point
 from chiropt.goals.schema import Goal, load_goal
 from chiropt.report.labels import objective_label
+from chiropt.report.progress import progress, search_streams
 from chiropt.run import CONFIRM_NAME, FEASIBILITY_TOL, STORE_NAME, SUMMARY_NAME
-from chiropt.search.pareto import hypervolume, non_dominated
+from chiropt.search.pareto import non_dominated
 
 __all__ = ["ACTIVE_TOL", "RunData", "budget_used", "constraint_activity", "convergence",
            "failures", "is_feasible", "load_run", "material_sources"]
@@ -173,40 +174,17 @@ def budget_used(run: RunData) -> dict[str, Any]:
 def _key(r) -> str:
     from chiropt.search.explore import search_key
 
-    return "exploration" if r.stage == "explore" else search_key(r.stage, r.start)
-
-
-def _progress(recs, senses, reference) -> list[float]:
-    """Hypervolume (two objectives) or best feasible value (one) after each record."""
-    M = len(senses)
-    sign = 1.0 if senses[0] == "max" else -1.0
-    front = onp.zeros((0, M))
-    best, out = onp.nan, []
-    for r in recs:
-        if is_feasible(r.evaluation):
-            f = onp.asarray(r.evaluation.metrics["objectives"], float)
-            if M == 1:
-                best = f[0] if onp.isnan(best) or sign * f[0] > sign * best else best
-            else:
-                F = onp.vstack([front, f[None]])
-                front = F[non_dominated(F, senses)]
-        out.append(best if M == 1 else (hypervolume(front, senses, reference)
-                                        if len(front) else 0.0))
-    return out
+    return search_key(r.stage, r.start)
 
 
 def convergence(run: RunData) -> dict[str, Any]:
     """Progress of each search and of the whole run (module notes)."""
-    streams: dict[str, list] = {}
-    for r in run.records:
-        if ":" not in r.stage:  # superseded rows lie on no search's path
-            streams.setdefault(_key(r), []).append(r)
     overall = sorted(run.records, key=lambda r: r.id)
     kind = "hypervolume" if len(run.senses) == 2 else run.labels[0]
     return {"quantity": kind,
-            "overall": _progress(overall, run.senses, run.reference),
-            "searches": {k: _progress(v, run.senses, run.reference)
-                         for k, v in sorted(streams.items())}}
+            "overall": progress(overall, run.senses, run.reference, FEASIBILITY_TOL),
+            "searches": {k: progress(v, run.senses, run.reference, FEASIBILITY_TOL)
+                         for k, v in search_streams(run.records).items()}}
 
 
 def failures(run: RunData, *, examples: int = 3) -> list[dict[str, Any]]:
