@@ -187,3 +187,47 @@ def test_cli_refuses_runs_with_other_objectives(report_runs, tmp_path, capsys):
 def test_cli_refuses_a_folder_that_is_not_a_run(tmp_path, capsys):
     assert main(["report", str(tmp_path)]) == 2
     assert "not a run folder" in capsys.readouterr().err
+
+
+def test_failures_are_grouped_by_reason_and_constraints_counted(report_runs):
+    # common practice, no source: counts of a run whose records the test rewrites
+    from dataclasses import replace
+
+    from chiropt.report.runs import FEASIBILITY_TOL, constraint_activity, failures, load_run
+
+    run = load_run(report_runs["si"])
+    reasons = ["Rayleigh anomaly at 700 nm", "singular interaction matrix"]
+    recs = list(run.records)
+    bad = {i: reasons[i % 3 == 0] for i in range(1, len(recs), 4)}
+    for i, why in bad.items():
+        recs[i] = replace(recs[i], evaluation=replace(recs[i].evaluation, status="failed",
+                                                      reason=why, metrics={}))
+    # constraint rows set to known values: a third violated, a third active, a third slack
+    n_ok = 0
+    for i, r in enumerate(recs):
+        if i in bad:
+            continue
+        value = [1.0, -0.5 * FEASIBILITY_TOL, -0.3][n_ok % 3]
+        g = [value] * len(run.problem.constraint_labels)
+        recs[i] = replace(r, evaluation=replace(r.evaluation, metrics={
+            **r.evaluation.metrics, "constraints": g}))
+        n_ok += 1
+    run.records = recs
+    groups = failures(run)
+    expected = {why: sum(1 for w in bad.values() if w == why) for why in reasons}
+    assert {g["reason"]: g["count"] for g in groups} == expected
+    assert [g["count"] for g in groups] == sorted(expected.values(), reverse=True)
+    act = constraint_activity(run)
+    assert len(act) == len(run.problem.constraint_labels)
+    for row in act:
+        assert row["violated"] == pytest.approx(len(range(0, n_ok, 3)) / n_ok)
+        assert row["active"] == pytest.approx(len(range(1, n_ok, 3)) / n_ok)
+
+
+def test_details_are_limited_to_a_spread_of_the_front(report_runs):
+    from chiropt.report.html import page_data
+    from chiropt.report.runs import load_run
+
+    run = load_run(report_runs["si"])
+    (r,) = page_data([run], run.path, details=2)["runs"]
+    assert sorted(map(int, r["details"])) == [0, len(run.front) - 1]
