@@ -231,3 +231,28 @@ def test_details_are_limited_to_a_spread_of_the_front(report_runs):
     run = load_run(report_runs["si"])
     (r,) = page_data([run], run.path, details=2)["runs"]
     assert sorted(map(int, r["details"])) == [0, len(run.front) - 1]
+
+
+def test_a_run_of_one_objective_reads_back(tmp_path):
+    # the resolved goal of one objective carries a search.front section the schema refuses
+    # for one objective; the report reads it all the same
+    from chiropt.goals import load_goal
+    from chiropt.report.html import page_data
+    from chiropt.report.runs import load_run
+    from chiropt.run import run_goal
+
+    from conftest import RADIUS_PERIOD, REPORT_GOAL
+
+    text = REPORT_GOAL.format(name="one", material="Si", variables=RADIUS_PERIOD,
+                              second="docp")
+    text = text.replace("  - {maximize: docp, at_nm: 700}\n", "").replace(
+        "  front: {method: epsilon-constraint, points: 3, reference: {g: 0.5, docp: 0.0}}\n",
+        "")
+    (tmp_path / "one.yaml").write_text(text)
+    (goal,) = load_goal(tmp_path / "one.yaml")
+    summary = run_goal(goal, out=tmp_path / "runs", workers=0, progress=False)
+    run = load_run(summary.run_dir)
+    assert run.labels == ["g@700nm"] and len(run.front) == len(summary.front) >= 1
+    (r,) = page_data([run], run.path, details=1)["runs"]
+    best = max(row["g@700nm"] for row in run.front)
+    assert r["convergence"]["overall"][-1] == pytest.approx(best)

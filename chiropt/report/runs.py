@@ -31,7 +31,7 @@ import numpy as onp
 from chiropt.errors import InputError
 from chiropt.goals.objectives import GoalProblem
 from chiropt.goals.reference import reference_point
-from chiropt.goals.schema import Goal, load_goal
+from chiropt.goals.schema import Goal
 from chiropt.report.labels import objective_label
 from chiropt.report.progress import progress, search_streams
 from chiropt.run import CONFIRM_NAME, FEASIBILITY_TOL, STORE_NAME, SUMMARY_NAME
@@ -87,6 +87,19 @@ def is_feasible(ev) -> bool:
         onp.all(g <= FEASIBILITY_TOL))
 
 
+def _resolved_goal(path: Path) -> list[Goal]:
+    """The goal of ``goal.resolved.yaml``; its ``search.front`` is dropped for a goal of one
+    objective (the resolved form writes the section, the schema takes it only with two)."""
+    import yaml
+
+    from chiropt.goals.schema import goal_from_dict
+
+    data = yaml.safe_load(path.read_text())
+    if len(data.get("objectives") or []) < 2 and isinstance(data.get("search"), dict):
+        data["search"].pop("front", None)
+    return goal_from_dict(data, base_dir=path.parent)
+
+
 def load_run(path: str | Path) -> RunData:
     """Read a run folder written by ``chiropt run``.
 
@@ -103,7 +116,7 @@ def load_run(path: str | Path) -> RunData:
     if missing:
         raise InputError("RUN_DIR", f"{path} is not a run folder of `chiropt run` (missing "
                                     f"{', '.join(missing)})")
-    (goal,) = load_goal(path / RESOLVED_NAME)
+    (goal,) = _resolved_goal(path / RESOLVED_NAME)
     problem = GoalProblem(goal)
     store = EvaluationStore(path / STORE_NAME)
     try:
