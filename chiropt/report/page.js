@@ -479,7 +479,8 @@
     document.getElementById("noscript").remove();
     document.getElementById("heading").append(h("h1", {text: runs.length === 1
       ? `Run ${runs[0].name}` : `${runs.length} runs: ${runs.map(r => r.name).join(", ")}`}),
-      h("div", {cls: "sub", text: `report of ${DATA.generated}, chiropt ${DATA.version}`}));
+      h("div", {cls: "sub", text: `written ${DATA.generated} by chiropt ${DATA.version} ` +
+        `from ${runs.map(r => r.path).join(", ")}`}));
     if (DATA.comparison) main.append(comparisonCard());
     if (runs.length > 1) {
       const nav = document.getElementById("runs-nav");
