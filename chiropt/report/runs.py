@@ -114,8 +114,10 @@ def load_run(path: str | Path) -> RunData:
     path = Path(path)
     missing = [n for n in (RESOLVED_NAME, STORE_NAME, "front.csv") if not (path / n).is_file()]
     if missing:
+        hint = ("; the same `chiropt run GOAL.yaml` writes front.csv from the store"
+                if missing == ["front.csv"] else "")
         raise InputError("RUN_DIR", f"{path} is not a run folder of `chiropt run` (missing "
-                                    f"{', '.join(missing)})")
+                                    f"{', '.join(missing)}){hint}")
     (goal,) = _resolved_goal(path / RESOLVED_NAME)
     problem = GoalProblem(goal)
     store = EvaluationStore(path / STORE_NAME)
