@@ -237,6 +237,39 @@ def _cmd_run(args) -> int:
     return EXIT_OK if all(s.status == "complete" for s in summaries) else EXIT_FAILED
 
 
+def _run_dirs(args) -> list[str]:
+    if len(set(args.run_dirs)) != len(args.run_dirs):
+        raise InputError("RUN_DIR", f"a run folder is given twice: {args.run_dirs}")
+    return args.run_dirs
+
+
+def _cmd_report(args) -> int:
+    from chiropt.report.html import write_html_report
+
+    dirs = _run_dirs(args)
+    if args.out:
+        _output_file("--out", args.out)
+    if not 0 <= args.details <= 10000:
+        raise InputError("--details", f"got {args.details}, allowed an integer in [0, 10000]")
+    path = write_html_report(dirs, args.out, details=args.details,
+                             progress=None if args.quiet else
+                             (lambda t: print(t, file=sys.stderr, flush=True)))
+    print(f"report: {path} ({path.stat().st_size / 1e6:.2f} MB)")
+    return EXIT_OK
+
+
+def _cmd_compare(args) -> int:
+    from chiropt.report.static import write_comparison_folder
+
+    dirs = _run_dirs(args)
+    if len(dirs) < 2:
+        raise InputError("RUN_DIR", "compare needs at least two run folders")
+    out = _output_folder("--out", Path(args.out)) if args.out else None
+    for path in write_comparison_folder(dirs, out):
+        print(path)
+    return EXIT_OK
+
+
 def _count(n: int, word: str) -> str:
     return f"{n} {word}" if n == 1 else f"{n} {word}s"
 
@@ -318,6 +351,24 @@ def build_parser() -> argparse.ArgumentParser:
                     help="worker processes (default: all cores; 0: in this process)")
     ru.add_argument("--quiet", action="store_true", help="no progress display")
     ru.set_defaults(func=_cmd_run)
+    rp = sub.add_parser("report", help="one self-contained HTML page of one or more run "
+                                       "folders (fronts compared when several)")
+    rp.add_argument("run_dirs", nargs="+", metavar="RUN_DIR", help="run folder(s) of "
+                    "`chiropt run`, e.g. runs/quickstart-Si")
+    rp.add_argument("--out", metavar="FILE.html", help="default: RUN_DIR/report.html (one "
+                    "run) or report.html beside the first run folder (several)")
+    rp.add_argument("--details", type=int, default=200, metavar="N",
+                    help="front designs with spectra and maps, spread along the front "
+                         "(default 200)")
+    rp.add_argument("--quiet", action="store_true", help="no progress lines")
+    rp.set_defaults(func=_cmd_report)
+    co = sub.add_parser("compare", help="fronts of several run folders at one reference "
+                                        "point: PNG, CSV and Markdown tables")
+    co.add_argument("run_dirs", nargs="+", metavar="RUN_DIR", help="run folders of "
+                    "`chiropt run` with the same objectives")
+    co.add_argument("--out", metavar="DIR", help="output folder (default: compare/ beside "
+                    "the first run folder)")
+    co.set_defaults(func=_cmd_compare)
     go = sub.add_parser("goal", help="the goal-file reference, or check a goal file")
     go.add_argument("--explain", action="store_true", help="print the goal-file reference")
     go.add_argument("--check", metavar="GOAL.yaml", help="validate a goal file, run nothing")

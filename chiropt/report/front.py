@@ -11,7 +11,6 @@ best-g candidate (docs/theory.md §14); without them the panel is drawn without 
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Any
 
 import numpy as onp
 
@@ -182,43 +181,21 @@ def plot_convergence(path, problem, records, *, reference) -> Path:
 
     ``records`` are all stored evaluations (any status), ordered by stage, search, seq.
     """
-    from chiropt.search.explore import search_key
-    from chiropt.search.pareto import hypervolume, non_dominated
+    from chiropt.report.progress import progress, search_streams
+    from chiropt.run import FEASIBILITY_TOL
 
     goal = problem.goal
     M = problem.n_objectives
     senses = problem.senses
     fig, axes = new_figure(1, 1, width=6.0, height=3.8)
     ax = axes[0, 0]
-    streams: dict[str, list[Any]] = {}
-    for r in records:
-        if ":" in r.stage:  # rows superseded by a grown budget: not on a search's path
-            continue
-        key = search_key(r.stage, r.start)
-        streams.setdefault(key, []).append(r)
-    sign = 1.0 if senses[0] == "max" else -1.0
-    for n, (key, recs) in enumerate(sorted(streams.items())):
+    streams = search_streams(records)
+    for n, (key, recs) in enumerate(streams.items()):
         color = START_COLORS[n % len(START_COLORS)]
-        ys, best_y = [], []
-        front = onp.zeros((0, M))
-        best = onp.nan
-        for r in recs:
-            ev = r.evaluation
-            f = ev.metrics.get("objectives")
-            g = onp.asarray(ev.metrics.get("constraints", []), float)
-            ok = ev.status == "ok" and f is not None
-            feas = ok and bool(onp.all(g <= 1e-6))
-            if M == 1:
-                ys.append(f[0] if ok else onp.nan)
-                if feas and (onp.isnan(best) or sign * f[0] > sign * best):
-                    best = f[0]
-                best_y.append(best)
-            else:
-                if feas:
-                    F = onp.vstack([front, onp.asarray(f, float)[None]])
-                    front = F[non_dominated(F, senses)]
-                hv = hypervolume(front, senses, reference) if (len(front) and reference) else 0.0
-                best_y.append(hv)
+        best_y = progress(recs, senses, reference, FEASIBILITY_TOL)
+        ys = [r.evaluation.metrics["objectives"][0] if r.evaluation.status == "ok"
+              and r.evaluation.metrics.get("objectives") is not None else onp.nan
+              for r in recs]
         x = onp.arange(1, len(recs) + 1)
         if M == 1:
             ax.plot(x, ys, ".", color=color, ms=2.5, alpha=0.5)
