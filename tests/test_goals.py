@@ -49,6 +49,23 @@ def test_minimal_goal_resolves_with_defaults(tmp_path):
     assert d["variables"]["lattice.period_nm"] == {"min": 300.0, "max": 520.0}
 
 
+def test_resolved_goal_of_one_objective_loads_again(tmp_path):
+    # common practice, no source: goal.resolved.yaml (to_dict, as the run writes it) is a
+    # valid goal file; a one-objective goal's default front section must not be refused,
+    # while a non-default one still is
+    import yaml
+    (goal,) = _load(tmp_path, "name: t\n" + DESIGN + VARIABLES + OBJECTIVES)
+    path = tmp_path / "resolved.yaml"
+    path.write_text(yaml.safe_dump(goal.to_dict(), sort_keys=False))
+    (again,) = load_goal(path)
+    assert again.to_dict() == goal.to_dict()
+    data = goal.to_dict()
+    data["search"]["front"]["points"] = 4
+    path.write_text(yaml.safe_dump(data, sort_keys=False))
+    with pytest.raises(InputError, match="search.front"):
+        load_goal(path)
+
+
 @pytest.mark.parametrize("text, key, words", [
     # unknown top-level key: closest valid key suggested, with its line
     (DESIGN + VARIABLES + OBJECTIVES + "constrains: []\n", "constrains",

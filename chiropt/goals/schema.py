@@ -805,7 +805,10 @@ def _search(ctx: _Ctx, raw: Any, objectives) -> SearchSettings:
     cap = ctx.integer(raw.get("max_evals_per_start", s.max_evals_per_start),
                       "search.max_evals_per_start", low=1, high=10**7)
     method, points, reference = s.front_method, s.front_points, None
-    if "front" in raw:
+    # a goal of one objective may carry the default front section (goal.resolved.yaml
+    # writes it for every goal); anything else there is an error
+    default_front = {"method": s.front_method, "points": s.front_points}
+    if "front" in raw and not (n_objectives < 2 and raw["front"] == default_front):
         if n_objectives < 2:
             raise ctx.error("search.front", "a front needs two objectives; this goal has one")
         ctx.keys(raw["front"], {"method", "points", "reference"}, "search.front")

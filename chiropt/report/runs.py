@@ -88,16 +88,10 @@ def is_feasible(ev) -> bool:
 
 
 def _resolved_goal(path: Path) -> list[Goal]:
-    """The goal of ``goal.resolved.yaml``; its ``search.front`` is dropped for a goal of one
-    objective (the resolved form writes the section, the schema takes it only with two)."""
-    import yaml
+    """The goal of ``goal.resolved.yaml``."""
+    from chiropt.goals.schema import load_goal
 
-    from chiropt.goals.schema import goal_from_dict
-
-    data = yaml.safe_load(path.read_text())
-    if len(data.get("objectives") or []) < 2 and isinstance(data.get("search"), dict):
-        data["search"].pop("front", None)
-    return goal_from_dict(data, base_dir=path.parent)
+    return load_goal(str(path))
 
 
 def load_run(path: str | Path) -> RunData:
