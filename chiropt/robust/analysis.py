@@ -195,7 +195,8 @@ def analyse(design: Design, spec: RobustSpec, *, at_nm: float, seed: int = 1,
             held_all &= okf
             out["constraints"].append({"label": "fabrication limits",
                                        "probability": float(okf.mean())})
-        out["yield"] = float(held_all.mean())
+        if constraints or fabrication is not None:
+            out["yield"] = float(held_all.mean())
     for kind, sub in (("cone", replace(spec, errors=(), band_nm=0.0)),
                       ("band", replace(spec, errors=(), na=0.0))):
         if (kind == "cone" and spec.na > 0) or (kind == "band" and spec.band_nm > 0):
