@@ -1,8 +1,9 @@
 """Quantities over a sample plan: incoherent averages and statistics, differentiable.
 
-Owns: :func:`metric_value` (a metric from the quantity spectra), :func:`combine` (the incoherent average of quantity spectra over cone directions and
-band nodes), :func:`sample_quantities` (one combined quantity set per fabrication sample,
-traced values welcome) and :func:`summarize` (mean, p10, p90, worst of per-sample values).
+Owns: :func:`metric_value` (a metric from the quantity spectra), :func:`combine` (the
+incoherent average of quantity spectra over cone directions and band nodes),
+:func:`sample_quantities` (one combined quantity set per fabrication sample, traced values
+welcome) and :func:`summarize` (mean, p10, p90, worst of per-sample values).
 Must not import: search, store, report, cli, goals.
 
 Why incoherent. The region metrics are area averages of quadratic field quantities
