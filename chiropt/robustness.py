@@ -11,7 +11,7 @@ first-order mean and spread, Monte Carlo mean, spread and 5/50/95 percentiles, w
 first-order picture holds, cone and band averages, the width around the design
 wavelength; header lines with constraint probabilities and the yield), ``.json`` (the
 whole analysis with the samples: what ``chiropt export --robustness`` reads) and ``.png``;
-for a run folder ``ranking.csv`` / ``ranking.md``.
+for a run folder ``ranking.csv`` and the same table in Markdown (``.md``).
 """
 
 from __future__ import annotations

@@ -61,7 +61,8 @@ def _fmt(v: Any) -> str:
 
 
 def write_table(stem: str | Path, result: dict) -> tuple[Path, Path]:
-    """``STEM.csv`` (``#`` header lines, then the table) and ``STEM.md``; their paths."""
+    """``STEM.csv`` (``#`` header lines, then the table) and the same table in Markdown
+    (suffix ``.md``); their paths."""
     stem = Path(stem)
     csv_path, md_path = stem.with_suffix(".csv"), stem.with_suffix(".md")
     rows = robustness_rows(result)
@@ -118,7 +119,8 @@ def setup_section(result: dict) -> dict:
 
 
 def write_ranking(stem: str | Path, rows: Sequence[dict]) -> tuple[Path, Path]:
-    """``STEM.csv`` and ``STEM.md`` of a run's candidates ranked by robust value.
+    """``STEM.csv`` and its Markdown twin (suffix ``.md``): a run's candidates ranked by
+    robust value.
 
     ``rows``: dicts with ``rank``, ``candidate``, ``metric``, ``nominal``, ``robust``,
     ``robust_kind``, ``nominal_rank``, ``yield``, in rank order.
