@@ -360,7 +360,8 @@ def build_parser() -> argparse.ArgumentParser:
                          "Jones vectors for a full-wave solver")
     ex.add_argument("--robustness", metavar="FILE.json",
                     help="with --setup: write this result of `chiropt robustness` (error "
-                         "model, its samples, robust figures) into the set-up")
+                         "model, its samples, robust figures), or a run's "
+                         "robust_samples.json, into the set-up")
     ex.set_defaults(func=_cmd_export)
     ro = sub.add_parser("robustness", help="fabrication errors, illumination cone and band "
                                            "around a design or a run's candidates")

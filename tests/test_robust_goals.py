@@ -227,6 +227,17 @@ def test_robustness_command_on_a_run_folder_ranks_its_candidates(robust_run, tmp
     assert "yield" in capsys.readouterr().out
 
 
+def test_export_carries_a_robust_runs_error_model(robust_run, tmp_path):
+    # the brief: the full-wave set-up gets the error model, so it can sample the same errors
+    _, s = robust_run
+    setup = tmp_path / "c000.json"
+    assert main(["export", str(s.run_dir / "candidates" / "c000.yaml"), "--setup", str(setup),
+                 "--robustness", str(s.run_dir / "robust_samples.json")]) == 0
+    terms = json.loads(setup.read_text())["robustness"]["goal_terms"]
+    record = json.loads((s.run_dir / "robust_samples.json").read_text())
+    assert terms == record and terms["objectives[0]"]["error_model"]["samples"] == 4
+
+
 def test_robustness_command_on_a_design_and_its_export(tmp_path, capsys):
     design = ROOT / "configs" / "near-field-design.yaml"
     code = main(["robustness", str(design), "--sigma", "radius_nm=2", "--na", "0.1",

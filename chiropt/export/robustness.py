@@ -107,7 +107,15 @@ def read_robustness(path: str | Path) -> dict:
 
 def setup_section(result: dict) -> dict:
     """The ``robustness`` entry of a full-wave set-up: the error model, the very samples
-    (so a full-wave check can solve the same perturbed designs) and the figures."""
+    (so a full-wave check can solve the same perturbed designs) and the figures.
+
+    ``result`` is a file of ``chiropt robustness`` (``<stem>-robustness.json``) or a run's
+    ``robust_samples.json`` (the robust goal terms: each one's error model and samples).
+    """
+    if "error_model" not in result:  # a run's robust goal terms
+        return {"note": "the robust goal terms of the run: per term its error model and the "
+                        "samples every design of the run was evaluated with",
+                "goal_terms": result}
     figures = {m: {k: v for k, v in r.items() if k != "derivatives"}
                for m, r in result["metrics"].items()}
     return {"note": "fabrication errors are offsets of the named design quantities in user "

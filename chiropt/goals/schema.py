@@ -231,10 +231,6 @@ class Objective:
             body = f"{self.robust.statistic}({body})"
         return f"{body}@{self.spec.label()}"
 
-    def nominal_label(self) -> str:
-        """The label of the same objective at the nominal design (``g@700nm``)."""
-        return replace(self, robust=None).label()
-
     def to_dict(self) -> dict:
         if self.weighted:
             what: Any = {"weighted": {m: w for m, w, _ in self.terms},
