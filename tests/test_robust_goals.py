@@ -18,7 +18,7 @@ import pytest
 from chiropt.cli import main
 from chiropt.errors import InputError
 from chiropt.export import read_front_csv
-from chiropt.goals import GoalProblem, load_goal
+from chiropt.goals import GoalProblem, check_goal, load_goal
 from chiropt.run import run_goal
 from chiropt.store import EvaluationStore
 
@@ -137,6 +137,15 @@ def test_bad_robust_goal_entry_names_key_line_and_range(tmp_path, robust, key, w
     assert exc.value.key == key
     for w in words:
         assert w in exc.value.message, exc.value.message
+
+
+def test_robust_band_beyond_the_material_data_is_caught_before_a_run(tmp_path):
+    # the pre-run checks see the band's outer nodes (Gauss-Hermite reach ~2.9 sigma)
+    text = DESIGN + "objectives:\n  - {maximize: g, at_nm: 700, robust: {band_nm: 600}}\n"
+    (goal,) = load_goal(_write(tmp_path, text))
+    with pytest.raises(InputError) as exc:
+        check_goal(goal)
+    assert exc.value.key == "objectives[0].robust.band_nm" and "data range" in exc.value.message
 
 
 def test_cone_with_an_angle_variable_is_refused(tmp_path):

@@ -478,13 +478,19 @@ def check_goal(goal: Goal) -> dict[str, Any]:
     for key, spec in mats:
         mat = get_material(spec, key=key, base_dir=design.base_dir)
         ranges.append((key, mat, tuple(mat.wavelength_range_nm)))
-    items = [(o.key, o.spec) for o in goal.objectives]
-    items += [(c.key, c.spec) for c in goal.metric_constraints]
-    for key, spec in items:
-        lo = min(spec.wavelengths_nm) + shift[0]
-        hi = max(spec.wavelengths_nm) + shift[1]
+    items = [(o.key, o.spec, o.robust) for o in goal.objectives]
+    items += [(c.key, c.spec, c.robust) for c in goal.metric_constraints]
+    for key, spec, robust in items:
+        # a robust band reaches beyond the term's own wavelengths by its outer nodes
+        pad = (float(onp.max(onp.abs(problem.robust_plans[key].band_offsets_nm)))
+               if robust is not None else 0.0)
+        lo = min(spec.wavelengths_nm) + shift[0] - pad
+        hi = max(spec.wavelengths_nm) + shift[1] + pad
         skey = {"at": f"{key}.at_nm", "band": f"{key}.band_nm"}.get(spec.kind,
                                                                      "design.illumination")
+        if pad > 0 and all(a * (1 - 1e-6) <= lo + pad and hi - pad <= b * (1 + 1e-6)
+                           for _, _, (a, b) in ranges):
+            skey = f"{key}.robust.band_nm"   # only the robust band leaves the data
         for mkey, mat, (a, b) in ranges:
             if lo < a * (1 - 1e-6) or hi > b * (1 + 1e-6):
                 moved = (" (the wavelength variable moves it by "
