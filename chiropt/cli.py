@@ -225,7 +225,7 @@ def _cmd_robustness(args) -> int:
     outcome = robustness(args.target, top=args.top, sigma=parse_sigma_text(args.sigma),
                          na=args.na, band_nm=args.band_nm, samples=args.samples,
                          seed=args.seed, at_nm=args.at_nm, band_shape=args.band_shape,
-                         out=args.out)
+                         out=args.out, require=args.require)
     for stem, result in outcome.results.items():
         print(f"{stem} at {result['at_nm']:g} nm:")
         print(f"  {'metric':8s} {'nominal':>10s} {'MC p5':>10s} {'MC p50':>10s} "
@@ -385,6 +385,9 @@ def build_parser() -> argparse.ArgumentParser:
                     help="seed of the error samples (default: the run's seed, or 1)")
     ro.add_argument("--at-nm", type=float, metavar="L",
                     help="design file: the design wavelength (default its first wavelength)")
+    ro.add_argument("--require", metavar="M>=V[,M<=V...]",
+                    help="design file: constraints whose probability (and joint yield) over "
+                         "the error samples is reported, e.g. u>=0.3,g>=1.1")
     ro.add_argument("--out", help="folder of the tables and figures")
     ro.set_defaults(func=_cmd_robustness)
     ma = sub.add_parser("materials", help="list the short material names and their sources")

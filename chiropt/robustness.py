@@ -68,6 +68,36 @@ def build_spec(design: Design, *, sigma: dict[str, float] | None = None, na=None
                         error=_cli_error)
 
 
+def parse_requirements(text: str | None, design: Design) -> list[tuple]:
+    """``u>=0.3,g>=1.1,R<=0.2`` -> constraint tuples ``(label, metric, lower, upper)``."""
+    import re
+
+    from chiropt.goals.schema import METRIC_NAMES
+    from chiropt.sensitivity import NEAR_FIELD
+
+    out = []
+    for item in (t.strip() for t in (text or "").split(",")):
+        if not item:
+            continue
+        m = re.fullmatch(r"([\w+-]+?)\s*(>=|<=)\s*([-+0-9.eE]+)", item)
+        if m is None:
+            raise InputError("--require", f"got {item!r}; expected METRIC>=VALUE or "
+                                          "METRIC<=VALUE, e.g. u>=0.3")
+        name, op, value = m.groups()
+        near = name in NEAR_FIELD or name in ("docp", "s0")
+        if name not in METRIC_NAMES or (near and design.region is None):
+            allowed = [n for n in METRIC_NAMES if design.region is not None
+                       or not (n in NEAR_FIELD or n in ("docp", "s0"))]
+            raise InputError("--require", f"unknown metric {name!r} for this design; "
+                                          f"allowed: {', '.join(allowed)}")
+        try:
+            v = float(value)
+        except ValueError:
+            raise InputError("--require", f"{name}: got {value!r}, expected a number") from None
+        out.append((item, name, v if op == ">=" else None, v if op == "<=" else None))
+    return out
+
+
 def _write(design: Design, spec: RobustSpec, stem: Path, outcome: RobustnessOutcome, *,
            at_nm: float, seed: int, **kw) -> dict:
     from chiropt.export.robustness import write_robustness, write_table
@@ -96,7 +126,8 @@ def _folder(path: Path) -> Path:
 
 def robustness(target: str | Path, *, top: int = DEFAULT_TOP, sigma=None, na=None,
                band_nm=None, samples=None, seed: int | None = None, at_nm: float | None = None,
-               band_shape=None, out: str | Path | None = None) -> RobustnessOutcome:
+               band_shape=None, out: str | Path | None = None,
+               require: str | None = None) -> RobustnessOutcome:
     """Analyse a design file, or the candidates of a run folder (see the module notes)."""
     target = Path(target)
     if not target.exists():
@@ -114,10 +145,16 @@ def robustness(target: str | Path, *, top: int = DEFAULT_TOP, sigma=None, na=Non
             raise InputError("--at-nm", f"got {wl:g}, allowed a wavelength in [1, 1e6] nm")
         spec = build_spec(design, sigma=sigma, na=na, band_nm=band_nm, samples=samples,
                           band_shape=band_shape)
+        cons = parse_requirements(require, design)
+        metrics = ("g", "docp", "u") if design.region is not None else ("R", "T", "A")
+        metrics = tuple(dict.fromkeys(list(metrics) + [c[1] for c in cons]))
         folder = _folder(Path(out) if out else Path.cwd())
         _write(design, spec, folder / f"{target.stem}-robustness", outcome, at_nm=wl,
-               seed=1 if seed is None else seed)
+               seed=1 if seed is None else seed, metrics=metrics, constraints=cons)
         return outcome
+    if require:
+        raise InputError("--require", "goes with a design file; a run folder uses its goal's "
+                                      "constraints")
     return _run_folder(target, outcome, top=top, sigma=sigma, na=na, band_nm=band_nm,
                        samples=samples, seed=seed, band_shape=band_shape, out=out)
 

@@ -250,11 +250,18 @@ def test_export_carries_a_robust_runs_error_model(robust_run, tmp_path):
 def test_robustness_command_on_a_design_and_its_export(tmp_path, capsys):
     design = ROOT / "configs" / "near-field-design.yaml"
     code = main(["robustness", str(design), "--sigma", "radius_nm=2", "--na", "0.1",
-                 "--band-nm", "5", "--samples", "8", "--out", str(tmp_path)])
+                 "--band-nm", "5", "--samples", "8", "--out", str(tmp_path),
+                 "--require", "u>=0.5,A<=2"])
     assert code == 0, capsys.readouterr().err
     rjson = tmp_path / "near-field-design-robustness.json"
     data = json.loads(rjson.read_text())
-    assert set(data["metrics"]) == {"g", "docp", "u"}
+    # the yield is the share of samples meeting every requirement: here each one's own
+    # probability, since A <= 2 always holds (common practice, no source)
+    (pu, pa) = [c["probability"] for c in data["constraints"]]
+    assert pa == 1.0 and data["yield"] == pu
+    u = onp.array(data["samples"]["u"])
+    assert pu == float(onp.mean(u >= 0.5))
+    assert set(data["metrics"]) == {"g", "docp", "u", "A"}  # A: named by --require
     for m in data["metrics"].values():
         assert {"nominal", "first_order", "monte_carlo", "cone", "band"} <= set(m)
     setup = tmp_path / "setup.json"
@@ -271,6 +278,8 @@ def test_robustness_command_on_a_design_and_its_export(tmp_path, capsys):
     (["--sigma", "radius=1"], "--sigma radius"),
     (["--samples", "0"], "--samples"),
     (["--band-nm", "-3"], "--band-nm"),
+    (["--require", "gg>=1"], "--require"),
+    (["--require", "u=1"], "--require"),
 ])
 def test_robustness_command_rejects_bad_options(argv, option, capsys):
     # docs/cli.md §7: invalid input exits 2 with one line naming the option
