@@ -81,7 +81,7 @@ def parse_requirements(text: str | None, design: Design) -> list[tuple]:
             continue
         m = re.fullmatch(r"([\w+-]+?)\s*(>=|<=)\s*([-+0-9.eE]+)", item)
         if m is None:
-            raise InputError("--require", f"got {item!r}; expected METRIC>=VALUE or "
+            raise InputError("--require", f"got {item!r}; allowed METRIC>=VALUE or "
                                           "METRIC<=VALUE, e.g. u>=0.3")
         name, op, value = m.groups()
         near = name in NEAR_FIELD or name in ("docp", "s0")
