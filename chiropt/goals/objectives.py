@@ -242,9 +242,13 @@ class GoalProblem:
                 self.robust_plans[item.key] = make_plan(
                     item.robust, design, goal.seed + (k + 1) * ROBUST_SEED_STRIDE)
 
+    def _terms(self) -> dict[str, Any]:
+        """Objectives and metric constraints by key path (``objectives[0]``, ...)."""
+        return {i.key: i for i in list(self.goal.objectives) + list(self.goal.metric_constraints)}
+
     def robust_record(self) -> dict[str, Any]:
         """Every robust term's error model and samples (``robust_samples.json``)."""
-        items = {i.key: i for i in list(self.goal.objectives) + list(self.goal.metric_constraints)}
+        items = self._terms()
         return {key: {"label": items[key].label(), "error_model": items[key].robust.describe(),
                       "wavelengths_nm": list(items[key].spec.wavelengths_nm),
                       "samples": plan.to_dict()}
@@ -253,7 +257,7 @@ class GoalProblem:
     def _robust_samples(self, x) -> dict[str, list]:
         """Per-sample quantity sets of every robust term at ``x`` (may be traced)."""
         out = {}
-        items = {i.key: i for i in list(self.goal.objectives) + list(self.goal.metric_constraints)}
+        items = self._terms()
         for key, plan in self.robust_plans.items():
             spec = items[key].spec
             vals = self.values(x)
