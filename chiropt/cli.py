@@ -202,8 +202,58 @@ def _cmd_export(args) -> int:
             _output_file(option, path)
     if args.gds:
         print(f"layout: {write_gds(design, args.gds, cells=args.cells)}")
+    if args.robustness and not args.setup:
+        raise InputError("--robustness", "goes with --setup FILE.json (it is written into it)")
     if args.setup:
-        print(f"full-wave set-up: {write_fullwave_setup(design, args.setup)}")
+        section = None
+        if args.robustness:
+            from chiropt.export.robustness import read_robustness, setup_section
+
+            try:
+                section = setup_section(read_robustness(args.robustness))
+            except (OSError, ValueError, KeyError) as exc:
+                raise InputError("--robustness", f"cannot read {args.robustness} as a file of "
+                                                 f"chiropt robustness: {exc}") from None
+        print(f"full-wave set-up: {write_fullwave_setup(design, args.setup, robustness=section)}")
+    return EXIT_OK
+
+
+def _cmd_robustness(args) -> int:
+    from chiropt.robust.spec import parse_sigma_text
+    from chiropt.robustness import robustness
+
+    outcome = robustness(args.target, top=args.top, sigma=parse_sigma_text(args.sigma),
+                         na=args.na, band_nm=args.band_nm, samples=args.samples,
+                         seed=args.seed, at_nm=args.at_nm, band_shape=args.band_shape,
+                         out=args.out, require=args.require)
+    for stem, result in outcome.results.items():
+        print(f"{stem} at {result['at_nm']:g} nm:")
+        print(f"  {'metric':8s} {'nominal':>10s} {'MC p5':>10s} {'MC p50':>10s} "
+              f"{'MC p95':>10s} {'1st-order':>10s} {'cone':>10s} {'band':>10s} "
+              f"{'width nm':>9s}")
+        for m, r in result["metrics"].items():
+            mc = r.get("monte_carlo", {})
+            cells = [mc.get("p5"), mc.get("p50"), mc.get("p95")]
+            text = " ".join(f"{v:10.4g}" if v is not None else f"{'-':>10s}" for v in cells)
+            agree = r.get("agreement", {}).get("first_order", "-")
+            extra = " ".join(f"{r[k]:10.4g}" if k in r else f"{'-':>10s}"
+                             for k in ("cone", "band"))
+            width = r.get("fwhm_nm", float("nan"))
+            print(f"  {m:8s} {r['nominal']:10.4g} {text} {agree:>10s} {extra} {width:9.3g}")
+        for c in result["constraints"]:
+            print(f"  P({c['label']}) = {c['probability']:.3g}")
+        if result.get("yield") is not None:
+            print(f"  yield = {result['yield']:.3g}")
+    if outcome.ranking:
+        print("ranking by robust value (rank, candidate, robust, nominal rank):")
+        for d in outcome.ranking:
+            print(f"  {d['rank']:3d} {d['candidate']:10s} {d['robust']:10.4g} "
+                  f"({d['robust_kind']}; nominal {d['nominal']:.4g}, rank {d['nominal_rank']})")
+    for note in outcome.notes:
+        print(f"note: {note}", file=sys.stderr)
+    for files in outcome.files.values():
+        for f in files:
+            print(f)
     return EXIT_OK
 
 
@@ -341,7 +391,38 @@ def build_parser() -> argparse.ArgumentParser:
     ex.add_argument("--setup", metavar="FILE.json",
                     help="geometry, n and k at the design wavelengths, stack and incident "
                          "Jones vectors for a full-wave solver")
+    ex.add_argument("--robustness", metavar="FILE.json",
+                    help="with --setup: write this result of `chiropt robustness` (error "
+                         "model, its samples, robust figures), or a run's "
+                         "robust_samples.json, into the set-up")
     ex.set_defaults(func=_cmd_export)
+    ro = sub.add_parser("robustness", help="fabrication errors, illumination cone and band "
+                                           "around a design or a run's candidates")
+    ro.add_argument("target", help="design file (YAML) or run folder (runs/NAME-MATERIAL)")
+    ro.add_argument("--top", type=int, default=5, metavar="N",
+                    help="run folder: analyse N candidates spread along the front (default 5)")
+    ro.add_argument("--sigma", metavar="Q=S[,Q=S...]",
+                    help="Gaussian fabrication errors, e.g. radius_nm=3,lattice.period_nm=2 "
+                         "(a bare name such as radius_nm moves every quantity ending in it "
+                         "together; A+B=S one shared error)")
+    ro.add_argument("--na", type=float, metavar="X",
+                    help="numerical aperture of the illumination cone in the host")
+    ro.add_argument("--band-nm", type=float, metavar="B",
+                    help="spectral band: FWHM of a Gaussian weight (or width, --band-shape "
+                         "flat) [nm]")
+    ro.add_argument("--band-shape", choices=("gaussian", "flat"), default=None,
+                    help="spectral weight of the band (default gaussian)")
+    ro.add_argument("--samples", type=int, metavar="N",
+                    help="Monte Carlo error samples (default 64, allowed 1-4096)")
+    ro.add_argument("--seed", type=int, metavar="S",
+                    help="seed of the error samples (default: the run's seed, or 1)")
+    ro.add_argument("--at-nm", type=float, metavar="L",
+                    help="design file: the design wavelength (default its first wavelength)")
+    ro.add_argument("--require", metavar="M>=V[,M<=V...]",
+                    help="design file: constraints whose probability (and joint yield) over "
+                         "the error samples is reported, e.g. u>=0.3,g>=1.1")
+    ro.add_argument("--out", help="folder of the tables and figures")
+    ro.set_defaults(func=_cmd_robustness)
     ma = sub.add_parser("materials", help="list the short material names and their sources")
     ma.set_defaults(func=_cmd_materials)
     ru = sub.add_parser("run", help="optimize a goal file into a run folder (resumes)")

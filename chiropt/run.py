@@ -16,6 +16,9 @@ Run folder ``<out>/<name>-<material>/``
   ``candidates/c<index>.yaml``: design files of up to
   ``front.points`` (one objective: 10) front points spread along the front, which
   ``chiropt evaluate`` reproduces; ``front.png``, ``convergence.png``; ``run.log``.
+- ``robust_samples.json`` (goals with ``robust:`` terms): every robust term's error model
+  and its samples (the same for every design of the run); front.csv then adds a
+  ``LABEL (nominal)`` column beside each robust objective.
 
 Searches
 --------
@@ -107,6 +110,7 @@ FEASIBILITY_TOL = 1e-6
 STORE_NAME = "evaluations.sqlite"
 STOP_NAME = ".stop"
 SUMMARY_NAME = "summary.json"
+ROBUST_SAMPLES_NAME = "robust_samples.json"
 LOCK_NAME = ".lock"
 REPRODUCE_TOL = 1e-9
 MERGE_FRACTION = 1e-3
@@ -717,6 +721,8 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
     (run_dir / "goal.resolved.yaml").write_text(
         f"# resolved goal of run {goal.run_name} (source: {goal.source or 'inline'})\n"
         + yaml.safe_dump(resolved, sort_keys=False))
+    if problem.robust_plans:  # the common random numbers of the robust terms, for the record
+        (run_dir / ROBUST_SAMPLES_NAME).write_text(json.dumps(problem.robust_record()) + "\n")
     n_search, cap = plan_searches(goal)
     X_explore = explore_points(goal, problem)
     resumed = store.count()
@@ -962,6 +968,7 @@ def _columns(problem: GoalProblem) -> list[tuple[str, str, Any]]:
     spec = goal.objectives[0].spec
     names = ("u", "g", "docp+1", "docp-1") if goal.design.region is not None else ("R", "T", "A")
     own = {objective_label(o, problem) for o in goal.objectives}
+    own |= {objective_label(replace(o, robust=None), problem) for o in goal.objectives}
     for m in names:
         lab = f"{m}@{spec_label(spec, problem)}"
         if lab not in seen and lab not in own:
@@ -1162,8 +1169,10 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
     # table
     extra = _columns(problem)
     olabels = [objective_label(o, problem) for o in goal.objectives]
+    robust_objectives = [o for o in goal.objectives if o.robust is not None]
+    nominal_labels = [f"{objective_label(o, problem)} (nominal)" for o in robust_objectives]
     hi_problem, hi_labels = _higher_lmax_problem(goal), [f"{lab} (lmax+1)" for lab in olabels]
-    columns = (["index"] + problem.paths + olabels + [c[0] for c in extra]
+    columns = (["index"] + problem.paths + olabels + nominal_labels + [c[0] for c in extra]
                + ["feasible", "max_violation", "stage", "search", "seq"]
                + (hi_labels if hi_problem is not None else [])
                + ["lmax", "lmax_change", "model_check"])
@@ -1175,7 +1184,9 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         q = r.evaluation.metrics["quantities"]
         vals = [_spec_metric(problem, q, m, spec) for _, m, spec in extra]
         viol = float(max(0.0, onp.max(G[i]))) if G[i].size else 0.0
-        row = [idx, *[float(v) for v in r.x], *[float(v) for v in F[i]], *vals,
+        nominal = [float(v) for o, v in zip(goal.objectives, problem.objective_values(
+            {k: onp.asarray(v) for k, v in q.items()}), strict=True) if o.robust is not None]
+        row = [idx, *[float(v) for v in r.x], *[float(v) for v in F[i]], *nominal, *vals,
                bool(feas[i]), viol, r.stage, r.start, r.seq]
         # validity: the same design with one more multipole order (both values kept)
         if hi_problem is not None:

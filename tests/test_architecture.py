@@ -70,7 +70,12 @@ RULES = [
     ("chiropt.particles", ("chiropt.multipole",), ()),
     ("chiropt.multipole", ("chiropt.farfield", "chiropt.fields", "chiropt.metrics"), ()),
     ("chiropt.store", ("chiropt.search",), ()),
-    ("chiropt", ("chiropt.report",), ("chiropt.cli", "chiropt.run", "chiropt.report")),
+    ("chiropt", ("chiropt.report",), ("chiropt.cli", "chiropt.run", "chiropt.report",
+                                      "chiropt.robustness")),
+    # robustness sampling sits below the goals and above the forward model
+    ("chiropt.robust", ("chiropt.goals", "chiropt.search", "chiropt.store", "chiropt.run",
+                        "chiropt.robustness", "chiropt.cli"), ()),
+    ("chiropt.robustness", ("chiropt.cli",), ()),
     # no solver imports another; solvers compute no far- or near-field quantities
     ("chiropt.solve", ("chiropt.multipole", "chiropt.fourier"), ()),
     ("chiropt.multipole", ("chiropt.solve", "chiropt.fourier"), ()),

@@ -170,8 +170,14 @@ def fullwave_setup(design: Design) -> dict:
     return out
 
 
-def write_fullwave_setup(design: Design, path: str | Path) -> Path:
-    """Write :func:`fullwave_setup` as JSON."""
+def write_fullwave_setup(design: Design, path: str | Path, *,
+                         robustness: dict | None = None) -> Path:
+    """Write :func:`fullwave_setup` as JSON; with ``robustness`` (a section of
+    ``export.robustness.setup_section``) the error model, its samples and the robust
+    figures go in as its ``robustness`` entry."""
     path = Path(path)
-    path.write_text(json.dumps(fullwave_setup(design), indent=1))
+    setup = fullwave_setup(design)
+    if robustness is not None:
+        setup["robustness"] = robustness
+    path.write_text(json.dumps(setup, indent=1))
     return path

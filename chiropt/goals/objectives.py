@@ -17,6 +17,15 @@ Conventions
 - One forward pass computes every objective and constraint; the Jacobian takes one reverse
   pass per row (``autograd.make_vjp``), so a gradient evaluation costs about
   ``1 + (M + m) * (reverse / forward)`` forward solves instead of ``M + m`` full gradients.
+- A robust objective or constraint (``robust:``, docs/robustness.md) is the statistic of
+  its per-sample values over its own sample plan (``chiropt.robust``: fabrication errors,
+  cone directions, band nodes), drawn once from the goal's seed and the term's position
+  (common random numbers: the same errors for every design, so the function the optimizer
+  sees is smooth); each sample solves the term's own wavelengths once per cone direction,
+  all inside the same traced forward pass, so the Jacobian stays exact. The nominal
+  quantities are solved as before and stored; ``objective_values(q)`` and
+  ``_metric_rows(q)`` without robust samples give the nominal values (the exploration's
+  screen and the ``(nominal)`` columns of front.csv).
 - An evaluation fails (status ``"failed"``, with its reason, the search continues) when a
   wavelength sits on a Rayleigh anomaly (``solve.RAYLEIGH_WARN``), the solve is singular, a
   wavelength leaves a material's data range, or a number is not finite.
@@ -43,6 +52,8 @@ from chiropt.goals.schema import (
     WavelengthSpec,
 )
 from chiropt.problem import VectorEvaluation
+from chiropt.robust.average import metric_value, sample_quantities, summarize
+from chiropt.robust.sampling import SamplePlan, make_plan
 from chiropt.sensitivity import compute_quantities
 from chiropt.solution import RAYLEIGH_WARN
 
@@ -53,14 +64,8 @@ class DeadlineReached(Exception):  # noqa: N818 - a stop signal, not an error
     """The run's wall-time budget is spent (raised before a fresh evaluation; never stored)."""
 
 
-def metric_spectrum(q: dict, name: str):
-    """Spectrum (W,) of a metric from the quantities of ``compute_quantities``.
-
-    ``docp``, ``s0``, ``R``, ``T``, ``A`` are the averages of the two incident helicities.
-    """
-    if name in q:
-        return np.real(q[name])
-    return 0.5 * (np.real(q[name + "+1"]) + np.real(q[name + "-1"]))
+metric_spectrum = metric_value  # spectrum (W,) of a metric; helicity averages by name
+ROBUST_SEED_STRIDE = 7919        # term k of a goal draws its errors from seed + k * stride
 
 
 def _lattice_vectors(kind: str, p: dict):
@@ -223,12 +228,47 @@ class GoalProblem:
         labels = []
         for c in goal.metric_constraints:
             if c.lower is not None:
-                labels.append(f"{c.metric}@{c.spec.label()}>={c.lower:g}")
+                labels.append(f"{c.label()}>={c.lower:g}")
             if c.upper is not None:
-                labels.append(f"{c.metric}@{c.spec.label()}<={c.upper:g}")
+                labels.append(f"{c.label()}<={c.upper:g}")
         labels += [f"{_fab_of(goal, r.key).kind}: {r.what}" for r in self._fab]
         self.constraint_labels = labels
         self.n_constraints = len(labels)
+        self.robust_plans: dict[str, SamplePlan] = {}   # by the term's key path
+        items = list(goal.objectives) + list(goal.metric_constraints)
+        for k, item in enumerate(items):
+            if item.robust is not None:
+                design = self.eval_design.with_wavelengths(item.spec.wavelengths_nm)
+                self.robust_plans[item.key] = make_plan(
+                    item.robust, design, goal.seed + (k + 1) * ROBUST_SEED_STRIDE)
+
+    def _terms(self) -> dict[str, Any]:
+        """Objectives and metric constraints by key path (``objectives[0]``, ...)."""
+        return {i.key: i for i in list(self.goal.objectives) + list(self.goal.metric_constraints)}
+
+    def robust_record(self) -> dict[str, Any]:
+        """Every robust term's error model and samples (``robust_samples.json``)."""
+        items = self._terms()
+        return {key: {"label": items[key].label(), "error_model": items[key].robust.describe(),
+                      "wavelengths_nm": list(items[key].spec.wavelengths_nm),
+                      "samples": plan.to_dict()}
+                for key, plan in self.robust_plans.items()}
+
+    def _robust_samples(self, x) -> dict[str, list]:
+        """Per-sample quantity sets of every robust term at ``x`` (may be traced)."""
+        out = {}
+        items = self._terms()
+        for key, plan in self.robust_plans.items():
+            spec = items[key].spec
+            vals = self.values(x)
+            wl = onp.asarray(spec.wavelengths_nm, float)
+            if self.shift_index is not None:
+                vals[WAVELENGTH_PATH] = wl + (x[self.shift_index] - self.reference_nm)
+            else:
+                vals.pop(WAVELENGTH_PATH, None)
+            design = self.eval_design.with_wavelengths(wl)
+            out[key] = sample_quantities(design, vals, plan)
+        return out
 
     # -- design vector -> named values -------------------------------------------------------
     def values(self, x) -> dict[str, Any]:
@@ -273,21 +313,33 @@ class GoalProblem:
     def _spec_value(self, q: dict, name: str, spec: WavelengthSpec):
         return np.mean(metric_spectrum(q, name)[self._index[id(spec)]])
 
-    def objective_values(self, q: dict):
-        """Objective values (M,) from the quantities [metric units]."""
+    def objective_values(self, q: dict, robust: dict | None = None):
+        """Objective values (M,) from the quantities [metric units]; a robust objective
+        takes its statistic over ``robust[key]`` (its per-sample quantity sets over its own
+        wavelengths) when given, else its nominal value from ``q``."""
         out = []
         for o in self.goal.objectives:
-            out.append(sum(w / n * self._spec_value(q, m, o.spec) for m, w, n in o.terms))
+            if robust is not None and o.key in robust:
+                per = np.stack([sum(w / n * np.mean(metric_value(qs, m)) for m, w, n in o.terms)
+                                for qs in robust[o.key]])
+                out.append(summarize(per, o.robust.statistic, o.sense))
+            else:
+                out.append(sum(w / n * self._spec_value(q, m, o.spec) for m, w, n in o.terms))
         return np.stack(out)
 
-    def _metric_rows(self, q: dict) -> list:
+    def _metric_rows(self, q: dict, robust: dict | None = None) -> list:
         rows = []
         for c in self.goal.metric_constraints:
-            v = self._spec_value(q, c.metric, c.spec)
+            if robust is not None and c.key in robust:
+                per = np.stack([np.mean(metric_value(qs, c.metric)) for qs in robust[c.key]])
+                lo_v = summarize(per, c.robust.statistic, "max")
+                hi_v = summarize(per, c.robust.statistic, "min")
+            else:
+                lo_v = hi_v = self._spec_value(q, c.metric, c.spec)
             if c.lower is not None:
-                rows.append((c.lower - v) / max(abs(c.lower), 1.0))
+                rows.append((c.lower - lo_v) / max(abs(c.lower), 1.0))
             if c.upper is not None:
-                rows.append((v - c.upper) / max(abs(c.upper), 1.0))
+                rows.append((hi_v - c.upper) / max(abs(c.upper), 1.0))
         return rows
 
     def _fab_rows(self, p: dict) -> list:
@@ -301,7 +353,8 @@ class GoalProblem:
     def _physics_vector(self, x, keep: dict):
         q, ray = compute_quantities(self.eval_design, self.values(x), with_flags=True)
         keep["q"], keep["ray"] = q, ray
-        return np.stack([*self.objective_values(q), *self._metric_rows(q)])
+        robust = self._robust_samples(x) if self.robust_plans else None
+        return np.stack([*self.objective_values(q, robust), *self._metric_rows(q, robust)])
 
     def _fab_vector(self, x):
         p = dict(self._params)
@@ -430,13 +483,19 @@ def check_goal(goal: Goal) -> dict[str, Any]:
     for key, spec in mats:
         mat = get_material(spec, key=key, base_dir=design.base_dir)
         ranges.append((key, mat, tuple(mat.wavelength_range_nm)))
-    items = [(o.key, o.spec) for o in goal.objectives]
-    items += [(c.key, c.spec) for c in goal.metric_constraints]
-    for key, spec in items:
-        lo = min(spec.wavelengths_nm) + shift[0]
-        hi = max(spec.wavelengths_nm) + shift[1]
+    items = [(o.key, o.spec, o.robust) for o in goal.objectives]
+    items += [(c.key, c.spec, c.robust) for c in goal.metric_constraints]
+    for key, spec, robust in items:
+        # a robust band reaches beyond the term's own wavelengths by its outer nodes
+        pad = (float(onp.max(onp.abs(problem.robust_plans[key].band_offsets_nm)))
+               if robust is not None else 0.0)
+        lo = min(spec.wavelengths_nm) + shift[0] - pad
+        hi = max(spec.wavelengths_nm) + shift[1] + pad
         skey = {"at": f"{key}.at_nm", "band": f"{key}.band_nm"}.get(spec.kind,
                                                                      "design.illumination")
+        if pad > 0 and all(a * (1 - 1e-6) <= lo + pad and hi - pad <= b * (1 + 1e-6)
+                           for _, _, (a, b) in ranges):
+            skey = f"{key}.robust.band_nm"   # only the robust band leaves the data
         for mkey, mat, (a, b) in ranges:
             if lo < a * (1 - 1e-6) or hi > b * (1 + 1e-6):
                 moved = (" (the wavelength variable moves it by "

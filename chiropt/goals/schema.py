@@ -58,6 +58,23 @@ in degrees. Every error names the key path and the line of the goal file.
     several times the cost of spheres.
     Inside the optimizer a bound ``v >= LOW`` is the scaled inequality
     ``(LOW - v) / max(|LOW|, 1) <= 0``; fabrication limits are scaled by ``V``.
+``robust`` (on any objective or metric constraint)
+    ``robust: {sigma: {QUANTITY: SIGMA, ...}, na: NA, band_nm: B, band_shape: gaussian | flat,
+    statistic: mean | p10 | p90 | worst, samples: N, polar_points: P, azimuth_points: Q,
+    band_points: K}``: the term is read as a statistic over fabrication errors, a cone of
+    illumination and a band instead of at the nominal design (docs/robustness.md). ``sigma``:
+    independent Gaussian errors [user units] of design quantities (key paths as in
+    ``variables``; ``A+B`` or a bare last component such as ``radius_nm`` that several paths
+    share is one error moving them all together); ``na`` (>= 0, below the host index): the
+    incoherent average over a cone of that numerical aperture around the illumination
+    direction; ``band_nm`` (0-1000): the average over a Gaussian band of that FWHM (or a flat
+    band of that width); ``statistic`` over the N error samples (default mean; ``worst`` is
+    the least favourable one: the smallest for a maximized term or a ``min`` bound).
+    Defaults: N 64, P 3, Q 4, K 5. The samples are drawn once from ``seed`` (common random
+    numbers: every design of the run sees the same errors; written to
+    ``robust_samples.json``); the gradients stay exact. Labels become ``p10(g)@700nm``;
+    ``front.csv`` adds the nominal value beside each robust objective (``... (nominal)``).
+    The exploration screens robust terms at their nominal values.
 Wavelength spec (objectives and metric constraints)
     ``at_nm: L`` (one wavelength), or ``band_nm: [L1, L2]`` with ``points: P`` (default 5;
     the band average of P equally spaced wavelengths), or nothing (the average over the
@@ -115,6 +132,7 @@ from typing import Any
 
 from chiropt.design import Design, design_from_dict, file_safe_name, load_design
 from chiropt.errors import InputError
+from chiropt.robust.spec import RobustSpec, parse_robust
 from chiropt.search.algorithms import get_algorithm
 from chiropt.sensitivity import FAR_FIELD, NEAR_FIELD
 from chiropt.yamlio import Located, check_keys, load_yaml
@@ -196,17 +214,21 @@ class Objective:
     terms: tuple[tuple[str, float, float], ...]
     spec: WavelengthSpec
     weighted: bool = False
+    robust: RobustSpec | None = None
 
     @property
     def metrics(self) -> tuple[str, ...]:
         return tuple(t[0] for t in self.terms)
 
     def label(self) -> str:
-        """Column-safe label, e.g. ``g@700nm`` or ``weighted(g:0.7,u:0.3)@650-750nm``."""
+        """Column-safe label, e.g. ``g@700nm``, ``weighted(g:0.7,u:0.3)@650-750nm``, or
+        ``p10(g)@700nm`` for a robust objective."""
         if self.weighted:
             body = "weighted(" + ",".join(f"{m}:{w:g}" for m, w, _ in self.terms) + ")"
         else:
             body = self.terms[0][0]
+        if self.robust is not None:
+            body = f"{self.robust.statistic}({body})"
         return f"{body}@{self.spec.label()}"
 
     def to_dict(self) -> dict:
@@ -215,7 +237,10 @@ class Objective:
                          "normalize": {m: n for m, _, n in self.terms}}
         else:
             what = self.terms[0][0]
-        return {("maximize" if self.sense == "max" else "minimize"): what, **self.spec.to_dict()}
+        out = {("maximize" if self.sense == "max" else "minimize"): what, **self.spec.to_dict()}
+        if self.robust is not None:
+            out["robust"] = self.robust.to_dict()
+        return out
 
 
 @dataclass(frozen=True)
@@ -227,6 +252,7 @@ class MetricConstraint:
     lower: float | None
     upper: float | None
     spec: WavelengthSpec
+    robust: RobustSpec | None = None
 
     def to_dict(self) -> dict:
         out: dict[str, Any] = {"metric": self.metric}
@@ -234,7 +260,15 @@ class MetricConstraint:
             out["min"] = self.lower
         if self.upper is not None:
             out["max"] = self.upper
-        return {**out, **self.spec.to_dict()}
+        out.update(self.spec.to_dict())
+        if self.robust is not None:
+            out["robust"] = self.robust.to_dict()
+        return out
+
+    def label(self) -> str:
+        """``u@700nm``, or ``mean(u)@700nm`` when robust (constraint labels start with it)."""
+        body = self.metric if self.robust is None else f"{self.robust.statistic}({self.metric})"
+        return f"{body}@{self.spec.label()}"
 
 
 @dataclass(frozen=True)
@@ -681,6 +715,7 @@ def _one_goal(ctx: _Ctx, data: dict, name: str, design_dict: dict, design_base, 
                                        "{fabrication: ..., value: ...}")
     constraints = tuple(_constraint(ctx, c, f"constraints[{i}]", design, design_wl)
                         for i, c in enumerate(cons_raw))
+    _check_robust(ctx, design, objectives + constraints, var_paths)
     search = _search(ctx, data.get("search") or {}, objectives)
     budget = _budget(ctx, data.get("budget") or {})
     seed = ctx.integer(data.get("seed", 1), "seed", low=0, high=2**31 - 1)
@@ -690,6 +725,23 @@ def _one_goal(ctx: _Ctx, data: dict, name: str, design_dict: dict, design_base, 
                 description=str(data.get("description", "")),
                 source=ctx.located.source if ctx.located is not None else "",
                 located=ctx.located)
+
+
+def _check_robust(ctx: _Ctx, design: Design, items, var_paths) -> None:
+    """A cone follows the design's illumination direction: that direction cannot be a
+    variable, and the cone needs light from the host side."""
+    for item in items:
+        spec = getattr(item, "robust", None)
+        if spec is None or spec.na <= 0:
+            continue
+        moving = sorted(var_paths & {"illumination.polar_deg", "illumination.azimuth_deg"})
+        if moving:
+            raise ctx.error(f"{item.key}.robust.na", f"a cone average (na > 0) needs a fixed "
+                                                     f"illumination direction; '{moving[0]}' "
+                                                     "is a variable")
+        if design.illumination.side != "host":
+            raise ctx.error(f"{item.key}.robust.na", "a cone average (na > 0) needs "
+                                                     "illumination from the host side")
 
 
 def _metric(ctx: _Ctx, name: Any, key: str, design: Design) -> str:
@@ -728,8 +780,9 @@ def _spec(ctx: _Ctx, raw: dict, key: str, design_wl) -> WavelengthSpec:
 
 
 def _objective(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl) -> Objective:
-    allowed = {"maximize", "minimize", "at_nm", "band_nm", "points"}
+    allowed = {"maximize", "minimize", "at_nm", "band_nm", "points", "robust"}
     ctx.keys(raw, allowed, key)
+    robust = _robust(ctx, raw, key, design)
     senses = [s for s in ("maximize", "minimize") if s in raw]
     if len(senses) != 1:
         raise ctx.error(key, "give exactly one of maximize: METRIC or minimize: METRIC")
@@ -756,8 +809,17 @@ def _objective(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl) -> Obje
             wv = ctx.number(w, f"{skey}.weighted.{m}")
             nv = ctx.number(norm.get(m, 1.0), f"{skey}.normalize.{m}", low=0.0, low_open=True)
             terms.append((m, wv, nv))
-        return Objective(key, sense, tuple(terms), spec, weighted=True)
-    return Objective(key, sense, ((_metric(ctx, what, skey, design), 1.0, 1.0),), spec)
+        return Objective(key, sense, tuple(terms), spec, weighted=True, robust=robust)
+    return Objective(key, sense, ((_metric(ctx, what, skey, design), 1.0, 1.0),), spec,
+                     robust=robust)
+
+
+def _robust(ctx: _Ctx, raw: dict, key: str, design: Design) -> RobustSpec | None:
+    """The ``robust:`` entry of an objective or constraint (None without one)."""
+    if raw.get("robust") is None:
+        return None
+    return parse_robust(raw["robust"], f"{key}.robust", design.parameters(), design.host_index,
+                        error=ctx.error)
 
 
 def _constraint(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl):
@@ -772,7 +834,7 @@ def _constraint(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl):
             raise ctx.error(f"{key}.value", "missing")
         value = ctx.number(raw["value"], f"{key}.value", low=0.0, low_open=True)
         return FabricationConstraint(key, kind, value)
-    ctx.keys(raw, {"metric", "min", "max", "at_nm", "band_nm", "points"}, key)
+    ctx.keys(raw, {"metric", "min", "max", "at_nm", "band_nm", "points", "robust"}, key)
     if "metric" not in raw:
         raise ctx.error(f"{key}.metric", "missing; a constraint is {metric: NAME, min: LOW, "
                                          "max: HIGH} or {fabrication: KIND, value: V} with KIND "
@@ -785,7 +847,8 @@ def _constraint(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl):
     if lo is not None and hi is not None and lo > hi:
         raise ctx.error(f"{key}.min", f"min = {lo:g} exceeds max = {hi:g}: no design can "
                                       "satisfy it; did you swap min and max?")
-    return MetricConstraint(key, metric, lo, hi, _spec(ctx, raw, key, design_wl))
+    return MetricConstraint(key, metric, lo, hi, _spec(ctx, raw, key, design_wl),
+                            robust=_robust(ctx, raw, key, design))
 
 
 def _search(ctx: _Ctx, raw: Any, objectives) -> SearchSettings:
