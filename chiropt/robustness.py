@@ -160,15 +160,12 @@ def robustness(target: str | Path, *, top: int = DEFAULT_TOP, sigma=None, na=Non
 
 
 def _resolved_goal(path: Path):
-    """The goal of a run folder from its ``goal.resolved.yaml`` (a one-objective goal's
-    resolved form carries the default front settings, which only two objectives take)."""
+    """The goal of a run folder from its ``goal.resolved.yaml``."""
     import yaml
 
     from chiropt.goals import goal_from_dict
 
     data = yaml.safe_load(path.read_text())
-    if len(data.get("objectives") or []) < 2:
-        (data.get("search") or {}).pop("front", None)
     return goal_from_dict(data, base_dir=path.parent, default_name=path.parent.name)
 
 
