@@ -1,14 +1,14 @@
 """Where a region's CD can come from: order capacity and polarization efficiency.
 
 Owns: the region metrics built from the per-order sums of a region average
-(docs/theory.md §13, §19) — the split ``g = g_00 + g_prop + g_ev``, the evanescent share of
+(docs/theory.md §13, §18) — the split ``g = g_00 + g_prop + g_ev``, the evanescent share of
 the intensity (``ev_share``, ``ev_share_k`` above a threshold ``k_min``), the CD capacity
 ``cd_capacity`` and the efficiencies ``cd_efficiency`` and ``docp_efficiency`` — and the
 one-line verdict on which of the two limits holds a design back. Pure array functions
 (autograd-differentiable) on arrays the caller computes; no solver, no I/O.
 Must not import: anything of chiropt but errors (``chiropt.metrics`` calls it).
 
-Definitions (docs/theory.md §19), per wavelength, with ``u_G = (|E+|^2_G + |E-|^2_G)/2``
+Definitions (docs/theory.md §18), per wavelength, with ``u_G = (|E+|^2_G + |E-|^2_G)/2``
 and ``c_G = (C+_G - C-_G)/2`` the region averages of order G (the (0,0) order is the
 incident plus specular standing wave; E (orders with K = |q|/k > 1 other than (0,0)) the
 evanescent orders, P the other propagating orders):
@@ -87,7 +87,7 @@ def capacity_metrics(per: dict, K, bound, s3_incident) -> dict:
     References
     ----------
     docs/theory.md §13 (Parseval: the region average is the sum over orders), §14 (the
-    single-wave bound), §19 (these definitions and the bounds |cd_efficiency| <= 1,
+    single-wave bound), §18 (these definitions and the bounds |cd_efficiency| <= 1,
     |docp_efficiency| <= 1).
     """
     EE, C, S0, S3 = per["EE"], per["C"], per["S0"], per["S3"]
@@ -123,7 +123,7 @@ def check_k_min(k_min, key: str = "k_min") -> float:
 
 def ev_share_above(metrics: dict, k_min: float):
     """``ev_share_k``: share (W,) of the region-averaged intensity in the orders other than
-    (0,0) with ``K >= k_min`` (docs/theory.md §19), from :func:`capacity_metrics` output."""
+    (0,0) with ``K >= k_min`` (docs/theory.md §18), from :func:`capacity_metrics` output."""
     k_min = check_k_min(k_min)
     K = metrics["order_K"]
     mask = (K >= k_min) & (onp.arange(K.shape[-1]) > 0)[None, :]
@@ -157,7 +157,7 @@ def verdict(ev_share: float, share_00: float, cd_efficiency: float, g: float,
       from their bound, or of the opposite sign to g (it then lowers |g|).
     - else: near both limits; more CD needs higher-K orders (a larger capacity).
 
-    The thresholds are ours (common practice, no source), stated in docs/theory.md §19.
+    The thresholds are ours (common practice, no source), stated in docs/theory.md §18.
     """
     if not onp.isfinite(ev_share):
         return "capacity not defined for this region (sampled fields)"

@@ -155,7 +155,7 @@ def _print_table(response) -> None:
 
 
 def _print_verdict(response) -> None:
-    """Which limit holds the CD back, at the wavelength of the largest |g| (theory §19)."""
+    """Which limit holds the CD back, at the wavelength of the largest |g| (theory §18)."""
     import numpy as onp
 
     from chiropt.response import capacity_spectra

@@ -239,7 +239,7 @@ def quantities_of(output: ModelOutput, *, capacity: bool = True,
     return out
 
 
-#: the capacity quantities of a region above the particles (docs/theory.md §19)
+#: the capacity quantities of a region above the particles (docs/theory.md §18)
 CAPACITY_QUANTITIES = ("ev_share", "ev_share+1", "ev_share-1", "cd_capacity",
                        "cd_efficiency", "docp_efficiency+1", "docp_efficiency-1", "g_00",
                        "g_prop", "g_ev")

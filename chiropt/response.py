@@ -32,7 +32,7 @@ class Response:
     metrics : near-field region metrics (docs/theory.md §12) when the design has a region:
         u, c, g, background (W,); s0, docp, area_fraction {"+1", "-1"} (W,);
         truncation (W,) estimated relative truncation error; n_orders; for a region above
-        the particles the capacity metrics (docs/theory.md §19, :func:`capacity_spectra`)
+        the particles the capacity metrics (docs/theory.md §18, :func:`capacity_spectra`)
     R, T, A : power fractions reflected (into the medium of incidence), transmitted,
         and absorbed (A = 1 - R - T) [-]
     A_dipoles : absorbed fraction computed from the dipoles' own losses [-]
@@ -98,7 +98,7 @@ def capacity_spectra(m: dict) -> dict[str, Any]:
     """JSON-ready capacity metrics (docs/cli.md): ``g_00, g_prop, g_ev, ev_share,
     cd_capacity, cd_efficiency`` as lists over wavelength, ``ev_share_h`` and
     ``docp_efficiency`` by helicity, ``ev_share_k`` by threshold (``"2"``: K >= 2) and the
-    per-wavelength ``verdict`` line (docs/theory.md §19)."""
+    per-wavelength ``verdict`` line (docs/theory.md §18)."""
     from chiropt.capacity import ev_share_above, verdict
 
     out: dict[str, Any] = {k: onp.asarray(m[k]).tolist()

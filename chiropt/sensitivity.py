@@ -12,7 +12,7 @@ Names: design quantities are the key paths of ``Design.parameters()``
 Quantities: ``R+1``, ``R-1``, ``T+1``, ``T-1``, ``A+1``, ``A-1`` and, with a region,
 ``u``, ``c``, ``g``, ``background``, ``docp+1``, ``docp-1``, ``s0+1``, ``s0-1`` and, for
 a region above the particles, the capacity quantities (``CAPACITY``: ``ev_share``,
-``cd_capacity``, ``cd_efficiency``, ``docp_efficiency+1`` ..., docs/theory.md §19).
+``cd_capacity``, ``cd_efficiency``, ``docp_efficiency+1`` ..., docs/theory.md §18).
 """
 
 from __future__ import annotations

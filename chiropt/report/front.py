@@ -30,9 +30,14 @@ def _axis_label(label: str) -> str:
     name = label.split("@")[0]
     unit = "[-]"
     words = {"u": "intensity enhancement u", "g": "CD enhancement g", "c": "chirality c",
-             "docp": "DOCP", "s0": "spin s0"}
+             "docp": "DOCP", "s0": "spin s0", "g_00": "g of the (0,0) order",
+             "g_prop": "g of propagating orders", "g_ev": "g of evanescent orders",
+             "ev_share": "evanescent share of intensity", "cd_capacity": "CD capacity",
+             "cd_efficiency": "CD efficiency", "docp_efficiency": "DOCP efficiency"}
     base = name.rstrip("+-1") if name[-2:] in ("+1", "-1") else name
     nice = words.get(base, name)
+    if base.startswith("ev_share_k"):
+        nice = f"share of intensity in orders with |q|/k >= {base[len('ev_share_k'):]}"
     if name != base:
         nice += f" (helicity {name[-2:]})"
     where = axis_where(label.split("@", 1)[1]) if "@" in label else ""
