@@ -217,3 +217,93 @@ def test_verdict_names_the_limit():
     assert verdict(0.6, 0.3, 0.2, 1.1, 0.3).startswith("limited by polarization")
     assert "opposes g" in verdict(0.6, 0.3, -0.8, 0.7, -0.4)
     assert verdict(0.6, 0.3, 0.9, 1.4, 0.9).startswith("near both limits")
+
+
+# -- goals ------------------------------------------------------------------------------------
+
+GOAL = {
+    "design": {"lattice": {"kind": "square", "period_nm": 420},
+               "particles": [{"radius_nm": 75, "material": "Si"}],
+               "substrate": {"material": "SiO2"}, "gap_nm": 0,
+               "illumination": {"wavelength_nm": 700}, "region": PLANE,
+               "model": {"lmax": 1}},
+    "variables": {"particles[0].radius_nm": {"min": 50, "max": 110},
+                  "lattice.period_nm": {"min": 300, "max": 520}},
+    "objectives": [{"maximize": "ev_share_k", "k_min": 2.0, "at_nm": 700}],
+    "constraints": [{"metric": "cd_capacity", "min": 0.05, "at_nm": 700},
+                    {"metric": "u", "min": 0.5, "at_nm": 700}],
+}
+
+
+def _goal(**changes):
+    from chiropt.goals.schema import goal_from_dict
+
+    data = {**GOAL, **changes}
+    return goal_from_dict(data)[0]
+
+
+def test_goal_steers_with_capacity_metrics_and_round_trips():
+    # common practice, no source: an objective and constraints on the new metrics evaluate
+    # to the same numbers as the forward model, and the resolved goal reads back the same
+    from chiropt.goals import GoalProblem
+    from chiropt.goals.schema import goal_from_dict
+
+    goal = _goal()
+    assert goal.objectives[0].metrics == ("ev_share_k2",)
+    resolved = goal.to_dict()
+    again = goal_from_dict({**GOAL, "objectives": resolved["objectives"],
+                            "constraints": resolved["constraints"]})[0]
+    assert again.objectives == goal.objectives and again.constraints == goal.constraints
+    problem = GoalProblem(goal)
+    x = np.array([80.0, 430.0])
+    ev = problem.evaluate(x, True)
+    assert ev.status == "ok"
+    q = compute_quantities(problem.design_at(x), k_min=(2.0,))
+    np.testing.assert_allclose(ev.f[0], q["ev_share_k2"][0], rtol=1e-12)
+    np.testing.assert_allclose(ev.g[0], (0.05 - q["cd_capacity"][0]) / 1.0, rtol=1e-12)
+    assert np.all(np.isfinite(ev.df)) and np.all(np.isfinite(ev.dg))
+
+
+@pytest.mark.parametrize("change,key", [
+    ({"objectives": [{"maximize": "ev_share_k", "at_nm": 700}]}, "objectives[0].maximize"),
+    ({"objectives": [{"maximize": "g", "k_min": 2.0, "at_nm": 700}]}, "objectives[0].k_min"),
+    ({"objectives": [{"maximize": "ev_share_k", "k_min": 0.5, "at_nm": 700}]},
+     "objectives[0].k_min"),
+    ({"constraints": [{"metric": "cd_efficency", "min": 0.1}]}, "constraints[0].metric"),
+    ({"search": {"starts_from": 3}}, "search.starts_from"),
+])
+def test_goal_rejects_bad_capacity_input(change, key):
+    # common practice, no source: errors name the key path
+    with pytest.raises(InputError) as info:
+        _goal(**change)
+    assert info.value.key == key
+
+
+def test_capacity_metric_needs_a_region_above_the_tops():
+    # docs/theory.md §18: a sampled region's average is no order sum
+    design = dict(GOAL["design"], region={"kind": "surface", "thickness_nm": 5.0},
+                  particles=[{"shape": "cylinder", "radius_nm": 75, "height_nm": 80,
+                              "material": "Si"}],
+                  model={"solver": "fourier", "harmonics": 25})
+    with pytest.raises(InputError, match="above the particle tops"):
+        _goal(design=design, variables={"particles[0].radius_nm": {"min": 50, "max": 110}})
+
+
+def test_stage_starts_come_from_an_earlier_front(tmp_path):
+    # common practice, no source: the staged recipe's second stage starts where the first
+    # stage's front is, clipped to its own bounds, at most `starts` of them
+    from chiropt.export.candidates import write_front_csv
+    from chiropt.run import stage_starts
+
+    csv = tmp_path / "front.csv"
+    write_front_csv(csv, ["index", "particles[0].radius_nm", "lattice.period_nm", "x"],
+                    [[0, 90.0, 450.0, 1.0], [1, 120.0, 400.0, 2.0], [2, 60.0, 350.0, 0.0]],
+                    header=["a run"])
+    goal = _goal(search={"starts": 2, "starts_from": str(csv)})
+    X = stage_starts(goal)
+    np.testing.assert_array_equal(X, [[90.0, 450.0], [110.0, 400.0]])
+    with pytest.raises(InputError, match="not found"):
+        stage_starts(_goal(search={"starts_from": str(tmp_path / "none.csv")}))
+    write_front_csv(csv, ["index", "lattice.period_nm"], [[0, 450.0]])
+    with pytest.raises(InputError, match="no column"):
+        stage_starts(goal)
