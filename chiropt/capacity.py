@@ -145,9 +145,10 @@ def parse_ev_share_name(name: str) -> float | None:
         return None
 
 
-def verdict(ev_share: float, share_00: float, cd_efficiency: float, g: float,
+def verdict(ev_share: float, share_00: float | None, cd_efficiency: float, g: float,
             g_ev: float) -> str:
-    """One line: which limit holds the design's CD back (plain values at one wavelength).
+    """One line: which limit holds the design's CD back (plain values at one wavelength;
+    ``share_00`` the (0,0) order's share of the intensity, None when unknown).
 
     - ``ev_share < CAPACITY_LIMITED_SHARE``: limited by capacity (where the light goes):
       most of the intensity is in the (0,0) or propagating orders, whose |g| cannot exceed
@@ -162,8 +163,9 @@ def verdict(ev_share: float, share_00: float, cd_efficiency: float, g: float,
     if not onp.isfinite(ev_share):
         return "capacity not defined for this region (sampled fields)"
     if ev_share < CAPACITY_LIMITED_SHARE:
-        return (f"limited by capacity: {100 * share_00:.0f}% of the intensity in (0,0), "
-                f"{100 * ev_share:.0f}% evanescent (g_ev = {g_ev:.3g} of g = {g:.3g})")
+        where = "" if share_00 is None else f"{100 * share_00:.0f}% of the intensity in (0,0), "
+        return (f"limited by capacity: {where}{100 * ev_share:.0f}% evanescent "
+                f"(g_ev = {g_ev:.3g} of g = {g:.3g})")
     signed = cd_efficiency * (1.0 if g >= 0 else -1.0)
     if signed < 0:
         return (f"limited by polarization: the evanescent orders' CD opposes g (efficiency "

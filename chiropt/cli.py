@@ -205,8 +205,12 @@ def _cmd_inspect(args) -> int:
     _check_grid(args.grid)
     out_dir = _output_folder("--out", Path(args.out) if args.out else Path.cwd())
     notes: list[str] = []
-    for path in inspect_design(design, args.at_nm, out_dir, grid=args.grid, notes=notes):
+    findings: list[str] = []
+    for path in inspect_design(design, args.at_nm, out_dir, grid=args.grid, notes=notes,
+                               findings=findings):
         print(path)
+    for line in findings:
+        print(line)
     for note in notes:
         print(f"warning: {note}", file=sys.stderr)
     return EXIT_OK

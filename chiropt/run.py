@@ -995,6 +995,19 @@ def _spec_metric(problem: GoalProblem, quantities: dict, name: str, spec) -> flo
                                      name, spec))
 
 
+def _capacity_verdict(problem: GoalProblem, quantities: dict) -> list[str]:
+    """The candidate's limit line (docs/theory.md §18), at the first objective's spec."""
+    from chiropt.capacity import verdict
+
+    if "cd_capacity" not in quantities:
+        return []
+    spec = problem.goal.objectives[0].spec
+    v = {m: _spec_metric(problem, quantities, m, spec)
+         for m in ("ev_share", "cd_efficiency", "g", "g_ev")}
+    return [f"where the CD comes from ({spec_label(spec, problem)}): "
+            + verdict(v["ev_share"], None, v["cd_efficiency"], v["g"], v["g_ev"])]
+
+
 def _columns(problem: GoalProblem) -> list[tuple[str, str, Any]]:
     """Extra metric columns (label, metric, spec): objective metrics, then u, g, docp."""
     goal = problem.goal
@@ -1335,6 +1348,7 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         lines.append("wavelengths solved: " + ", ".join(
             f"{w:g}" for w in problem.wavelengths_at(r.x)) + " nm (the ones the goal reads); "
             "`chiropt evaluate` on this file reproduces the stored values")
+        lines += _capacity_verdict(problem, r.evaluation.metrics["quantities"])
         summary.candidates.append(write_candidate(cand_dir / f"c{j:03d}.yaml", data,
                                                   comments=lines))
     # plots
