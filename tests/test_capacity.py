@@ -31,9 +31,9 @@ def _design(region=PLANE, substrate=True, wl=(600.0, 700.0), radius=75.0, period
             "host_index": host,
             "illumination": {"wavelength_nm": list(wl), "polar_deg": polar, "azimuth_deg": 20.0},
             "region": region, "model": {"lmax": lmax}}
+    data.update(extra)
     if substrate:
         data.update(substrate={"material": "SiO2"}, gap_nm=0)
-    data.update(extra)
     return design_from_dict(data)
 
 
@@ -50,6 +50,10 @@ CASES = [
     pytest.param(dict(region=SLAB, substrate=False, polar=30.0), id="slab-no-substrate"),
     pytest.param(dict(region=SLAB, substrate=True, polar=30.0), id="slab-substrate"),
     pytest.param(dict(region=PLANE, substrate=True, lmax=2, wl=(650.0,)), id="multipole"),
+    pytest.param(dict(region=PLANE, substrate=True, wl=(650.0,),
+                      particles=[{"shape": "cylinder", "radius_nm": 100, "height_nm": 120,
+                                  "material": "Si"}],
+                      model={"solver": "fourier", "harmonics": 25}), id="fourier"),
 ]
 
 
