@@ -7,6 +7,7 @@ Run by hand: ``python benchmarks/run.py [GOAL.yaml]``. Prints figures; asserts n
    ``GoalProblem.evaluate``) against one ``value_and_gradient`` per scalar row.
 2. The goal's first material run in this process (one core) into a temporary folder:
    evaluations per hour per core, store and report included.
+Linear algebra runs on one thread, as in the run's worker processes (figures per core).
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ import numpy as onp
 
 from chiropt.goals import GoalProblem, load_goal
 from chiropt.run import run_goal
+from chiropt.search.executor import limit_blas_threads
 from chiropt.sensitivity import value_and_gradient
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -42,6 +44,7 @@ def _median(fn, repeats=5):
 
 
 def main(argv):
+    limit_blas_threads(1)
     goal, label = _goal(argv[1] if len(argv) > 1 else None)
     P = GoalProblem(goal)
     x = (P.lower + P.upper) / 2

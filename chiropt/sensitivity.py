@@ -27,6 +27,7 @@ from autograd import value_and_grad as _value_and_grad
 from autograd.differential_operators import make_jvp_reversemode
 from autograd.tracer import getval
 
+import chiropt.autodiff  # noqa: F401  (registers the fast indexing rule)
 from chiropt.design import Design
 from chiropt.errors import InputError
 from chiropt.model import CAPACITY_QUANTITIES, metrics_tolerance, quantities_of, run_model

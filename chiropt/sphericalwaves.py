@@ -125,6 +125,15 @@ def spherical_harmonics(u, lmax: int):
     return _harmonics(u, int(lmax))
 
 
+def harmonics_and_derivatives(u, lmax: int, derivative: bool = True):
+    """Plain values Y (..., J) of ``spherical_harmonics`` and, with ``derivative``, dY/du.
+
+    dY/du (..., J, 3) differentiates the polynomial form in u_x, u_y, u_z taken as
+    independent (the rule of ``spherical_harmonics``' reverse pass); None without it.
+    """
+    return _harmonic_table(u, int(lmax), bool(derivative))
+
+
 def _harmonic_table(u, lmax: int, derivative: bool):
     """Plain values Y (..., J) and, with ``derivative``, dY/du (..., J, 3)."""
     u = onp.asarray(u)
@@ -176,7 +185,7 @@ def _harmonics_vjp(ans, u, lmax):
     _, D = _harmonic_table(u, lmax, True)
 
     def vjp(g):   # autograd operations: the vjp is itself differentiated by --grad
-        out = np.einsum("...j,...jc->...c", g, D)
+        out = np.matmul(g[..., None, :], D)[..., 0, :]   # sum_j g_j dY_j/du_c
         return out if onp.iscomplexobj(u) else np.real(out)
 
     return vjp

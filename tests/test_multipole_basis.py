@@ -235,6 +235,41 @@ def test_lattice_sums_gradient_matches_finite_differences():
         assert abs(g - fd) < 1e-6 * abs(fd)
 
 
+@pytest.mark.parametrize("name", ["k", "k_par", "a1", "a2", "d"])
+def test_lattice_sums_jacobian_every_input_matches_finite_differences(name):
+    # common practice, no source: the one-node primitive's forward-mode Jacobian (all
+    # inputs at once) against central differences, input by input, on an oblique lattice,
+    # two wavelengths, displacements in and off the plane and the excluded self term
+    import autograd.numpy as anp
+    from autograd import grad as agrad
+
+    base = {"k": K.copy(), "k_par": KPAR.copy(), "a1": np.array([470e-9, 0.0]),
+            "a2": np.array([130e-9, 520e-9]), "d": DISP.copy()}
+    weights = np.cos(np.arange(2 * 3 * 49) * 0.7).reshape(2, 3, 49)
+
+    def f(x, part):
+        v = dict(base, **{name: x})
+        D = lattice_sums(v["k"], v["k_par"], Lattice(v["a1"], v["a2"]), v["d"], 6,
+                         tol=1e-13, splitting=4.0e6)
+        return anp.sum(weights * (anp.real(D) if part == 0 else anp.imag(D)))
+
+    x0 = base[name]
+    scale = np.abs(x0).max()
+    for part in (0, 1):
+        g = agrad(f)(x0, part)
+        assert g.shape == x0.shape
+        fd = np.zeros_like(x0)
+        h = 1e-6 * scale
+        for idx in np.ndindex(x0.shape):
+            if name == "d" and idx[0] == 0:
+                continue   # the self term d = 0: no derivative (the image is excluded)
+            e = np.zeros_like(x0)
+            e[idx] = h
+            fd[idx] = (f(x0 + e, part) - f(x0 - e, part)) / (2 * h)
+        rows = slice(1, None) if name == "d" else slice(None)
+        assert np.abs(g - fd)[rows].max() < 2e-6 * np.abs(fd)[rows].max()
+
+
 def test_mode_table_order():
     # sphericalwaves docstring: l ascending, m = -l..l, electric (N) before magnetic (M)
     tau, ls, ms = mode_table(2)

@@ -385,3 +385,17 @@ def test_a_front_extended_by_a_grown_budget_equals_a_fresh_run(tmp_path):
     assert _current_rows(extended.run_dir) == _current_rows(fresh.run_dir)
     stages = {r.stage for r in EvaluationStore(extended.run_dir / "evaluations.sqlite").records()}
     assert any(st.startswith("superseded1:") for st in stages)  # the path did change
+
+
+def _blas_threads(_):
+    import chiropt.model  # noqa: F401  (loads every linear-algebra library a task uses)
+    from threadpoolctl import threadpool_info
+    return [pool["num_threads"] for pool in threadpool_info() if pool["user_api"] == "blas"]
+
+
+def test_workers_run_their_linear_algebra_on_one_thread():
+    # common practice, no source: one BLAS thread per pool worker (the pool fills the cores)
+    from chiropt.search.executor import ProcessExecutor
+    with ProcessExecutor(1) as ex:
+        threads = ex.map(_blas_threads, [0])[0]
+    assert threads and all(n == 1 for n in threads)

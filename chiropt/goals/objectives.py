@@ -34,6 +34,7 @@ from autograd import make_vjp
 from autograd.tracer import getval
 from scipy.stats import qmc
 
+import chiropt.autodiff  # noqa: F401  (registers the fast indexing rule)
 from chiropt.capacity import parse_ev_share_name
 from chiropt.errors import ComputationError, InputError, MaterialRangeError
 from chiropt.goals.schema import (

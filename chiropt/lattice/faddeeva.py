@@ -43,20 +43,20 @@ def wofz(z):
     return scipy.special.wofz(z)
 
 
-def _wofz_derivative(ans, z):
-    # A&S 7.1.20: w'(z) = -2 z w(z) + 2i/sqrt(pi)
-    return -2.0 * z * ans + 1j * _TWO_OVER_SQRT_PI
+def wofz_derivative(w, z):
+    """w'(z) = -2 z w(z) + 2i/sqrt(pi) from w = w(z) (Abramowitz & Stegun 1964, 7.1.20)."""
+    return -2.0 * z * w + 1j * _TWO_OVER_SQRT_PI
 
 
 def _wofz_vjp(ans, z):
-    deriv = _wofz_derivative(ans, z)
+    deriv = wofz_derivative(ans, z)
     if np.iscomplexobj(z):
         return lambda g: g * deriv
     return lambda g: np.real(g * deriv)
 
 
 defvjp(wofz, _wofz_vjp)
-defjvp(wofz, lambda g, ans, z: g * _wofz_derivative(ans, z))
+defjvp(wofz, lambda g, ans, z: g * wofz_derivative(ans, z))
 
 
 def erfc_complex(z):

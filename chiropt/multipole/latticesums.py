@@ -42,14 +42,15 @@ from functools import cache
 
 import autograd.numpy as np
 import numpy as onp
+from autograd.extend import defvjp_argnums, primitive
 from autograd.tracer import getval, isbox
 
 from chiropt.errors import InputError
-from chiropt.lattice import Lattice, order_indices, order_wavevectors, splitting_parameter
+from chiropt.lattice import Lattice, order_indices, splitting_parameter
 from chiropt.lattice.bravais import integer_pairs_within
-from chiropt.lattice.faddeeva import wofz
-from chiropt.lattice.orders import kz_branch
-from chiropt.sphericalwaves import spherical_harmonics
+from chiropt.lattice import tangents as T
+from chiropt.lattice.orders import KZ_FLOOR, kz_branch
+from chiropt.sphericalwaves import harmonics_and_derivatives
 
 _SQRT_PI = math.sqrt(math.pi)
 _MARGIN = 4.0
@@ -108,61 +109,111 @@ def _hermite(n, x):
     return out
 
 
-def _spectral(k, k_par, lattice, rho, z, E, mn, pmax):
-    """Spectral part: sum over orders of Y_pM(i q_x, i q_y, d/dz) exp(i q.rho) F(z)/gamma."""
-    q = order_wavevectors(lattice, k_par, mn)                       # (W, G, 2)
-    gam = (-1j * kz_branch(k, q))[:, None, :]                        # (W, 1, G)
+def _reciprocal(a1, a2):
+    """b1, b2 (each a pair of components) with b_i . a_j = 2 pi delta_ij; the cell area."""
+    cross = a1[0] * a2[1] - a1[1] * a2[0]
+    s = (2.0 * math.pi) / cross
+    area = cross if float(T.value(cross)) > 0 else -cross
+    return (s * a2[1], -(s * a2[0])), (-(s * a1[1]), s * a1[0]), area
+
+
+def _gamma(k, qx, qy):
+    """gamma = -i kz of each order (W, G), kz on the branch of lattice.orders.kz_branch."""
+    kv, qxv, qyv = T.value(k), T.value(qx), T.value(qy)
+    kz = kz_branch(kv, onp.stack([qxv, qyv], axis=-1))
+    x = (k * k)[:, None] - qx * qx - qy * qy
+    if not isinstance(x, T.Tangent):
+        return -1j * kz
+    # d kz = d(k^2 - q^2) / (2 kz); zero where kz_branch floors the radicand
+    live = onp.abs(x.v) >= ((KZ_FLOOR * onp.abs(kv)) ** 2)[:, None]
+    dkz = onp.where(live, T._full_tangent(x) / (2 * kz), 0.0)
+    return T.Tangent(-1j * kz, -1j * dkz)
+
+
+def _spectral(k, kpar, a1, a2, rho, z, E, mn, pmax):
+    """Spectral part: sum over orders of Y_pM(i q_x, i q_y, d/dz) exp(i q.rho) F(z)/gamma.
+
+    Arrays or ``Tangent`` values: k (W,), kpar (kx (W,), ky (W,)), a1, a2 (pairs of
+    components), rho (x (P,), y (P,)), z (P,); E (W,) and the order indices mn plain.
+    """
+    b1, b2, area = _reciprocal(a1, a2)
+    m, n = mn[:, 0].astype(float), mn[:, 1].astype(float)
+    qx = kpar[0][:, None] + (m * b1[0] + n * b2[0])[None, :]            # (W, G)
+    qy = kpar[1][:, None] + (m * b1[1] + n * b2[1])[None, :]
+    gam = _gamma(k, qx, qy)[:, None, :]                                # (W, 1, G)
     Ec = E[:, None, None]
     zc = z[None, :, None]
-    Phi = np.exp(-(gam / (2 * Ec)) ** 2 - (Ec * zc) ** 2)           # (W, P, G)
-    tp = Phi * wofz(1j * (gam / (2 * Ec) + zc * Ec))
-    tm = Phi * wofz(1j * (gam / (2 * Ec) - zc * Ec))
+    Phi = T.exp(-(gam / (2 * Ec)) ** 2 - (Ec * zc) ** 2)              # (W, P, G)
+    tp = Phi * T.wofz(1j * (gam / (2 * Ec) + zc * Ec))
+    tm = Phi * T.wofz(1j * (gam / (2 * Ec) - zc * Ec))
     herm = _hermite(max(pmax - 2, 0), Ec * zc)
     dphi = [(-Ec) ** j * herm[j] * Phi for j in range(max(pmax - 1, 0))]
     fn = [(tp + tm) / gam]
-    for n in range(1, pmax + 1):
-        val = gam ** (n - 1) * (tp + (-1) ** n * tm)
-        for j in range(0, n - 1):
-            if (n - 1 - j) % 2 == 1:
-                val = val - (4 * Ec / _SQRT_PI) * gam ** (n - 2 - j) * dphi[j]
+    for n_ in range(1, pmax + 1):
+        val = gam ** (n_ - 1) * (tp + (-1) ** n_ * tm)
+        for j in range(0, n_ - 1):
+            if (n_ - 1 - j) % 2 == 1:
+                val = val - (4 * Ec / _SQRT_PI) * gam ** (n_ - 2 - j) * dphi[j]
         fn.append(val)
     coef, absm, sgn = spectral_operator_table(pmax)
-    qq = q[..., 0] ** 2 + q[..., 1] ** 2                              # (W, G)
+    qq = (qx * qx + qy * qy)[:, None, :]                                # (W, 1, G)
     qpow = [1.0 + 0 * qq]
     for _ in range(pmax // 2):
         qpow.append(qpow[-1] * qq)
-    basis = np.stack([np.stack([f * qp[:, None, :] for qp in qpow], axis=-1) for f in fn],
-                     axis=-2)                                          # (W, P, G, n, j)
-    ang = [[1.0 + 0j * qq], [1.0 + 0j * qq]]                           # (q_x +- i q_y)^a
-    for s, lst in ((1, ang[0]), (-1, ang[1])):
+    basis = T.stack([f * qp for f in fn for qp in qpow], axis=-1)    # (W, P, G, n j)
+    powers = []                                                         # (q_x +- i q_y)^a
+    for s in (1, -1):
+        lst = [1.0 + 0j * qx]
         for _ in range(pmax):
-            lst.append(lst[-1] * (q[..., 0] + 1j * s * q[..., 1]))
-    angular = np.stack([ang[0 if sgn[i] > 0 else 1][absm[i]] for i in range(len(absm))],
-                       axis=-1)                                        # (W, G, J)
-    radial = np.einsum("wpgnj,inj->wpgi", basis, coef)
-    phase = np.exp(1j * np.einsum("wgc,pc->wpg", q, rho)) / (4.0 * lattice.area)
-    return np.einsum("wpg,wgi,wpgi->wpi", phase, angular, radial)
+            lst.append(lst[-1] * (qx + 1j * s * qy))
+        powers += lst
+    pick = absm + (pmax + 1) * (sgn < 0)
+    angular = T.stack(powers, axis=-1)[..., pick]                      # (W, G, J)
+    radial = T.matmul(basis, coef.reshape(coef.shape[0], -1).T)       # (W, P, G, J)
+    phase = T.exp(1j * (qx[:, None, :] * rho[0][None, :, None]
+                        + qy[:, None, :] * rho[1][None, :, None])) / (4.0 * area)
+    return T.sum(phase[..., None] * (angular[:, None] * radial), axis=2)
 
 
-def _spatial(k, k_par, lattice, d, E, nm, pmax, self_tol2):
-    """Spatial part (sum over lattice points) and the self-term correction."""
-    R = lattice.points(nm)                                            # (N, 2)
-    vx = d[:, 0:1] - R[None, :, 0]                                    # (P, N)
-    vy = d[:, 1:2] - R[None, :, 1]
-    vz = d[:, 2:3] + 0.0 * R[None, :, 0]
+def _harmonics(ux, uy, uz, pmax):
+    """Y_pM at the unit vectors (ux, uy, uz) (arrays or Tangents), (..., J)."""
+    parts = (ux, uy, uz)
+    u = onp.stack([T.value(c) for c in parts], axis=-1)
+    traced = any(isinstance(c, T.Tangent) for c in parts)
+    Y, dY = harmonics_and_derivatives(u, pmax, derivative=traced)
+    if not traced:
+        return Y
+    t = 0.0
+    for c, part in enumerate(parts):
+        if isinstance(part, T.Tangent):
+            t = t + T._full_tangent(part)[..., None] * dY[..., c]
+    return T.Tangent(Y, t)
+
+
+def _spatial(k, kpar, a1, a2, d, E, nm, pmax, self_tol2):
+    """Spatial part (sum over lattice points) and the self-term correction.
+
+    Arrays or ``Tangent`` values: k (W,), kpar and a1, a2 as pairs of components, d as
+    three components (each (P,)); E (W,) and the integer pairs nm plain.
+    """
+    n1, n2 = nm[:, 0].astype(float), nm[:, 1].astype(float)
+    Rx = n1 * a1[0] + n2 * a2[0]                                       # (N,)
+    Ry = n1 * a1[1] + n2 * a2[1]
+    vx = d[0][:, None] - Rx[None, :]                                   # (P, N)
+    vy = d[1][:, None] - Ry[None, :]
+    vz = d[2][:, None] + 0.0 * Rx[None, :]
     r2 = vx * vx + vy * vy + vz * vz
-    is_self = onp.asarray(getval(r2)) <= self_tol2
-    r2s = np.where(is_self, 1.0, r2)
-    r = np.sqrt(r2s)
-    unit = np.stack([vx / r, vy / r, vz / r], axis=-1)                # (P, N, 3)
-    Y = spherical_harmonics(unit, pmax)                               # (P, N, J)
+    is_self = T.value(r2) <= self_tol2
+    r2s = T.where(is_self, 1.0, r2)
+    r = T.sqrt(r2s)
+    Y = _harmonics(vx / r, vy / r, vz / r, pmax)                       # (P, N, J)
     kc, Ec = k[:, None, None], E[:, None, None]
     rc = r[None]
     ER = Ec * rc
-    X = np.exp((kc / (2 * Ec)) ** 2 - ER * ER)                        # (W, P, N)
-    wb = wofz(kc / (2 * Ec) + 1j * ER)
-    u0 = 2.0 * X * np.real(wb)
-    u1 = 2.0 * kc * X * np.imag(wb) - (4.0 / _SQRT_PI) * Ec * X
+    X = T.exp((kc / (2 * Ec)) ** 2 - ER * ER)                          # (W, P, N)
+    wb = T.wofz(kc / (2 * Ec) + 1j * ER)
+    u0 = 2.0 * X * T.real(wb)
+    u1 = 2.0 * kc * X * T.imag(wb) - (4.0 / _SQRT_PI) * Ec * X
     r2c = r2s[None]
     ints = [_SQRT_PI * u0 / (4 * rc), -(_SQRT_PI / (8 * r2c)) * (u1 - u0 / rc)]
     for p in range(2, pmax + 1):
@@ -170,15 +221,16 @@ def _spatial(k, k_par, lattice, d, E, nm, pmax, self_tol2):
                      + Ec ** (2 * p - 1) * X) / (2 * r2c))
     ps = onp.array([p for p in range(pmax + 1) for _ in range(-p, p + 1)])
     # solid harmonic r^p Y times (r^-1 d/dr)^p f = (-2)^p I_p / (2 pi^1.5)
-    radial = np.stack([ints[p] * (r[None] ** p) * ((-2.0) ** p / (2 * math.pi ** 1.5))
-                       for p in ps], axis=-1)                          # (W, P, N, J)
-    phase = np.exp(1j * np.dot(k_par, np.transpose(R)))               # (W, N)
+    per_p = T.stack([ints[p] * (rc ** p) * ((-2.0) ** p / (2 * math.pi ** 1.5))
+                     for p in range(pmax + 1)], axis=-1)              # (W, P, N, p)
+    radial = per_p[..., ps]                                            # (W, P, N, J)
+    phase = T.exp(1j * (kpar[0][:, None] * Rx[None, :] + kpar[1][:, None] * Ry[None, :]))
     keep = (~is_self).astype(float)
-    out = np.einsum("wn,pn,wpnj,pnj->wpj", phase, keep, radial, Y)
+    out = T.sum((phase[:, None, :] * keep[None])[..., None] * (radial * Y[None]), axis=2)
     if onp.any(is_self):
-        ex = np.exp((k / (2 * E)) ** 2)
-        h0 = -(1j * k / (4 * math.pi)) * ex * wofz(k / (2 * E)) - E / (2 * math.pi ** 1.5) * ex
-        self_phase = np.dot(phase, onp.transpose(is_self.astype(float)))  # (W, P)
+        ex = T.exp((k / (2 * E)) ** 2)
+        h0 = -(1j * k / (4 * math.pi)) * ex * T.wofz(k / (2 * E)) - E / (2 * math.pi ** 1.5) * ex
+        self_phase = T.matmul(phase, is_self.T.astype(float))           # (W, P)
         first = (onp.arange((pmax + 1) ** 2) == 0).astype(float)
         out = out + (self_phase * h0[:, None])[..., None] * first / math.sqrt(4 * math.pi)
     return out
@@ -228,26 +280,91 @@ def lattice_sums(k, k_par, lattice: Lattice, d, pmax: int, *, tol=1e-10, splitti
         raise InputError("pmax", f"must be an integer in [0, 16]; got {pmax!r}")
     k = k if isbox(k) else onp.asarray(k)
     k = np.real(k) if onp.iscomplexobj(getval(k)) else k
-    plain = lattice.plain()
+    split = None if splitting is None else float(onp.asarray(getval(splitting)))
+    return _sums(k, k_par, lattice.a1, lattice.a2, d, pmax, float(tol), split)
+
+
+_ARG_SIZES = (1, 2, 2, 2, 3)   # directions per argument: k; k_par; a1; a2; d (x, y, z)
+
+
+def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=()):
+    """D_pM (W, P, J) and, for the arguments ``wrt``, dD along their input directions.
+
+    Plain inputs; ``wrt`` lists argument positions (0 k, 1 k_par, 2 a1, 3 a2, 4 d).
+    Truncations, the splitting parameter and the length unit come from the plain values
+    and are constants of the derivative. Returns the values, or (values, derivatives
+    (D, W, P, J)) with D = 1, 2, 2, 2, 3 directions for the arguments in ``wrt``, in that
+    order: derivatives w.r.t. k [m], k_par [m], a1, a2 [1/m] and d [1/m] (x, y, z), each
+    direction moving all wavelengths (or all displacements) at once: output (w, p)
+    depends on wavelength w and displacement p only.
+    """
+    kv = onp.asarray(k, dtype=float)
+    kparv = onp.asarray(k_par, dtype=float)
+    a1v, a2v = onp.asarray(a1, dtype=float), onp.asarray(a2, dtype=float)
+    dv = onp.asarray(d, dtype=float)
+    plain = Lattice(a1v, a2v)
     W = kv.size
-    Ev = (splitting_parameter(kv, plain) if splitting is None
-          else onp.full(W, float(onp.asarray(getval(splitting)))))
-    scale = math.sqrt(float(plain.area))                 # plain length unit [m]
-    lat = Lattice(lattice.a1 / scale, lattice.a2 / scale)
-    latp = lat.plain()
-    ks, kpar, ds, Es = k * scale, k_par * scale, d / scale, Ev * scale
-    ksv = kv * scale
-    L = math.log(1.0 / float(tol)) + _MARGIN + 1.5 * pmax
+    Ev = (splitting_parameter(kv, plain) if splitting is None else onp.full(W, splitting))
+    scale = math.sqrt(float(plain.area))                 # length unit [m]
+    latp = Lattice(a1v / scale, a2v / scale)
+    ksv, Es = kv * scale, Ev * scale
+    L = math.log(1.0 / tol) + _MARGIN + 1.5 * pmax
     zmax = float(onp.max(onp.abs(dv[:, 2]))) / scale
     rho_max = float(onp.max(onp.linalg.norm(dv[:, :2], axis=1))) / scale
-    kpar_max = float(onp.max(onp.linalg.norm(onp.asarray(getval(k_par)), axis=1))) * scale
+    kpar_max = float(onp.max(onp.linalg.norm(kparv, axis=1))) * scale
     q_cut = float(onp.max(onp.sqrt(ksv ** 2 + 4 * Es ** 2 * (math.sqrt(L) + zmax * Es) ** 2)))
     r_cut = float(onp.max(onp.sqrt(L + (ksv / (2 * Es)) ** 2) / Es))
     b1, b2 = latp.reciprocal()
     mn = order_indices(latp, q_cut + kpar_max)
     nm = integer_pairs_within(latp.a1, latp.a2, b1, b2, r_cut + rho_max)
-    spec = _spectral(ks, kpar, lat, ds[:, :2], ds[:, 2], Es, mn, pmax)
-    spat = _spatial(ks, kpar, lat, ds, Es, nm, pmax, 1e-24)
+    groups = [[ksv], [kparv[:, 0] * scale, kparv[:, 1] * scale], list(a1v / scale),
+              list(a2v / scale), list(dv.T / scale)]
+    units = [scale, scale, 1.0 / scale, 1.0 / scale, 1.0 / scale]   # d(scaled)/d(input)
+    D = sum(_ARG_SIZES[i] for i in wrt)
+    seeded, unit = 0, []
+    for i in sorted(wrt):
+        groups[i] = [T.Tangent.seed(x, seeded + j, D) for j, x in enumerate(groups[i])]
+        seeded += _ARG_SIZES[i]
+        unit += [units[i]] * _ARG_SIZES[i]
+    (ks,), (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy, dz) = groups
+    spec = _spectral(ks, (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy), dz, Es, mn, pmax)
+    spat = _spatial(ks, (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy, dz), Es, nm, pmax, 1e-24)
     ps = onp.array([p for p in range(pmax + 1) for _ in range(-p, p + 1)])
-    pref = (4 * math.pi / 1j) * (-1.0) ** ps / ks[:, None, None] ** (ps + 1)
-    return (spec + spat) * pref
+    pref = (4 * math.pi / 1j) * (-1.0) ** ps * ks[:, None, None] ** (-(ps + 1.0))
+    out = (spec + spat) * pref
+    if not wrt:
+        return out
+    if not isinstance(out, T.Tangent):   # cannot happen: some input carries a direction
+        raise AssertionError("lattice sums lost their derivatives")
+    return out.v, T._full_tangent(out) * onp.array(unit)[:, None, None, None]
+
+
+@primitive
+def _sums(k, k_par, a1, a2, d, pmax, tol, splitting):
+    """D_pM from plain inputs: one autograd node (derivatives in ``_sums_vjp``)."""
+    return _kernel(k, k_par, a1, a2, d, pmax, tol, splitting)
+
+
+def _sums_vjp(argnums, ans, args, kwargs):
+    """The traced arguments' directional derivatives at once; each reverse pass contracts.
+
+    Written with autograd operations, so that the vector-Jacobian product is itself
+    differentiable in the cotangent (the reverse-of-reverse used by --grad sensitivities).
+    """
+    wrt = tuple(sorted(argnums))
+    _, t = _kernel(*args, wrt=wrt)
+    rules = {0: "wpj,wpj->w", 1: "wpj,cwpj->wc", 2: "wpj,cwpj->c", 3: "wpj,cwpj->c",
+             4: "wpj,cwpj->pc"}
+    blocks, start = {}, 0
+    for i in wrt:
+        n = _ARG_SIZES[i]
+        blocks[i] = (t[start] if i == 0 else t[start:start + n], rules[i])
+        start += n
+
+    def vjp(g):
+        return tuple(np.real(np.einsum(blocks[i][1], g, blocks[i][0])) for i in argnums)
+
+    return vjp
+
+
+defvjp_argnums(_sums, _sums_vjp)

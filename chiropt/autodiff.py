@@ -1,0 +1,97 @@
+"""Faster reverse rules for indexing and broadcasting in autograd (exact, set on import).
+
+Owns: the vector-Jacobian product of ``ArrayBox.__getitem__`` and the sum over broadcast
+axes that every elementwise rule applies to its cotangent (``unbroadcast``).
+
+Indexing: the vector-Jacobian product of ``ArrayBox.__getitem__``. autograd scatters the
+cotangent of every indexing operation with ``numpy.add.at``, which is needed when an
+integer-array index repeats an element but costs ~30 us per call even on small arrays;
+the forward model slices large (wavelength, order, mode) arrays a few hundred times per
+evaluation, and each reverse pass paid for it again. For basic indices (integers, slices,
+``None``, ``Ellipsis``: no element can repeat) the scatter is an in-place ``+=`` on the
+view, the same sum exactly. Advanced indices keep autograd's rule. Second derivatives (the
+reverse-of-reverse of ``chiropt.sensitivity``) use the same rule as autograd's: the
+derivative of the scatter is the gather ``g[idx]``.
+Broadcasting: autograd's ``unbroadcast`` sums the cotangent once per removed axis and
+once more for every axis of length 1 in the operand, even where the cotangent's axis has
+length 1 as well (a no-op sum, ~10 us each: the forward model keeps a wavelength axis of
+length 1 in a single-wavelength goal, so nearly every rule paid it). The replacement sums
+all removed axes in one call and only the axes that were really broadcast: the same sum
+up to the order of floating-point additions (round-off).
+Must not import: any chiropt module (imported for its side effect by the modules that run
+reverse passes: ``chiropt.sensitivity``, ``chiropt.goals.objectives``).
+
+References
+----------
+autograd ``numpy/numpy_vjps.py`` (``untake``, the rule replaced here for basic indices);
+NumPy manual, "Indexing on ndarrays" (basic versus advanced indexing).
+"""
+
+from __future__ import annotations
+
+import numpy as onp
+from autograd.core import SparseObject, vspace
+from autograd.extend import defjvp, defvjp, primitive
+from autograd.numpy.numpy_boxes import ArrayBox
+import autograd.numpy as anp
+import autograd.numpy.numpy_vjps as _numpy_vjps
+from autograd.numpy.numpy_vjps import untake
+from autograd.tracer import getval
+
+
+_BASIC = (slice, int, type(None), type(Ellipsis))
+
+
+def _is_basic(idx) -> bool:
+    items = idx if type(idx) is tuple else (idx,)
+    for i in items:
+        if type(i) not in _BASIC and not isinstance(i, onp.integer):
+            return False    # arrays, lists, booleans (type bool is not int): advanced
+    return True
+
+
+@primitive
+def untake_basic(x, idx, vs):
+    """The cotangent ``x`` of ``A[idx]`` (basic ``idx``) scattered into A's space."""
+    def mut_add(A):
+        A[idx] += x
+        return A
+
+    return SparseObject(vs, mut_add)
+
+
+defvjp(untake_basic, lambda ans, x, idx, _: lambda g: g[idx])
+defjvp(untake_basic, "same")
+
+
+def _getitem_vjp(ans, A, idx):
+    scatter = untake_basic if _is_basic(getval(idx)) else untake
+    return lambda g: scatter(g, idx, vspace(A))
+
+
+defvjp(ArrayBox.__getitem__, _getitem_vjp)
+
+
+def unbroadcast(x, target_meta, broadcast_idx=0):
+    """Sum cotangent ``x`` down to the operand's shape (autograd's rule, fewer sums).
+
+    ``broadcast_idx`` is where the extra axes sit: 0 (leading), -1 (trailing) or the
+    position of an einsum ellipsis, as in autograd.
+    """
+    target_shape, target_ndim, _, target_iscomplex = target_meta
+    shape = anp.shape(x)
+    extra = len(shape) - target_ndim
+    if extra > 0:
+        start = len(shape) - extra if broadcast_idx < 0 else broadcast_idx
+        x = anp.sum(x, axis=tuple(range(start, start + extra)))
+        shape = anp.shape(x)
+    axes = tuple(i for i, size in enumerate(target_shape) if size == 1 and shape[i] != 1)
+    if axes:
+        x = anp.sum(x, axis=axes, keepdims=True)
+    if not target_iscomplex and anp.iscomplexobj(x):
+        x = anp.real(x)
+    return x
+
+
+AUTOGRAD_UNBROADCAST = _numpy_vjps.unbroadcast   # autograd's own rule (tests compare)
+_numpy_vjps.unbroadcast = unbroadcast
