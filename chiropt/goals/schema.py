@@ -109,7 +109,7 @@ Metrics
     every variable of this goal must be a column) are the first local searches' start
     points, the rest are seeded as usual (two objectives: the rows start both anchors).
     This chains stages: stage 1 maximizes, say, ``cd_capacity``, stage 2 maximizes
-    ``g`` from stage 1's designs (docs/goals.md, "Staged searches").
+    ``g`` from stage 1's designs (docs/goals.md §5).
 ``budget``
     ``wall_time`` (``8h``, ``90m``, ``1h30m``, ``45s`` or a number of seconds) and/or
     ``evaluations`` (a total, split evenly over the local searches so that a run stays
