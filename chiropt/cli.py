@@ -209,8 +209,8 @@ def _cmd_inspect(args) -> int:
     for path in inspect_design(design, args.at_nm, out_dir, grid=args.grid, notes=notes,
                                findings=findings):
         print(path)
-    for line in findings:
-        print(line)
+    for line in findings:  # stdout stays the list of figures, for scripts
+        print(line, file=sys.stderr)
     for note in notes:
         print(f"warning: {note}", file=sys.stderr)
     return EXIT_OK
