@@ -127,8 +127,11 @@ def _print_table(response) -> None:
     step = max(1, len(wl) // TABLE_ROWS)
     head = (f"{'lambda (nm)':>12} {'R(+1)':>8} {'T(+1)':>8} {'A(+1)':>8} "
             f"{'R(-1)':>8} {'T(-1)':>8} {'A(-1)':>8}")
+    cap = m is not None and "cd_capacity" in m
     if m is not None:
         head += f" {'u':>8} {'g':>8} {'DOCP(+1)':>9} {'DOCP(-1)':>9}"
+    if cap:
+        head += f" {'g_ev':>8} {'ev_share':>8} {'cd_cap':>8} {'cd_eff':>8}"
     print(head)
     rows = list(range(0, len(wl), step))
     if rows[-1] != len(wl) - 1:
@@ -139,11 +142,30 @@ def _print_table(response) -> None:
         if m is not None:
             line += (f" {m['u'][i]:8.4f} {m['g'][i]:8.4f} {m['docp']['+1'][i]:9.4f}"
                      f" {m['docp']['-1'][i]:9.4f}")
+        if cap:
+            line += "".join(f" {m[k][i]:8.4f}" for k in ("g_ev", "ev_share", "cd_capacity",
+                                                          "cd_efficiency"))
         print(line)
     if len(rows) < len(wl):
         print(f"{len(rows)} of {len(wl)} wavelengths shown; --json for all")
     if m is not None:
         print("u, g, DOCP: averages over the design's region (see `chiropt inspect`)")
+    if cap:
+        _print_verdict(response)
+
+
+def _print_verdict(response) -> None:
+    """Which limit holds the CD back, at the wavelength of the largest |g| (theory §18)."""
+    import numpy as onp
+
+    from chiropt.response import capacity_spectra
+
+    m = response.metrics
+    i = int(onp.argmax(onp.abs(onp.asarray(m["g"]))))
+    verdicts = capacity_spectra(m)["verdict"]
+    print("g_ev: evanescent orders' part of g; ev_share: their share of the intensity; "
+          "cd_cap: the largest g_ev that share allows; cd_eff = g_ev/cd_cap")
+    print(f"at {response.wavelength_nm[i]:.2f} nm (largest |g|): {verdicts[i]}")
 
 
 def _print_validity(check: dict) -> None:
@@ -183,8 +205,12 @@ def _cmd_inspect(args) -> int:
     _check_grid(args.grid)
     out_dir = _output_folder("--out", Path(args.out) if args.out else Path.cwd())
     notes: list[str] = []
-    for path in inspect_design(design, args.at_nm, out_dir, grid=args.grid, notes=notes):
+    findings: list[str] = []
+    for path in inspect_design(design, args.at_nm, out_dir, grid=args.grid, notes=notes,
+                               findings=findings):
         print(path)
+    for line in findings:  # stdout stays the list of figures, for scripts
+        print(line, file=sys.stderr)
     for note in notes:
         print(f"warning: {note}", file=sys.stderr)
     return EXIT_OK

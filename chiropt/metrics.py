@@ -34,6 +34,7 @@ import autograd.numpy as np
 import numpy as onp
 from autograd.tracer import getval
 
+from chiropt.capacity import capacity_metrics
 from chiropt.errors import InputError
 from chiropt.fields import (
     NM,
@@ -316,7 +317,10 @@ def region_metrics(solution: Solution, region, *, tol: float | None = None,
     dict: ``u, c, g, background`` (W,) [-]; ``s0, docp`` as ``{"+1": (W,), "-1": (W,)}``;
     ``area_fraction`` ``{"+1", "-1"}`` (W,) (absent when ``area_grid=0``);
     ``truncation`` (W,) estimated relative truncation error (plain values);
-    ``n_orders`` number of orders kept.
+    ``n_orders`` number of orders kept; the capacity metrics of
+    :func:`chiropt.capacity.capacity_metrics` (``g_00, g_prop, g_ev, ev_share,
+    cd_capacity, cd_efficiency`` (W,), ``ev_share_h, docp_efficiency`` per helicity,
+    ``order_share``, ``order_K``; absent for sampled regions).
 
     Notes
     -----
@@ -337,6 +341,8 @@ def region_metrics(solution: Solution, region, *, tol: float | None = None,
     out = _metrics_from(avg, ref)
     out["truncation"] = _truncation(avg["orders"], avg["content"])
     out["n_orders"] = int(len(avg["content"].mn))
+    out.update(capacity_metrics(avg["orders"], avg["content"].K, cd_bound(avg["content"].K),
+                                ref["s3"]))
     if area_grid:
         frac = handedness_fraction(avg["content"], avg["thickness"], st, n=area_grid,
                                    planes=area_planes)

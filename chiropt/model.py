@@ -189,7 +189,8 @@ def _run_fourier(design, values, *, harmonics, area_grid, warn):
         previous, change, changes = None, None, None
         for step in [s for s in HARMONIC_STEPS if s <= design.harmonics_max]:
             out = _fourier_once(design, plain, step, 0, False)
-            here = {k: onp.asarray(getval(v)) for k, v in quantities_of(out).items()}
+            here = {k: onp.asarray(getval(v))
+                    for k, v in quantities_of(out, capacity=False).items()}
             if previous is not None:
                 changes = {k: float(onp.max(onp.abs(here[k] - previous[k]))) for k in here}
                 change = max(changes.values())
@@ -213,9 +214,15 @@ def _run_fourier(design, values, *, harmonics, area_grid, warn):
         return out
 
 
-def quantities_of(output: ModelOutput) -> dict[str, Any]:
+def quantities_of(output: ModelOutput, *, capacity: bool = True,
+                  k_min: tuple[float, ...] = ()) -> dict[str, Any]:
     """Spectra (W,) by name: R+1, R-1, T+1, T-1, A+1, A-1 and, with a region, u, c, g,
-    background, docp+1, docp-1, s0+1, s0-1."""
+    background, docp+1, docp-1, s0+1, s0-1; with ``capacity`` (regions above the particles
+    only, where the averages are order sums) also ``CAPACITY_QUANTITIES`` and
+    ``ev_share_k<k>`` for each threshold in ``k_min`` (:mod:`chiropt.capacity`).
+    The model's own checks (harmonic convergence, validity) compare the quantities without
+    the capacity ones: ratios such as ``cd_efficiency`` are ill-conditioned where the
+    capacity is tiny and would decide them."""
     out: dict[str, Any] = {}
     for name in ("R", "T", "A"):
         out[name + "+1"] = output.fractions[name][:, 0]
@@ -227,6 +234,29 @@ def quantities_of(output: ModelOutput) -> dict[str, Any]:
         for key in ("docp", "s0"):
             out[key + "+1"] = m[key]["+1"]
             out[key + "-1"] = m[key]["-1"]
+        if capacity and "cd_capacity" in m:
+            out.update(capacity_quantities(m, k_min))
+    return out
+
+
+#: the capacity quantities of a region above the particles (docs/theory.md §18)
+CAPACITY_QUANTITIES = ("ev_share", "ev_share+1", "ev_share-1", "cd_capacity",
+                       "cd_efficiency", "docp_efficiency+1", "docp_efficiency-1", "g_00",
+                       "g_prop", "g_ev")
+
+
+def capacity_quantities(metrics: dict, k_min: tuple[float, ...] = ()) -> dict[str, Any]:
+    """The capacity quantities (W,) by name from region metrics (see ``quantities_of``)."""
+    from chiropt.capacity import ev_share_above, ev_share_name
+
+    out: dict[str, Any] = {}
+    for key in ("ev_share", "cd_capacity", "cd_efficiency", "g_00", "g_prop", "g_ev"):
+        out[key] = metrics[key]
+    for h in ("+1", "-1"):
+        out["ev_share" + h] = metrics["ev_share_h"][h]
+        out["docp_efficiency" + h] = metrics["docp_efficiency"][h]
+    for k in k_min:
+        out[ev_share_name(k)] = ev_share_above(metrics, k)
     return out
 
 
@@ -243,7 +273,7 @@ def validity(design: Design, output: ModelOutput | None = None) -> dict[str, Any
     """
     if output is None:
         output = run_model(design)
-    here = quantities_of(output)
+    here = quantities_of(output, capacity=False)
     if design.solver == "fourier":
         finer = next((s for s in HARMONIC_STEPS if s > 1.3 * output.harmonics),
                      HARMONIC_STEPS[-1])
@@ -257,7 +287,8 @@ def validity(design: Design, output: ModelOutput | None = None) -> dict[str, Any
             from dataclasses import replace
 
             finer = replace(design, slices=2 * design.slices)
-            sliced = quantities_of(run_model(finer, harmonics=output.harmonics))
+            sliced = quantities_of(run_model(finer, harmonics=output.harmonics),
+                                   capacity=False)
             info["slices"], info["slices_check"] = design.slices, 2 * design.slices
             info["slicing_change"] = max(
                 float(onp.max(onp.abs(onp.asarray(getval(sliced[k]))
@@ -268,7 +299,7 @@ def validity(design: Design, output: ModelOutput | None = None) -> dict[str, Any
         upper_out = run_model(design, lmax=check)
         info = {"lmax": output.lmax, "lmax_check": check, "label": f"lmax = {output.lmax}",
                 "label_check": f"lmax = {check}"}
-    upper = quantities_of(upper_out)
+    upper = quantities_of(upper_out, capacity=False)
     change = {k: float(onp.max(onp.abs(onp.asarray(getval(upper[k]))
                                        - onp.asarray(getval(here[k]))))) for k in here}
     worst = max(max(change.values()), info.get("slicing_change", 0.0))

@@ -31,7 +31,8 @@ class Response:
     wavelength_nm : (W,) [nm]
     metrics : near-field region metrics (docs/theory.md §12) when the design has a region:
         u, c, g, background (W,); s0, docp, area_fraction {"+1", "-1"} (W,);
-        truncation (W,) estimated relative truncation error; n_orders
+        truncation (W,) estimated relative truncation error; n_orders; for a region above
+        the particles the capacity metrics (docs/theory.md §18, :func:`capacity_spectra`)
     R, T, A : power fractions reflected (into the medium of incidence), transmitted,
         and absorbed (A = 1 - R - T) [-]
     A_dipoles : absorbed fraction computed from the dipoles' own losses [-]
@@ -71,6 +72,8 @@ class Response:
                 if k in m:
                     out["metrics"][k] = {h: onp.asarray(v).tolist() for h, v in m[k].items()}
             out["metrics"]["n_orders"] = int(m["n_orders"])
+            if "cd_capacity" in m:
+                out["metrics"].update(capacity_spectra(m))
         # absorbed in the particles themselves (null where the model does not separate it)
         a_p = onp.broadcast_to(onp.asarray(self.A_dipoles, float), self.R.shape)
         out["A_particles"] = {h: [v if onp.isfinite(v) else None for v in a_p[:, j].tolist()]
@@ -85,6 +88,31 @@ class Response:
         if self.validity is not None:
             out["validity"] = self.validity
         return out
+
+
+#: ``ev_share_k`` thresholds reported by ``evaluate`` (goals may ask for any other)
+REPORTED_K_MIN = (1.5, 2.0, 3.0)
+
+
+def capacity_spectra(m: dict) -> dict[str, Any]:
+    """JSON-ready capacity metrics (docs/cli.md): ``g_00, g_prop, g_ev, ev_share,
+    cd_capacity, cd_efficiency`` as lists over wavelength, ``ev_share_h`` and
+    ``docp_efficiency`` by helicity, ``ev_share_k`` by threshold (``"2"``: K >= 2) and the
+    per-wavelength ``verdict`` line (docs/theory.md §18)."""
+    from chiropt.capacity import ev_share_above, verdict
+
+    out: dict[str, Any] = {k: onp.asarray(m[k]).tolist()
+                           for k in ("g_00", "g_prop", "g_ev", "ev_share", "cd_capacity",
+                                     "cd_efficiency")}
+    for k in ("ev_share_h", "docp_efficiency"):
+        out[k] = {h: onp.asarray(v).tolist() for h, v in m[k].items()}
+    out["ev_share_k"] = {f"{k:g}": onp.asarray(ev_share_above(m, k)).tolist()
+                         for k in REPORTED_K_MIN}
+    share00 = onp.asarray(m["order_share"])[:, 0]
+    out["verdict"] = [verdict(*vals) for vals in zip(
+        out["ev_share"], share00.tolist(), out["cd_efficiency"], onp.asarray(m["g"]).tolist(),
+        out["g_ev"], strict=True)]
+    return out
 
 
 def evaluate(design: Design, *, keep_solution: bool = False,

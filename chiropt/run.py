@@ -336,18 +336,22 @@ def local_tasks(goal: Goal, store: EvaluationStore, common: dict) -> tuple[list[
     F = onp.array([r.evaluation.metrics["objectives"] for r in recs], float).reshape(-1, M)
     plan = seed_plan(X, F, onp.array([r.start for r in recs]), problem.senses, s.starts,
                      s.front_points)
+    seeds = stage_starts(goal)
+    given = (f"; {len(seeds)} from {goal.search.starts_from}" if len(seeds) else "")
     if plan is None:
-        starts = sobol_starts(problem.lower, problem.upper, s.starts, seed=goal.seed)
+        starts = _with_seeds(sobol_starts(problem.lower, problem.upper, s.starts,
+                                          seed=goal.seed), seeds)
         kind = "single" if M == 1 else "trace"
         return ([SearchTask(x0=starts[k], index=k, seed=start_seed(goal.seed, k), kind=kind,
                             **common) for k in range(s.starts)],
-                "no feasible explored design: scrambled-Sobol starts")
+                "no feasible explored design: scrambled-Sobol starts" + given)
+    plan.anchors = [_with_seeds(a, seeds) for a in plan.anchors]
     tasks: list[SearchTask] = []
     if M == 1:
         for j, x0 in enumerate(plan.anchors[0]):
             tasks.append(SearchTask(x0=x0, index=j, seed=start_seed(goal.seed, j),
                                     kind="single", **common))
-        return tasks, f"{len(tasks)} starts from the best explored designs"
+        return tasks, f"{len(tasks)} starts from the best explored designs" + given
     for k in (0, 1):
         for j, x0 in enumerate(plan.anchors[k]):
             tasks.append(SearchTask(x0=x0, index=len(tasks), seed=start_seed(
@@ -360,7 +364,48 @@ def local_tasks(goal: Goal, store: EvaluationStore, common: dict) -> tuple[list[
                 goal.seed, len(tasks)), kind="level", k=i, start=j, bound=value, ideal=ideal,
                 scale=scale, **common))
     return tasks, (f"anchors and {len(plan.levels)} levels seeded from {len(recs)} explored "
-                   "feasible designs")
+                   "feasible designs" + given)
+
+
+def stage_starts(goal: Goal) -> onp.ndarray:
+    """Start points (S, n) from ``search.starts_from`` (an earlier run's front.csv), in file
+    order, at most ``search.starts``, clipped to the variable bounds; (0, n) without it.
+
+    Raises
+    ------
+    InputError (``search.starts_from``) when the file is missing, has no usable row, or
+    lacks a column of this goal's variables.
+    """
+    from chiropt.export.candidates import read_front_csv
+
+    paths = [v.path for v in goal.variables]
+    text = goal.search.starts_from
+    if text is None:
+        return onp.zeros((0, len(paths)))
+    path = Path(text.replace("{material}", goal.material))
+    key = "search.starts_from"
+    if not path.is_file():
+        raise goal.error(key, f"{path} not found: run the earlier stage first (its run "
+                              "folder holds front.csv)")
+    _, rows = read_front_csv(path)
+    missing = [p for p in paths if not rows or p not in rows[0]]
+    if missing:
+        raise goal.error(key, f"{path} has no column {missing[0]!r} (this goal's variables: "
+                              f"{', '.join(paths)}); the stages must search the same variables")
+    lower = onp.array([v.lower for v in goal.variables])
+    upper = onp.array([v.upper for v in goal.variables])
+    X = [[float(r[p]) for p in paths] for r in rows if all(r[p] not in ("", None) for p in paths)]
+    if not X:
+        raise goal.error(key, f"{path} holds no front row with every variable")
+    return onp.clip(onp.array(X, float), lower, upper)[: goal.search.starts]
+
+
+def _with_seeds(starts, seeds: onp.ndarray):
+    """``starts`` (a list or array of start points) with the first ones replaced by ``seeds``."""
+    out = [onp.asarray(x, float) for x in starts]
+    for j, x in enumerate(seeds[: len(out)]):
+        out[j] = onp.asarray(x, float)
+    return onp.array(out) if isinstance(starts, onp.ndarray) else out
 
 
 def goal_identity(goal: Goal) -> str:
@@ -663,6 +708,7 @@ def _workers(workers) -> int:
 def validate_run(goal: Goal, workers: int | None = None) -> dict[str, Any]:
     """Every check of a run that needs no run folder; return the base design's quantities."""
     _workers(workers)
+    stage_starts(goal)
     return check_goal(goal)
 
 
@@ -949,8 +995,23 @@ def write_comparison(summaries: list[RunSummary], path: Path) -> list[float]:
 # ---------------------------------------------------------------------------------------------
 
 def _spec_metric(problem: GoalProblem, quantities: dict, name: str, spec) -> float:
+    if name not in quantities and name + "+1" not in quantities:
+        return float("nan")  # a store written before the quantity existed
     return float(problem._spec_value({k: onp.asarray(v) for k, v in quantities.items()},
                                      name, spec))
+
+
+def _capacity_verdict(problem: GoalProblem, quantities: dict) -> list[str]:
+    """The candidate's limit line (docs/theory.md §18), at the first objective's spec."""
+    from chiropt.capacity import verdict
+
+    if "cd_capacity" not in quantities:
+        return []
+    spec = problem.goal.objectives[0].spec
+    v = {m: _spec_metric(problem, quantities, m, spec)
+         for m in ("ev_share", "cd_efficiency", "g", "g_ev")}
+    return [f"where the CD comes from ({spec_label(spec, problem)}): "
+            + verdict(v["ev_share"], None, v["cd_efficiency"], v["g"], v["g_ev"])]
 
 
 def _columns(problem: GoalProblem) -> list[tuple[str, str, Any]]:
@@ -966,7 +1027,10 @@ def _columns(problem: GoalProblem) -> list[tuple[str, str, Any]]:
                     cols.append((lab, m, o.spec))
                     seen.add(lab)
     spec = goal.objectives[0].spec
-    names = ("u", "g", "docp+1", "docp-1") if goal.design.region is not None else ("R", "T", "A")
+    region = goal.design.region
+    names = ("u", "g", "docp+1", "docp-1") if region is not None else ("R", "T", "A")
+    if region is not None and not region.inside_layer:
+        names += CAPACITY_COLUMNS
     own = {objective_label(o, problem) for o in goal.objectives}
     own |= {objective_label(replace(o, robust=None), problem) for o in goal.objectives}
     for m in names:
@@ -976,6 +1040,9 @@ def _columns(problem: GoalProblem) -> list[tuple[str, str, Any]]:
             seen.add(lab)
     return cols
 
+
+#: where the CD comes from, in front.csv beside u, g, DOCP (docs/theory.md §18)
+CAPACITY_COLUMNS = ("g_ev", "ev_share", "cd_capacity", "cd_efficiency")
 
 REACH_FRACTION = 1e-3  # an extreme counts as reached within this share of the front's span
 
@@ -1199,7 +1266,7 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         rows.append(row)
         front_rows.append(dict(zip(columns, row, strict=True)))
         # fresh re-evaluation from a newly built design
-        fresh = compute_quantities(problem.design_at(r.x))
+        fresh = compute_quantities(problem.design_at(r.x), k_min=problem.k_min)
         for k, v in q.items():
             a = onp.real(onp.asarray(fresh[k], float))
             b = onp.asarray(v, float)
@@ -1292,6 +1359,7 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         lines.append("wavelengths solved: " + ", ".join(
             f"{w:g}" for w in problem.wavelengths_at(r.x)) + " nm (the ones the goal reads); "
             "`chiropt evaluate` on this file reproduces the stored values")
+        lines += _capacity_verdict(problem, r.evaluation.metrics["quantities"])
         summary.candidates.append(write_candidate(cand_dir / f"c{j:03d}.yaml", data,
                                                   comments=lines))
     # plots

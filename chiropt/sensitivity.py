@@ -10,7 +10,9 @@ Names: design quantities are the key paths of ``Design.parameters()``
 ``illumination.polar_deg``, ``illumination.wavelength_nm`` (shifts every wavelength),
 ``region.height_nm``, ``particles[0].material.n`` ...), in user units (nm, deg).
 Quantities: ``R+1``, ``R-1``, ``T+1``, ``T-1``, ``A+1``, ``A-1`` and, with a region,
-``u``, ``c``, ``g``, ``background``, ``docp+1``, ``docp-1``, ``s0+1``, ``s0-1``.
+``u``, ``c``, ``g``, ``background``, ``docp+1``, ``docp-1``, ``s0+1``, ``s0-1`` and, for
+a region above the particles, the capacity quantities (``CAPACITY``: ``ev_share``,
+``cd_capacity``, ``cd_efficiency``, ``docp_efficiency+1`` ..., docs/theory.md §18).
 """
 
 from __future__ import annotations
@@ -28,7 +30,7 @@ from autograd.tracer import getval
 import chiropt.autodiff  # noqa: F401  (registers the fast indexing rule)
 from chiropt.design import Design
 from chiropt.errors import InputError
-from chiropt.model import metrics_tolerance, quantities_of, run_model
+from chiropt.model import CAPACITY_QUANTITIES, metrics_tolerance, quantities_of, run_model
 
 __all__ = ["compute_quantities", "metrics_tolerance", "quantity_names",
            "spectrum_sensitivities", "value_and_gradient", "Sensitivity"]
@@ -36,15 +38,19 @@ from chiropt.solution import RAYLEIGH_WARN
 
 FAR_FIELD = ("R+1", "R-1", "T+1", "T-1", "A+1", "A-1")
 NEAR_FIELD = ("u", "c", "g", "background", "docp+1", "docp-1", "s0+1", "s0-1")
+CAPACITY = CAPACITY_QUANTITIES
 
 
 def quantity_names(design: Design) -> tuple[str, ...]:
-    """Names of the quantities reported for ``design`` (near-field ones need a region)."""
-    return FAR_FIELD + (NEAR_FIELD if design.region is not None else ())
+    """Names of the quantities reported for ``design`` (near-field ones need a region; the
+    capacity ones a region above the particles)."""
+    if design.region is None:
+        return FAR_FIELD
+    return FAR_FIELD + NEAR_FIELD + (() if design.region.inside_layer else CAPACITY)
 
 
 def compute_quantities(design: Design, values: dict[str, Any] | None = None,
-                       *, with_flags: bool = False):
+                       *, with_flags: bool = False, k_min: tuple[float, ...] = ()):
     """Spectra (W,) of every reported quantity; differentiable in ``values``.
 
     Parameters
@@ -52,13 +58,14 @@ def compute_quantities(design: Design, values: dict[str, Any] | None = None,
     design : Design
     values : dict, optional — replacements for named design quantities (may be traced)
     with_flags : bool — also return the (W,) Rayleigh proximity (plain floats)
+    k_min : thresholds of the ``ev_share_k<k>`` quantities to add [-]
 
     Returns
     -------
     dict name -> (W,) array [, rayleigh (W,)]
     """
     output = run_model(design, values)
-    out = quantities_of(output)
+    out = quantities_of(output, k_min=tuple(k_min))
     sol = output.solution
     if with_flags:
         return out, onp.asarray(getval(sol.rayleigh))

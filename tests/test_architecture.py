@@ -97,3 +97,8 @@ def test_layer_rule(importers, forbidden, allowed):
 def test_shared_kernels_import_nothing_of_chiropt(module):
     # common practice, no source: a module shared by several layers depends on none of them
     assert not GRAPH[module], sorted(GRAPH[module])
+
+
+def test_capacity_imports_only_errors():
+    # DEVELOPERS.md table: the capacity functions are pure (metrics.py calls them)
+    assert GRAPH["chiropt.capacity"] <= {"chiropt.errors", "chiropt.errors.InputError"}

@@ -44,6 +44,7 @@ from autograd.tracer import getval
 from scipy.stats import qmc
 
 import chiropt.autodiff  # noqa: F401  (registers the fast indexing rule)
+from chiropt.capacity import parse_ev_share_name
 from chiropt.errors import ComputationError, InputError, MaterialRangeError
 from chiropt.goals.schema import (
     WAVELENGTH_PATH,
@@ -207,6 +208,10 @@ class GoalProblem:
         self._index = {id(s): onp.array([pos[w] for w in s.wavelengths_nm]) for s in specs}
         self._specs = specs  # keep the ids alive
         self.eval_design = goal.design.with_wavelengths(union)
+        names = [m for o in goal.objectives for m in o.metrics]
+        names += [c.metric for c in goal.metric_constraints]
+        #: thresholds of the goal's ev_share_k metrics (quantities ev_share_k<k>)
+        self.k_min = tuple(sorted({k for k in map(parse_ev_share_name, names) if k is not None}))
         self.model_note = ""
         if self.eval_design.solver == "fourier" and self.eval_design.harmonics == "auto":
             # one convergence scan at the base design fixes the count for the whole search
@@ -351,7 +356,8 @@ class GoalProblem:
         return np.stack(rows) if rows else np.zeros(0)
 
     def _physics_vector(self, x, keep: dict):
-        q, ray = compute_quantities(self.eval_design, self.values(x), with_flags=True)
+        q, ray = compute_quantities(self.eval_design, self.values(x), with_flags=True,
+                                    k_min=self.k_min)
         keep["q"], keep["ray"] = q, ray
         robust = self._robust_samples(x) if self.robust_plans else None
         return np.stack([*self.objective_values(q, robust), *self._metric_rows(q, robust)])
@@ -373,7 +379,8 @@ class GoalProblem:
 
     def quantities(self, x) -> dict[str, list[float]]:
         """Spectra of every quantity at ``x`` (plain lists over ``wavelengths_at(x)``)."""
-        return _plain(compute_quantities(self.eval_design, self.values(onp.asarray(x, float))))
+        return _plain(compute_quantities(self.eval_design, self.values(onp.asarray(x, float)),
+                                         k_min=self.k_min))
 
     def check_stop(self) -> None:
         """Raise :class:`DeadlineReached` when the wall time is spent or the run stops."""
@@ -530,7 +537,7 @@ def check_goal(goal: Goal) -> dict[str, Any]:
                                       "corner and 256 Sobol points); relax one of them")
     # 3. the base design at every wavelength of the goal
     try:
-        q = compute_quantities(problem.eval_design)
+        q = compute_quantities(problem.eval_design, k_min=problem.k_min)
     except MaterialRangeError as exc:
         raise goal.error(_wavelength_key(goal, getattr(exc, "range_nm", None)),
                          exc.message) from None

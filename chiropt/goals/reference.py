@@ -8,8 +8,10 @@ gain from, the incident circularly polarized plane wave (docs/theory.md §12): `
 ``c``, ``u``, ``s0`` (and their per-helicity forms) = 1 (the normalization of those
 metrics: a plane wave has g = 1); ``docp`` = 0 (no circular polarization left: the bare
 wave's own +1 is the largest value at normal incidence, so it cannot bound a front);
-``background`` = 0 (an achiral structure); ``R``, ``T``, ``A`` = 0 when maximized, 1 when
-minimized (their physical limits). A weighted objective takes the same weighted sum of
+``background`` = 0 (an achiral structure); ``g_00`` = 1 (the bare wave's whole g);
+``R``, ``T``, ``A``, and the capacity metrics (``ev_share``, ``cd_capacity``,
+``cd_efficiency``, ``g_ev`` ...: 0 for the bare wave) = 0 when maximized, 1 when
+minimized. A weighted objective takes the same weighted sum of
 these values. The point is the same for every material and every run of a goal.
 """
 
@@ -19,7 +21,7 @@ from chiropt.goals.schema import Goal, Objective
 
 __all__ = ["neutral_value", "reference_point"]
 
-_ONE = ("g", "c", "u", "s0", "s0+1", "s0-1")
+_ONE = ("g", "c", "u", "s0", "s0+1", "s0-1", "g_00")
 _ZERO = ("docp", "docp+1", "docp-1", "background")
 
 
@@ -29,7 +31,7 @@ def neutral_value(metric: str, sense: str) -> float:
         return 1.0
     if metric in _ZERO:
         return 0.0
-    return 0.0 if sense == "max" else 1.0  # R, T, A and their per-helicity forms
+    return 0.0 if sense == "max" else 1.0  # R, T, A, capacity metrics, per-helicity forms
 
 
 def _default(o: Objective) -> float:

@@ -80,7 +80,7 @@ def scan_wavelengths(problem: GoalProblem, x, grid, lmax: int | None = None) -> 
     if lmax is not None:
         design = replace(design, lmax=int(lmax))
     try:
-        q, ray = compute_quantities(design, values, with_flags=True)
+        q, ray = compute_quantities(design, values, with_flags=True, k_min=problem.k_min)
     except (ComputationError, onp.linalg.LinAlgError, MaterialRangeError, FloatingPointError,
             ZeroDivisionError) as exc:
         out["error"] = f"{type(exc).__name__}: {exc}"

@@ -84,6 +84,15 @@ Metrics
     (CD enhancement), ``background``, ``docp+1``, ``docp-1``, ``s0+1``, ``s0-1`` (these need a
     ``region`` in the design), ``R+1``, ``R-1``, ``T+1``, ``T-1``, ``A+1``, ``A-1``; and
     ``docp``, ``s0``, ``R``, ``T``, ``A`` for the average of the two incident helicities.
+    Where the CD comes from (a region above the particle tops; docs/theory.md §18):
+    ``g_00``, ``g_prop``, ``g_ev`` (the parts of g carried by the (0,0), the other
+    propagating and the evanescent orders; they add up to g), ``ev_share`` (share of the
+    intensity in evanescent orders; ``ev_share+1``, ``ev_share-1`` per helicity),
+    ``ev_share_k`` with ``k_min: K`` beside the metric (orders with |q|/k >= K, e.g.
+    ``{metric: ev_share_k, k_min: 2.0}`` or ``{maximize: ev_share_k, k_min: 2.0}``),
+    ``cd_capacity`` (the largest g_ev that distribution allows), ``cd_efficiency``
+    (g_ev / cd_capacity, in [-1, 1]), ``docp_efficiency+1``, ``docp_efficiency-1``,
+    ``docp_efficiency`` (in-plane DOCP of the evanescent field, in [-1, 1]).
 ``search``
     ``algorithm`` (default SLSQP; MMA, SLSQP, L-BFGS, COBYLA, BOBYQA, Subplex, DIRECT-L, CRS2,
     ISRES, ESCH), ``starts`` (number of scrambled-Sobol start points, default 4),
@@ -111,7 +120,13 @@ Metrics
     (columns ``... (confirmed)``, ``confirm_model``, ``confirm_change``) and marked on
     front.png; with ``polish: N`` the best front design of each objective is improved by
     a local search of at most N iterations in that model (``confirmed.csv`` and
-    ``candidates/polished-*.yaml``).
+    ``candidates/polished-*.yaml``). ``starts_from: PATH``: the front.csv of an earlier
+    run (relative to the goal file; ``{material}`` is replaced by the run's material):
+    its rows (in file order, at most ``starts``; values clipped to this goal's bounds;
+    every variable of this goal must be a column) are the first local searches' start
+    points, the rest are seeded as usual (two objectives: the rows start both anchors).
+    This chains stages: stage 1 maximizes, say, ``cd_capacity``, stage 2 maximizes
+    ``g`` from stage 1's designs (docs/goals.md §5).
 ``budget``
     ``wall_time`` (``8h``, ``90m``, ``1h30m``, ``45s`` or a number of seconds) and/or
     ``evaluations`` (a total, split evenly over the local searches so that a run stays
@@ -134,7 +149,8 @@ from chiropt.design import Design, design_from_dict, file_safe_name, load_design
 from chiropt.errors import InputError
 from chiropt.robust.spec import RobustSpec, parse_robust
 from chiropt.search.algorithms import get_algorithm
-from chiropt.sensitivity import FAR_FIELD, NEAR_FIELD
+from chiropt.capacity import K_MIN_RANGE, ev_share_name, parse_ev_share_name
+from chiropt.sensitivity import CAPACITY, FAR_FIELD, NEAR_FIELD
 from chiropt.yamlio import Located, check_keys, load_yaml
 
 __all__ = [
@@ -147,8 +163,10 @@ __all__ = [
 # the user reference only: from its heading on (the module notes above it are for developers)
 EXPLAIN = __doc__[__doc__.index("Goal file reference"):].rstrip() + "\n"
 
-AVERAGED = ("docp", "s0", "R", "T", "A")  # helicity averages of the +1/-1 quantities
-METRIC_NAMES = FAR_FIELD + NEAR_FIELD + AVERAGED
+AVERAGED = ("docp", "s0", "R", "T", "A", "docp_efficiency")  # helicity averages of +1/-1
+EV_SHARE_K = "ev_share_k"  # with k_min: the quantity ev_share_k<k_min>
+METRIC_NAMES = FAR_FIELD + NEAR_FIELD + AVERAGED[:5] + CAPACITY + AVERAGED[5:] + (EV_SHARE_K,)
+CAPACITY_METRICS = CAPACITY + ("docp_efficiency", EV_SHARE_K)
 FABRICATION_KINDS = ("min_gap_nm", "min_feature_nm", "max_aspect_ratio")
 FRONT_METHODS = ("epsilon-constraint", "weighted-sum")
 WAVELENGTH_PATH = "illumination.wavelength_nm"
@@ -298,6 +316,7 @@ class SearchSettings:
     explore: ExploreSettings = field(default_factory=lambda: ExploreSettings())
     confirm_model: dict | None = None
     confirm_polish: int = 0
+    starts_from: str | None = None
 
     def to_dict(self) -> dict:
         front: dict[str, Any] = {"method": self.front_method, "points": self.front_points}
@@ -308,6 +327,8 @@ class SearchSettings:
                "front": front, "explore": self.explore.to_dict()}
         if self.confirm_model is not None:
             out["confirm"] = {"model": dict(self.confirm_model), "polish": self.confirm_polish}
+        if self.starts_from is not None:
+            out["starts_from"] = self.starts_from
         return out
 
 
@@ -441,8 +462,9 @@ class Goal:
 class _Ctx:
     """Builds errors that name the key path and the line of the goal file."""
 
-    def __init__(self, located: Located | None):
+    def __init__(self, located: Located | None, base_dir: Path | None = None):
         self.located = located
+        self.base_dir = Path(".") if base_dir is None else base_dir
 
     def error(self, key: str, message: str) -> InputError:
         if self.located is not None:
@@ -510,7 +532,7 @@ def load_goal(path: str | Path) -> list[Goal]:
 def goal_from_dict(data: dict, *, base_dir: str | Path = ".", located: Located | None = None,
                    default_name: str = "goal") -> list[Goal]:
     """Validate plain goal data into one :class:`Goal` per material (see module docstring)."""
-    ctx = _Ctx(located)
+    ctx = _Ctx(located, Path(base_dir))
     if isinstance(data, dict) and "design" not in data and {"lattice", "particles"} & set(data):
         raise InputError("", "this is a design file (it has lattice/particles), not a goal "
                              "file; use chiropt evaluate (or chiropt inspect) with it")
@@ -744,13 +766,30 @@ def _check_robust(ctx: _Ctx, design: Design, items, var_paths) -> None:
                                                      "illumination from the host side")
 
 
-def _metric(ctx: _Ctx, name: Any, key: str, design: Design) -> str:
+def _metric(ctx: _Ctx, name: Any, key: str, design: Design, k_min: float | None = None) -> str:
+    """The quantity name of a metric (``ev_share_k`` with ``k_min`` -> ``ev_share_k2``)."""
+    given = parse_ev_share_name(name) if isinstance(name, str) else None
+    if given is not None:  # the resolved form, ev_share_k2
+        lo, hi = K_MIN_RANGE
+        if not lo <= given <= hi:
+            raise ctx.error(key, f"{name}: threshold {given:g} outside [{lo:g}, {hi:g}]")
+        name, k_min = EV_SHARE_K, given
     if not isinstance(name, str) or name not in METRIC_NAMES:
         raise ctx.error(key, f"unknown metric {name!r}; allowed: {', '.join(METRIC_NAMES)}"
                              f"{_closest(str(name), METRIC_NAMES)}")
-    if (name in NEAR_FIELD or name in ("docp", "s0")) and design.region is None:
+    if (name in NEAR_FIELD or name in ("docp", "s0") or name in CAPACITY_METRICS) \
+            and design.region is None:
         raise ctx.error(key, f"metric '{name}' is a near-field metric and needs a region in "
                              "the design, e.g. region: {kind: plane, height_nm: 10}")
+    if name in CAPACITY_METRICS and design.region.inside_layer:
+        raise ctx.error(key, f"metric '{name}' is a sum over diffraction orders and needs a "
+                             "region above the particle tops (kind plane or slab measured "
+                             "from the tops), not a sampled one")
+    if name == EV_SHARE_K:
+        if k_min is None:
+            raise ctx.error(key, f"{EV_SHARE_K} needs its threshold beside it, e.g. "
+                                 f"{{metric: {EV_SHARE_K}, k_min: 2.0}}")
+        return ev_share_name(k_min)
     return name
 
 
@@ -780,9 +819,10 @@ def _spec(ctx: _Ctx, raw: dict, key: str, design_wl) -> WavelengthSpec:
 
 
 def _objective(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl) -> Objective:
-    allowed = {"maximize", "minimize", "at_nm", "band_nm", "points", "robust"}
+    allowed = {"maximize", "minimize", "at_nm", "band_nm", "points", "robust", "k_min"}
     ctx.keys(raw, allowed, key)
     robust = _robust(ctx, raw, key, design)
+    k_min = _k_min(ctx, raw, key)
     senses = [s for s in ("maximize", "minimize") if s in raw]
     if len(senses) != 1:
         raise ctx.error(key, "give exactly one of maximize: METRIC or minimize: METRIC")
@@ -805,13 +845,28 @@ def _objective(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl) -> Obje
                                                          f"metrics: {', '.join(weights)}")
         terms = []
         for m, w in weights.items():
-            _metric(ctx, m, f"{skey}.weighted.{m}", design)
+            name = _metric(ctx, m, f"{skey}.weighted.{m}", design, k_min)
             wv = ctx.number(w, f"{skey}.weighted.{m}")
             nv = ctx.number(norm.get(m, 1.0), f"{skey}.normalize.{m}", low=0.0, low_open=True)
-            terms.append((m, wv, nv))
+            terms.append((name, wv, nv))
+        _k_min_used(ctx, k_min, [t[0] for t in terms], key)
         return Objective(key, sense, tuple(terms), spec, weighted=True, robust=robust)
-    return Objective(key, sense, ((_metric(ctx, what, skey, design), 1.0, 1.0),), spec,
-                     robust=robust)
+    name = _metric(ctx, what, skey, design, k_min)
+    _k_min_used(ctx, k_min, [name], key)
+    return Objective(key, sense, ((name, 1.0, 1.0),), spec, robust=robust)
+
+
+def _k_min(ctx: _Ctx, raw: Any, key: str) -> float | None:
+    if not isinstance(raw, dict) or "k_min" not in raw:
+        return None
+    lo, hi = K_MIN_RANGE
+    return ctx.number(raw["k_min"], f"{key}.k_min", low=lo, high=hi)
+
+
+def _k_min_used(ctx: _Ctx, k_min, names, key: str) -> None:
+    if k_min is not None and not any(parse_ev_share_name(n) is not None for n in names):
+        raise ctx.error(f"{key}.k_min", f"k_min goes with the metric {EV_SHARE_K} (share of "
+                                        "the intensity in orders with K = |q|/k >= k_min)")
 
 
 def _robust(ctx: _Ctx, raw: dict, key: str, design: Design) -> RobustSpec | None:
@@ -834,12 +889,15 @@ def _constraint(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl):
             raise ctx.error(f"{key}.value", "missing")
         value = ctx.number(raw["value"], f"{key}.value", low=0.0, low_open=True)
         return FabricationConstraint(key, kind, value)
-    ctx.keys(raw, {"metric", "min", "max", "at_nm", "band_nm", "points", "robust"}, key)
+    ctx.keys(raw, {"metric", "min", "max", "at_nm", "band_nm", "points", "robust", "k_min"},
+             key)
     if "metric" not in raw:
         raise ctx.error(f"{key}.metric", "missing; a constraint is {metric: NAME, min: LOW, "
                                          "max: HIGH} or {fabrication: KIND, value: V} with KIND "
                                          f"in {', '.join(FABRICATION_KINDS)}")
-    metric = _metric(ctx, raw["metric"], f"{key}.metric", design)
+    k_min = _k_min(ctx, raw, key)
+    metric = _metric(ctx, raw["metric"], f"{key}.metric", design, k_min)
+    _k_min_used(ctx, k_min, [metric], key)
     lo = ctx.number(raw["min"], f"{key}.min") if "min" in raw else None
     hi = ctx.number(raw["max"], f"{key}.max") if "max" in raw else None
     if lo is None and hi is None:
@@ -854,7 +912,7 @@ def _constraint(ctx: _Ctx, raw: Any, key: str, design: Design, design_wl):
 def _search(ctx: _Ctx, raw: Any, objectives) -> SearchSettings:
     n_objectives = len(objectives)
     allowed = {"algorithm", "starts", "xtol_rel", "ftol_rel", "max_evals_per_start", "front",
-               "explore", "confirm"}
+               "explore", "confirm", "starts_from"}
     ctx.keys(raw, allowed, "search")
     s = SearchSettings()
     algo = raw.get("algorithm", s.algorithm)
@@ -894,10 +952,17 @@ def _search(ctx: _Ctx, raw: Any, objectives) -> SearchSettings:
                                                     "{solver: fourier, harmonics: auto}")
         confirm_model = dict(conf["model"])
         polish = ctx.integer(conf.get("polish", 0), "search.confirm.polish", low=0, high=200)
+    starts_from = None
+    if raw.get("starts_from") is not None:
+        text = raw["starts_from"]
+        if not isinstance(text, str) or not text.strip():
+            raise ctx.error("search.starts_from", f"expected the path of an earlier run's "
+                                                  f"front.csv, got {text!r}")
+        starts_from = str(ctx.base_dir / text) if not Path(text).is_absolute() else text
     return replace(s, algorithm=algo, starts=starts, xtol_rel=xtol, ftol_rel=ftol,
                    max_evals_per_start=cap, front_method=method, front_points=points,
                    front_reference=reference, explore=explore, confirm_model=confirm_model,
-                   confirm_polish=polish)
+                   confirm_polish=polish, starts_from=starts_from)
 
 
 def reference_keys(objective) -> tuple[str, ...]:

@@ -29,9 +29,14 @@ def _axis_label(label: str) -> str:
     name = label.split("@")[0]
     unit = "[-]"
     words = {"u": "intensity enhancement u", "g": "CD enhancement g", "c": "chirality c",
-             "docp": "DOCP", "s0": "spin s0"}
+             "docp": "DOCP", "s0": "spin s0", "g_00": "g of the (0,0) order",
+             "g_prop": "g of propagating orders", "g_ev": "g of evanescent orders",
+             "ev_share": "evanescent share of intensity", "cd_capacity": "CD capacity",
+             "cd_efficiency": "CD efficiency", "docp_efficiency": "DOCP efficiency"}
     base = name.rstrip("+-1") if name[-2:] in ("+1", "-1") else name
     nice = words.get(base, name)
+    if base.startswith("ev_share_k"):
+        nice = f"share of intensity in orders with |q|/k >= {base[len('ev_share_k'):]}"
     if name != base:
         nice += f" (helicity {name[-2:]})"
     where = axis_where(label.split("@", 1)[1]) if "@" in label else ""
@@ -87,7 +92,9 @@ def plot_front(path, problem, records, F, feasible, chosen, picks, confirmed=Non
     goal = problem.goal
     region = goal.design.region is not None
     M = F.shape[1] if F.size else len(goal.objectives)
-    fig, axes = new_figure(1, 2 if region else 1, width=5.2, height=4.2)
+    capacity = region and bool(records) and "cd_capacity" in records[0].evaluation.metrics.get(
+        "quantities", {})
+    fig, axes = new_figure(1, 1 + region + capacity, width=5.2, height=4.2)
     ax = axes[0, 0]
     labels = [objective_label(o, problem) for o in goal.objectives]
     fe = onp.asarray(feasible, bool)
@@ -170,10 +177,46 @@ def plot_front(path, problem, records, F, feasible, chosen, picks, confirmed=Non
         if ax.get_legend_handles_labels()[0]:   # below the panel: the labels are long
             ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), fontsize=6,
                       frameon=False)
+    if capacity:
+        _capacity_panel(axes[0, 2], problem, records, fe, chosen, picks)
     fig.suptitle(f"run {goal.run_name}", fontsize=10, color=PALETTE["c"])
     path = Path(path)
     save(fig, path)
     return path
+
+
+def _capacity_panel(ax, problem, records, fe, chosen, picks) -> None:
+    """Where the CD comes from: g_ev against cd_capacity (|g_ev| <= cd_capacity, the
+    diagonals; docs/theory.md §18), coloured by the evanescent share; front designs ringed.
+    Points far left are limited by capacity, points far below the diagonal by polarization.
+    """
+    goal = problem.goal
+    spec = goal.objectives[0].spec
+    idx = [i for i in range(len(records)) if fe[i]] or list(range(len(records)))
+
+    def values(rows, name):
+        return onp.array([_metric_at(problem, records[i], name, spec) for i in rows])
+
+    cap, gev, share = values(idx, "cd_capacity"), values(idx, "g_ev"), values(idx, "ev_share")
+    sc = ax.scatter(cap, gev, c=share, s=8, cmap="cividis", alpha=0.6, lw=0, vmin=0, vmax=1)
+    top = max(float(onp.nanmax(cap)) if cap.size else 1.0, 1e-3) * 1.05
+    ax.plot([0, top], [0, top], color="0.35", lw=0.8, ls=":", label="|g_ev| = cd_capacity")
+    ax.plot([0, top], [0, -top], color="0.35", lw=0.8, ls=":")
+    if chosen:
+        cc, gc = values(chosen, "cd_capacity"), values(chosen, "g_ev")
+        ax.scatter(cc, gc, c=values(chosen, "ev_share"), s=36, cmap="cividis", vmin=0, vmax=1,
+                   edgecolors=FRONT_COLOR, linewidths=1.0, label="front designs")
+        for j in picks:
+            if 0 <= j < len(chosen):
+                ax.annotate(f"c{j:03d}", (cc[j], gc[j]), textcoords="offset points",
+                            xytext=(4, 4), fontsize=7)
+    cb = ax.figure.colorbar(sc, ax=ax)
+    where = axis_where(spec_label(spec, problem))
+    cb.set_label(f"evanescent share of intensity at {where} [-]")
+    ax.set_xlabel(f"CD capacity at {where} [-]")
+    ax.set_ylabel(f"g of evanescent orders, g_ev, at {where} [-]")
+    ax.set_title("where the CD comes from")
+    ax.legend(loc="upper left", fontsize=6)
 
 
 def plot_convergence(path, problem, records, *, reference) -> Path:

@@ -23,11 +23,14 @@ MAP = "cividis"
 
 
 def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64,
-                   notes: list[str] | None = None) -> list[Path]:
+                   notes: list[str] | None = None,
+                   findings: list[str] | None = None) -> list[Path]:
     """Draw the inspection figures of ``design`` (which must have a region) at ``at_nm``.
 
     Returns the list of PNG paths written; the model's warnings (validity of the model,
-    as ``chiropt evaluate`` prints them) are appended to ``notes`` when given.
+    as ``chiropt evaluate`` prints them) are appended to ``notes`` when given, and the
+    line naming the limit that holds the CD back at ``at_nm`` (docs/theory.md §18) to
+    ``findings``.
     """
     from chiropt.fields import representative_plane_nm
     from chiropt.metrics import order_table, plane_maps
@@ -55,6 +58,14 @@ def inspect_design(design, at_nm: float, out_dir: str | Path, *, grid: int = 64,
     z_nm = representative_plane_nm(sol.structure, region)
     maps = plane_maps(sol, z_nm, grid, tol=maps_tolerance(design))
     table = order_table(sol, region, 0, tol=tol)
+    if findings is not None and not region.inside_layer:
+        from chiropt.metrics import region_metrics
+        from chiropt.response import capacity_spectra
+
+        cap = capacity_spectra(region_metrics(sol, region, tol=tol, area_grid=0))
+        findings.append(f"at {at_nm:g} nm: g = g_00 + g_prop + g_ev = {cap['g_00'][0]:.4g} + "
+                        f"{cap['g_prop'][0]:.4g} + {cap['g_ev'][0]:.4g}; "
+                        f"{cap['verdict'][0]}")
     spectra = "spectra" if stem.endswith("near-field") else "near-field-spectra"
     paths = [
         _plot_maps(maps, design, at_nm, z_nm, out_dir / f"{stem}-maps-{at_nm:g}nm.png"),
