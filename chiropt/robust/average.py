@@ -22,6 +22,13 @@ in a time average. So intensive quantities add, and ratios are taken after addin
   bare cone's own value (so the bare cone gives ``s0 = docp = 1``, as the plane wave does).
 - ``R``, ``T``, ``A``: power fractions weighted by the incident flux through the plane,
   ``cos t`` per direction.
+- order capacity (docs/theory.md §18): the shares and parts of g (``ev_share``,
+  ``ev_share_k*``, ``cd_capacity``, ``g_00``, ``g_prop``, ``g_ev``) are ratios to ``u`` and
+  are weighted by ``u`` (``ev_share+-1`` by each helicity's intensity ``u (1 +- background)``);
+  ``cd_efficiency = <g_ev> / <cd_capacity>``. ``docp_efficiency+-1`` is a ratio to the
+  evanescent part's own S0, which the quantities do not carry: it is weighted by that
+  helicity's evanescent intensity, an approximation (exact when the in-plane share of the
+  evanescent intensity is the same at every node).
 
 One direction with weight 1 returns the inputs unchanged (to rounding).
 """
@@ -89,7 +96,33 @@ def combine(q: dict[str, Any], weights, cos_t) -> dict[str, Any]:
             s0 = np.real(q["s0" + h])
             num = _wsum(w * ct, np.real(q["docp" + h]) * s0)
             out["docp" + h] = num / _wsum(w * stokes0, s0) / bare
+        _combine_capacity(q, w, u, out)
     return out
+
+
+def _combine_capacity(q, w, u, out):
+    """Order-capacity quantities of the combined set (rules in the module docstring)."""
+    for name, v in q.items():
+        if name in ("ev_share", "cd_capacity", "g_00", "g_prop", "g_ev") or \
+                name.startswith("ev_share_k"):
+            out[name] = _wsum(w, np.real(v) * u) / out["u"]
+    if "background" not in q:
+        return
+    for h, sign in (("+1", 1.0), ("-1", -1.0)):
+        if "ev_share" + h not in q:
+            continue
+        inten = u * (1.0 + sign * np.real(q["background"]))
+        ev = np.real(q["ev_share" + h]) * inten
+        out["ev_share" + h] = _wsum(w, ev) / _wsum(w, inten)
+        if "docp_efficiency" + h in q:
+            total = _wsum(w, ev)
+            num = _wsum(w, np.real(q["docp_efficiency" + h]) * ev)
+            out["docp_efficiency" + h] = np.where(getval(total) > 0, num / np.where(
+                getval(total) > 0, total, 1.0), 0.0)
+    if "cd_capacity" in out and "g_ev" in out:
+        cap = out["cd_capacity"]
+        ok = getval(cap) > 0
+        out["cd_efficiency"] = np.where(ok, out["g_ev"] / np.where(ok, cap, 1.0), 0.0)
 
 
 def sample_quantities(design: Design, values: dict[str, Any] | None, plan: SamplePlan
