@@ -890,6 +890,11 @@ def _run_locked(goal, run_dir, store, lock, base, executor, progress, interval_s
         if bar is not None:
             bar.close()
             log.bar = None
+    if stream is not None:
+        n = stream.receiver.restarts
+        log(f"streamed from the workers: {stream.receiver.puts} evaluations stored"
+            + (f"; {n} {'task' if n == 1 else 'tasks'} ran again from its start (a worker "
+               "was lost), the writes repeated were applied once" if n else ""))
     errors = [o for o in outcomes.values() if o.status == "error"]
     for key, o in outcomes.items():
         if o.status == "error":

@@ -128,15 +128,23 @@ class StreamReceiver:
         self.store = store
         self.applied: dict[str, int] = {}
         self.puts = 0  # rows written by this receiver
-        self.repeats = 0  # operations seen again (late, duplicated or from a re-run task)
+        self.restarts = 0  # streams that began again at operation 0: re-run tasks
+        self._streamed: set[str] = set()
 
-    def accept(self, message: str) -> None:
-        """Apply one operation if it is the next one of its task."""
+    def accept(self, message: str, streamed: bool = True) -> None:
+        """Apply one operation if it is the next one of its task.
+
+        ``streamed``: the message came as it was made (not in a task's returned list);
+        such a stream starting again at operation 0 is a task run again.
+        """
         op: dict[str, Any] = json.loads(message)
         token, i = op["token"], int(op["i"])
+        if streamed:
+            if i == 0 and token in self._streamed:
+                self.restarts += 1
+            self._streamed.add(token)
         done = self.applied.get(token, 0)
         if i != done:
-            self.repeats += i < done
             return  # seen before, or a gap that the task's returned list fills
         kind = op["op"]
         if kind == "put":
@@ -152,4 +160,4 @@ class StreamReceiver:
     def accept_all(self, messages) -> None:
         """Apply a task's complete list of operations (its returned ``ops``)."""
         for m in messages:
-            self.accept(m)
+            self.accept(m, streamed=False)
