@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import os
 import pickle
+import queue
 import statistics
 import sys
 import tempfile
@@ -50,13 +51,22 @@ def _noop(i):
     return i
 
 
-def _emit_many(topic, text, n):
-    from chiropt.search.cluster import emit
+def _stream_rows(topic, values, n, pause_s):
+    """On a worker: ``n`` evaluation rows written through a streaming TaskStore, one every
+    ``pause_s`` (a stand-in for the evaluation); the time spent writing [s]."""
+    import functools
 
-    t0 = time.perf_counter()
-    for _ in range(n):
-        emit(topic, text)
-    return time.perf_counter() - t0
+    from chiropt.search.cluster import emit
+    from chiropt.store.stream import TaskStore
+
+    ts = TaskStore(f"bench-{pause_s}", sink=functools.partial(emit, topic))
+    spent = 0.0
+    for seq in range(n):
+        time.sleep(pause_s)
+        t0 = time.perf_counter()
+        ts.put_values((values[0], values[1], seq, *values[3:]))
+        spent += time.perf_counter() - t0
+    return spent, ts.ops
 
 
 def throughput(goal, settings, workers, label):
@@ -82,7 +92,7 @@ def main():
     from chiropt.run import STORE_NAME, SearchTask, run_goal
     from chiropt.search.cluster import DaskExecutor
     from chiropt.store import EvaluationStore
-    from chiropt.store.stream import snapshot
+    from chiropt.store.stream import StreamReceiver, TaskStore, snapshot
 
     os.environ.setdefault("OMP_NUM_THREADS", "1")
     with tempfile.TemporaryDirectory() as d:
@@ -112,28 +122,39 @@ def main():
         fs = [ex.submit(_noop, i) for i in range(n)]
         [f.result() for f in fs]
         piped = (time.perf_counter() - t0) / n
-        # one streamed evaluation: a real row's message, sent from a worker
+        # streamed evaluations: real rows from a worker into a store of the run process
         with tempfile.TemporaryDirectory() as d:
             s = run_goal(goal, out=d, workers=0, progress=False)
             store = EvaluationStore(s.run_dir / STORE_NAME)
             ts = snapshot(store, "bench", [("start", 0)])
             key = next(iter(ts.rows))
-            rec = ts.get(*key)
-            ts.put(*key, rec.x, rec.evaluation)
-            msg = ts.ops[-1]
-            task = SearchTask(goal=goal, store_path=ts, index=0, x0=rec.x, seed=1,
+            values = ts.rows[key]
+            task = SearchTask(goal=goal, store_path=ts, index=0, x0=ts.get(*key).x, seed=1,
                               max_evals=150, deadline=None)
             empty = SearchTask(goal=goal, store_path=snapshot(store, "e", []), index=0,
-                               x0=rec.x, seed=1, max_evals=150, deadline=None)
+                               x0=ts.get(*key).x, seed=1, max_evals=150, deadline=None)
             store.close()
-        received = []
-        ex.subscribe("bench-topic", received.append)
-        m = 2000
-        t0 = time.perf_counter()
-        sent_s = ex.submit(_emit_many, "bench-topic", msg, m).result()
-        while len(received) < m and time.perf_counter() - t0 < 60:
-            time.sleep(0.01)
-        stream_s = (time.perf_counter() - t0) / m
+            streamed = {}
+            for pause in (0.0, 0.01):
+                inbox = queue.SimpleQueue()
+                topic = f"bench-{pause}"
+                ex.subscribe(topic, inbox.put)
+                rx = StreamReceiver(EvaluationStore(Path(d) / f"rx-{pause}.sqlite"))
+                m = 2000 if pause == 0 else 300
+                t0 = time.perf_counter()
+                fut = ex.submit(_stream_rows, topic, values, m, pause)
+                messages = 0
+                while rx.puts < m and time.perf_counter() - t0 < 120:
+                    try:
+                        rx.receive(inbox.get(timeout=0.05))
+                        messages += 1
+                    except queue.Empty:
+                        if fut.done():
+                            rx.accept_all(fut.result()[1])
+                wall = time.perf_counter() - t0
+                spent = fut.result()[0]
+                streamed[pause] = (m, messages, wall, spent, rx.puts)
+                rx.store.close()
     print(f"  round trip of one task alone: median {1e3 * statistics.median(lat):.2f} ms")
     print(f"  pipelined ({n} tasks in flight): {1e3 * piped:.2f} ms per task")
     print("(3) serialization")
@@ -145,12 +166,22 @@ def main():
             pickle.loads(blob)
         dt = (time.perf_counter() - t0) / 20
         print(f"  {label:40s} {len(blob) / 1024:8.1f} KiB, pickle + unpickle {1e3 * dt:.2f} ms")
-    print(f"  one streamed evaluation: {len(msg)} bytes, {1e6 * sent_s / m:.1f} us in the "
-          f"worker, {1e3 * stream_s:.3f} ms per message to the run process "
-          f"({len(received)} of {m} received)")
+    probe = TaskStore("probe")
+    probe.put_values(values)
+    print(f"  one streamed evaluation: {len(probe.ops[0])} bytes of JSON (dipole model, one "
+          "wavelength)")
+    for pause, (m, messages, wall, spent, puts) in streamed.items():
+        what = ("as fast as they come" if pause == 0
+                else f"one every {1e3 * pause:.0f} ms")
+        print(f"  {m} evaluations {what}: {messages} messages, {1e6 * spent / m:.0f} us per "
+              f"evaluation in the worker; stored by the run process "
+              f"{1e3 * (wall - m * pause) / m:.3f} ms per evaluation beyond the pauses "
+              f"({puts} of {m} stored)")
+    m, _, wall, _, _ = streamed[0.0]
+    stream_s = wall / m  # the run process's cost per evaluation at full rate
 
     print("(4) expected run time on N nodes (model below)")
-    cores, searches, evals = 32, 64, 200
+    cores, searches, evals = 32, 256, 200
     task_s = statistics.median(lat)
     per_eval = stream_s
     print(f"  a goal of {searches} independent searches of {evals} evaluations, "

@@ -975,7 +975,7 @@ class _Stream:
                 msg = self.inbox.get_nowait()
             except Exception:  # queue.Empty
                 return
-            self.receiver.accept(msg)
+            self.receiver.receive(msg)
 
     def finish(self, outcome: TaskOutcome) -> TaskOutcome:
         """Apply a finished task's complete list of writes; the outcome without it."""

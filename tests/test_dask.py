@@ -241,7 +241,7 @@ def test_streamed_writes_land_once_and_equal_direct_writes(tmp_path):
     direct.put_scan(4, {"kept": [[0.1, 0.2]], "F": [None, [1.5]]})
 
     def task(sent):
-        ts = TaskStore("t0", sink=sent.append)
+        ts = TaskStore("t0", sink=sent.append, batch_s=0.0)  # one operation per message
         c = CachedProblem(_Square(), ts, "start", 0)
         for x in _points():
             c.evaluate(x, False)
@@ -255,13 +255,33 @@ def test_streamed_writes_land_once_and_equal_direct_writes(tmp_path):
     streamed = EvaluationStore(tmp_path / "streamed.sqlite")
     rx = StreamReceiver(streamed)
     for m in [first[0], first[2], first[2], first[1], *first[3:5], *rerun]:
-        rx.accept(m)  # out of order, twice, then the re-run's whole list
+        rx.receive(m)  # out of order, twice, then the re-run's whole list
     rx.accept_all(ts.ops)  # and the complete list the task returned
     assert rx.puts == len(_points()) and rx.restarts == 1
     key = lambda r: (r.stage, r.start, r.seq, r.x.tobytes(), r.evaluation.status,  # noqa: E731
                      r.evaluation.reason, json.dumps(r.evaluation.metrics))
     assert [key(r) for r in streamed.records()] == [key(r) for r in direct.records()]
     assert streamed.scans() == direct.scans()
+
+
+def test_batched_messages_and_the_returned_list_complete_each_other(tmp_path):
+    sent = []
+    ts = TaskStore("t1", sink=sent.append, batch_s=3600.0)
+    c = CachedProblem(_Square(), ts, "start", 0)
+    for x in _points():
+        c.evaluate(x, False)
+    assert len(sent) == 1  # the first operation went at once, the others wait for a message
+    rx = StreamReceiver(EvaluationStore(tmp_path / "s.sqlite"))
+    for m in sent:
+        rx.receive(m)
+    assert rx.puts == 1
+    rx.accept_all(ts.ops)  # the task's outcome brings the rest
+    assert rx.puts == len(_points()) and rx.restarts == 0
+    ts2 = TaskStore("t2", sink=sent.append, batch_s=0.0)
+    ts2.put_values(ts.rows[("start", 0, 0)])
+    ts2.put_values(ts.rows[("start", 0, 1)])
+    rx.receive("\n".join(sent[-2:]))  # two operations in one message
+    assert rx.applied["t2"] == 2
 
 
 def test_a_conflicting_streamed_row_is_refused(tmp_path):

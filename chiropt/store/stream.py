@@ -12,8 +12,11 @@ Conventions (common practice, no source)
 - A write is an *operation*: ``put`` (one evaluation row, as its column values), ``scan``
   (an exploration scan) or ``supersede`` (the rows moved aside when a budget changed a
   search's path). A task numbers its operations 0, 1, 2, ... in the order it makes them.
-- Messages are JSON text (``{"token", "i", "op", ...}``), so any transport that carries
+- Operations are JSON text (``{"token", "i", "op", ...}``), so any transport that carries
   strings carries them, and floats arrive bit for bit (shortest round-trip decimal text).
+  A message is one or more operations, one per line: an operation made less than
+  ``batch_s`` after the last message waits for the next one (evaluations of 10 ms travel
+  some twenty to a message; slow ones one by one, as they are made).
 - The task also keeps every operation it made (``ops``) and returns them with its outcome:
   streamed messages are for progress and for what survives a killed run process; the
   returned list is complete. ``StreamReceiver`` applies operation ``i`` of a task only when
@@ -27,6 +30,7 @@ Conventions (common practice, no source)
 from __future__ import annotations
 
 import json
+import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
@@ -50,7 +54,9 @@ class TaskStore:
     scan_data : dict
         ``geometry index -> scan data`` of the stored exploration scans it may replay.
     sink : callable, optional
-        ``sink(message: str)`` sends one operation to the run process (``None``: keep only).
+        ``sink(message: str)`` sends operations to the run process (``None``: keep only).
+    batch_s : float
+        Operations made within this time of the last message wait for the next one [s].
     """
 
     token: str
@@ -58,6 +64,9 @@ class TaskStore:
     scan_data: dict = field(default_factory=dict)
     sink: Callable[[str], None] | None = None
     ops: list = field(default_factory=list)
+    batch_s: float = 0.2
+    _pending: list = field(default_factory=list, repr=False)
+    _sent_at: float = field(default=float("-inf"), repr=False)
 
     def __str__(self) -> str:
         return f"the run's store (task {self.token})"
@@ -66,8 +75,14 @@ class TaskStore:
         msg = json.dumps({"token": self.token, "i": len(self.ops), **op},
                          separators=(",", ":"))
         self.ops.append(msg)
-        if self.sink is not None:
-            self.sink(msg)
+        if self.sink is None:
+            return
+        self._pending.append(msg)
+        now = time.monotonic()
+        if now - self._sent_at >= self.batch_s:
+            self.sink("\n".join(self._pending))
+            self._pending.clear()
+            self._sent_at = now
 
     # the part of ``EvaluationStore`` that ``CachedProblem`` and the exploration use
     def get(self, stage: str, start: int, seq: int) -> StoredEvaluation | None:
@@ -130,6 +145,11 @@ class StreamReceiver:
         self.puts = 0  # rows written by this receiver
         self.restarts = 0  # streams that began again at operation 0: re-run tasks
         self._streamed: set[str] = set()
+
+    def receive(self, message: str) -> None:
+        """Apply the operations of one streamed message (one per line)."""
+        for line in message.split("\n"):
+            self.accept(line)
 
     def accept(self, message: str, streamed: bool = True) -> None:
         """Apply one operation if it is the next one of its task.
