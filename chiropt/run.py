@@ -866,6 +866,8 @@ def _run_locked(goal, run_dir, store, lock, base, executor, progress, interval_s
         stream = _Stream(executor, store)
     if hasattr(executor, "describe"):
         log(executor.describe())
+        if executor.workers == 0:
+            log("note: no worker has joined the scheduler yet; the tasks wait for workers")
         for line in executor.version_mismatches():
             log(f"WARNING: {line}: install the same chiropt and material data on every "
                 "worker, or the same seed may not give the same evaluations")

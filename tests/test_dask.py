@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import signal
 import sqlite3
 import subprocess
@@ -362,13 +363,15 @@ distributed = pytest.importorskip("distributed")
 def test_quickstart_on_two_dask_workers_equals_the_local_executor(tmp_path):
     (goal,) = load_goal(_quickstart(tmp_path))
     local = run_goal(goal, out=tmp_path / "local", workers=2, progress=False)
-    dask = run_goal(goal, out=tmp_path / "dask", executor=TWO, progress=False)
+    dask = run_goal(goal, out=tmp_path / "dask", executor=TWO, progress=True)
     assert local.status == dask.status == "complete"
     assert local.n_evaluations == dask.n_evaluations > 20
     _same_store(local.run_dir, dask.run_dir)
     assert onp.array_equal(local.front_objectives, dask.front_objectives)
     log = (dask.run_dir / "run.log").read_text()
     assert "executor: dask scheduler tcp://" in log and "2 workers" in log
+    # progress: workers, tasks in flight, evaluations per second, ETA
+    assert re.search(r"; 2 workers, \d+ tasks in flight, [0-9.e+]+ evaluations/s; .*ETA", log)
 
 
 @pytest.fixture(scope="module")

@@ -34,6 +34,7 @@ Conventions
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import sqlite3
@@ -345,6 +346,19 @@ class EvaluationStore:
         cols = _COLUMNS.split(", ", 1)[1]
         return [tuple(r) for r in self._conn.execute(
             f"SELECT {cols} FROM evaluations WHERE {where} ORDER BY start, seq", args)]
+
+    @contextlib.contextmanager
+    def transaction(self):
+        """Group the writes of a ``with`` block into one SQLite transaction (one commit for
+        many rows; rolled back if the block raises)."""
+        conn = self._conn
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            yield self
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+        conn.execute("COMMIT")
 
     def get(self, stage: str, start: int, seq: int) -> StoredEvaluation | None:
         """The stored evaluation ``(stage, start, seq)``, or None."""

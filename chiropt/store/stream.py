@@ -147,9 +147,10 @@ class StreamReceiver:
         self._streamed: set[str] = set()
 
     def receive(self, message: str) -> None:
-        """Apply the operations of one streamed message (one per line)."""
-        for line in message.split("\n"):
-            self.accept(line)
+        """Apply the operations of one streamed message (one per line), in one commit."""
+        with self.store.transaction():
+            for line in message.split("\n"):
+                self.accept(line)
 
     def accept(self, message: str, streamed: bool = True) -> None:
         """Apply one operation if it is the next one of its task.
@@ -178,6 +179,7 @@ class StreamReceiver:
         self.applied[token] = done + 1
 
     def accept_all(self, messages) -> None:
-        """Apply a task's complete list of operations (its returned ``ops``)."""
-        for m in messages:
-            self.accept(m, streamed=False)
+        """Apply a task's complete list of operations (its returned ``ops``), in one commit."""
+        with self.store.transaction():
+            for m in messages:
+                self.accept(m, streamed=False)
