@@ -50,7 +50,7 @@ variables:
   lattice.period_nm: {min: 300, max: 520}
 objectives:
   - {maximize: g, at_nm: 700}
-search: {algorithm: COBYLA, starts: 2, max_evals_per_start: 300, xtol_rel: 0, ftol_rel: 0}
+search: {algorithm: COBYLA, starts: 2, max_evals_per_start: 200, xtol_rel: 0, ftol_rel: 0}
 seed: 3
 """
 
