@@ -71,6 +71,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import queue
 import socket
 import sqlite3
 import sys
@@ -950,7 +951,6 @@ class _Stream:
 
     def __init__(self, executor, store: EvaluationStore):
         import functools
-        import queue
         import uuid
 
         from chiropt.search.cluster import emit
@@ -975,7 +975,7 @@ class _Stream:
         while True:
             try:
                 msg = self.inbox.get_nowait()
-            except Exception:  # queue.Empty
+            except queue.Empty:
                 return
             self.receiver.receive(msg)
 
