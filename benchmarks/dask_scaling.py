@@ -2,7 +2,8 @@
 
 Run by hand (needs ``chiropt[cluster]``):
 
-    python benchmarks/dask_scaling.py            # about two minutes on 2 cores
+    python benchmarks/dask_scaling.py            # a few minutes on 2 cores
+    python benchmarks/dask_scaling.py --quick    # parts (2)-(4) only
 
 Prints: (1) evaluations per second of a real goal (dipole model, 4 derivative-free
 searches) on a local Dask cluster of 1 and 2 workers beside the local process pool;
@@ -102,11 +103,13 @@ def main():
     print(f"cores: {os.cpu_count()}")
     print("(1) throughput of a real goal (dipole model, 4 searches of <= 150 evaluations)")
     rates = {}
-    for n in (1, 2):
+    quick = "--quick" in sys.argv  # parts (2)-(4) only
+    for n in () if quick else (1, 2):
         rates[("local", n)] = throughput(goal, ExecutorSettings(), n, f"local pool, {n} workers")
         rates[("dask", n)] = throughput(goal, ExecutorSettings(kind="dask", workers=n), n,
                                         f"dask local cluster, {n} workers")
-    serial = throughput(goal, ExecutorSettings(), 0, "in this process (workers 0)")[0]
+    serial = (45.0 if quick else  # --quick: the figure of a full run here
+              throughput(goal, ExecutorSettings(), 0, "in this process (workers 0)")[0])
     t_eval = 1.0 / serial
 
     print("(2) scheduling overhead per task (empty task, 1 worker)")
@@ -143,17 +146,23 @@ def main():
                 m = 2000 if pause == 0 else 300
                 t0 = time.perf_counter()
                 fut = ex.submit(_stream_rows, topic, values, m, pause)
-                messages = 0
+                messages, applying = 0, 0.0
                 while rx.puts < m and time.perf_counter() - t0 < 120:
                     try:
-                        rx.receive(inbox.get(timeout=0.05))
+                        msg = inbox.get(timeout=0.05)
+                        a0 = time.perf_counter()
+                        rx.receive(msg)
+                        applying += time.perf_counter() - a0
                         messages += 1
                     except queue.Empty:
                         if fut.done():
-                            rx.accept_all(fut.result()[1])
+                            ops = fut.result()[1]
+                            a0 = time.perf_counter()
+                            rx.accept_all(ops)
+                            applying += time.perf_counter() - a0
                 wall = time.perf_counter() - t0
                 spent = fut.result()[0]
-                streamed[pause] = (m, messages, wall, spent, rx.puts)
+                streamed[pause] = (m, messages, wall, spent, rx.puts, applying)
                 rx.store.close()
     print(f"  round trip of one task alone: median {1e3 * statistics.median(lat):.2f} ms")
     print(f"  pipelined ({n} tasks in flight): {1e3 * piped:.2f} ms per task")
@@ -170,15 +179,14 @@ def main():
     probe.put_values(values)
     print(f"  one streamed evaluation: {len(probe.ops[0])} bytes of JSON (dipole model, one "
           "wavelength)")
-    for pause, (m, messages, wall, spent, puts) in streamed.items():
+    for pause, (m, messages, wall, spent, puts, applying) in streamed.items():
         what = ("as fast as they come" if pause == 0
                 else f"one every {1e3 * pause:.0f} ms")
-        print(f"  {m} evaluations {what}: {messages} messages, {1e6 * spent / m:.0f} us per "
-              f"evaluation in the worker; stored by the run process "
-              f"{1e3 * (wall - m * pause) / m:.3f} ms per evaluation beyond the pauses "
-              f"({puts} of {m} stored)")
-    m, _, wall, _, _ = streamed[0.0]
-    stream_s = wall / m  # the run process's cost per evaluation at full rate
+        print(f"  {m} evaluations {what}: {messages} messages; {1e6 * spent / m:.0f} us per "
+              f"evaluation in the worker, {1e6 * applying / m:.0f} us to store it in the run "
+              f"process; {wall:.2f} s from submission to the last stored ({puts} of {m})")
+    m, _, wall, _, _, applying = streamed[0.0]
+    stream_s = applying / m  # the run process's cost per evaluation (its serial part)
 
     print("(4) expected run time on N nodes (model below)")
     cores, searches, evals = 32, 256, 200
@@ -204,7 +212,7 @@ def main():
           "which writes them); (percent) = efficiency against the ideal\n  split of all "
           "evaluations over every worker. Beyond nodes x cores = searches more nodes add "
           "nothing:\n  raise search.starts or front.points.")
-    for n in (1, 2):
+    for n in () if quick else (1, 2):
         r, _ = rates[("dask", n)]
         lr, _ = rates[("local", n)]
         print(f"  measured: {n} dask workers {r:.1f} evaluations/s = {r / lr:.0%} of the "
