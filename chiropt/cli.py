@@ -298,11 +298,16 @@ def _cmd_run(args) -> int:
 
     from chiropt.goals import load_goal
 
+    executor = None
+    if args.executor is not None:
+        from chiropt.goals.schema import parse_executor_option
+
+        executor = parse_executor_option(args.executor)
     for g in load_goal(args.goal):
         if g.name_note:
             print(g.name_note, file=sys.stderr)
     summaries = run_goal_file(args.goal, out=args.out, workers=args.workers,
-                              progress=not args.quiet)
+                              progress=not args.quiet, executor=executor)
     for s in summaries:
         print(f"{s.run_dir}: {s.status}; {s.n_evaluations} evaluations ({s.n_failed} failed), "
               f"front of {_count(len(s.front), 'design')}, "
@@ -455,7 +460,12 @@ def build_parser() -> argparse.ArgumentParser:
     ru.add_argument("goal", help="goal file (YAML); see `chiropt goal --explain`")
     ru.add_argument("--out", help="folder of run folders (default: runs/ in the current folder)")
     ru.add_argument("--workers", type=int, default=None,
-                    help="worker processes (default: all cores; 0: in this process)")
+                    help="worker processes (default: all cores; 0: in this process); with "
+                         "--executor dask, the workers of the local Dask cluster")
+    ru.add_argument("--executor", metavar="local|dask|ADDRESS",
+                    help="where the searches run (overrides the goal's executor): local "
+                         "(process pool), dask (a local Dask cluster) or the address of a "
+                         "Dask scheduler, e.g. tcp://HOST:8786")
     ru.add_argument("--quiet", action="store_true", help="no progress display")
     ru.set_defaults(func=_cmd_run)
     rp = sub.add_parser("report", help="one self-contained HTML page of one or more run "

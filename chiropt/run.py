@@ -35,8 +35,15 @@ Searches
   each tracing a whole front (stage ``front-k``). The reported front is the non-dominated
   set of every feasible evaluation of the run, explored ones included.
 - Searches run through an ``Executor`` (a process pool by default; ``workers=0`` runs them
-  in this process). Each search has a fixed evaluation cap, ``max_evals_per_start`` lowered
-  to ``budget.evaluations / number of searches``, so results do not depend on timing.
+  in this process; the goal's ``executor`` or ``--executor``: a Dask cluster,
+  ``chiropt.search.cluster``). Each search has a fixed evaluation cap,
+  ``max_evals_per_start`` lowered to ``budget.evaluations / number of searches``, so
+  results do not depend on timing, nor on the executor or its number of workers.
+- On an executor whose workers lack the run folder (``streams``: Dask), each task carries
+  the stored rows of its searches (``chiropt.store.stream.TaskStore``) and sends its writes
+  back as messages and with its outcome; this process alone writes them into the store,
+  each once (``StreamReceiver``), so a task run again after a lost worker stores nothing
+  twice.
 - Resume: the same command replays the stored evaluations (``CachedProblem``) and goes on.
   The wall-time budget counts per invocation; when it runs out, fresh evaluations stop
   (``DeadlineReached``, never stored) and the report is written from what is stored.
@@ -67,6 +74,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import queue
 import socket
 import sqlite3
 import sys
@@ -82,7 +90,7 @@ import yaml
 
 from chiropt.errors import InputError
 from chiropt.goals.objectives import DeadlineReached, GoalProblem, check_goal
-from chiropt.goals.schema import WAVELENGTH_PATH, Goal, load_goal
+from chiropt.goals.schema import WAVELENGTH_PATH, ExecutorSettings, Goal, load_goal
 from chiropt.model import LMAX_CAP, validity
 from chiropt.response import VALIDITY_TOLERANCE
 from chiropt.search.driver import minimize
@@ -96,7 +104,9 @@ from chiropt.search.multistart import sobol_starts, start_seed
 from chiropt.search.pareto import hypervolume, non_dominated
 from chiropt.sensitivity import compute_quantities
 from chiropt.report.labels import objective_label, spec_label
-from chiropt.store.evaluations import CachedProblem, CachingWrap, EvaluationStore, close_all
+from chiropt.store.evaluations import (CachedProblem, CachingWrap, EvaluationStore, close_all,
+                                       open_store)
+from chiropt.store.stream import StreamReceiver, snapshot
 
 try:
     import fcntl
@@ -113,6 +123,7 @@ SUMMARY_NAME = "summary.json"
 ROBUST_SAMPLES_NAME = "robust_samples.json"
 LOCK_NAME = ".lock"
 REPRODUCE_TOL = 1e-9
+STREAM_POLL_S = 0.2  # how often streamed evaluations are written into the store [s]
 MERGE_FRACTION = 1e-3
 
 
@@ -125,7 +136,7 @@ class SearchTask:
     """One unit of work for an executor: a local search or a whole front trace."""
 
     goal: Goal
-    store_path: str
+    store_path: Any  # the store file, or a TaskStore (chiropt.store.stream) on a cluster
     index: int
     x0: onp.ndarray
     seed: int
@@ -157,7 +168,7 @@ class ExploreTask:
     """A batch of exploration geometries: each scanned, its kept points evaluated."""
 
     goal: Goal
-    store_path: str
+    store_path: Any  # as SearchTask.store_path
     index: int
     geometries: tuple[int, ...]
     X: onp.ndarray
@@ -176,15 +187,34 @@ class TaskOutcome:
     index: int
     status: str  # "done", "deadline", "error"
     message: str = ""
+    ops: tuple = ()  # a TaskStore's writes, every one (chiropt.store.stream)
 
 
 def _run_task(task: SearchTask | ExploreTask) -> TaskOutcome:
     try:
-        return _explore(task) if isinstance(task, ExploreTask) else _search(task)
+        out = _explore(task) if isinstance(task, ExploreTask) else _search(task)
     except Exception as exc:  # a search that dies is a failed search, never a silent one
-        return TaskOutcome(task.index, "error", f"{type(exc).__name__}: {exc}")
+        out = TaskOutcome(task.index, "error", f"{type(exc).__name__}: {exc}")
     finally:
         close_all()  # leaves no -wal/-shm behind once the last connection closes
+    ops = getattr(task.store_path, "ops", None)
+    if ops is not None:
+        out.ops = tuple(ops)
+    return out
+
+
+def task_searches(task: SearchTask | ExploreTask) -> list[tuple[str, int | None]]:
+    """The ``(stage, start)`` searches whose stored rows a task replays (None: all)."""
+    if isinstance(task, ExploreTask):
+        return [("explore", g) for g in task.geometries]
+    if task.kind == "single":
+        return [("start", task.index)]
+    if task.kind == "anchor":
+        stage = f"anchor{task.k + 1}"
+        return [(stage, task.start), (f"{stage}-lex", task.start)]
+    if task.kind == "level":
+        return [(f"level-{task.k}", task.start)]
+    return [(f"front-{task.index}", None)]
 
 
 def _search(task: SearchTask) -> TaskOutcome:
@@ -236,7 +266,7 @@ def _explore(task: ExploreTask) -> TaskOutcome:
     problem = GoalProblem(goal, deadline=task.deadline, stop_file=task.stop_file)
     M = problem.n_objectives
     scal = Scalarized(problem, "single", 0, 0.0, onp.zeros(M), onp.ones(M))
-    store = EvaluationStore(task.store_path)
+    store = open_store(task.store_path)
     grid = explore_grid(problem, e.wavelength_points)
     try:
         for g, x in zip(task.geometries, task.X, strict=True):
@@ -411,7 +441,7 @@ def _with_seeds(starts, seeds: onp.ndarray):
 def goal_identity(goal: Goal) -> str:
     """Hash of what decides a run's evaluations: not its description, not its budgets."""
     d = goal.to_dict()
-    for key in ("description", "budget"):
+    for key in ("description", "budget", "executor"):
         d.pop(key, None)
     d["search"] = {k: v for k, v in d["search"].items() if k != "max_evals_per_start"}
     # not evaluations either: the hypervolume reference, how geometries are batched, and
@@ -521,6 +551,8 @@ class Progress:
         self.worst = None
         self.t0 = time.time()
         self.n0: int | None = None
+        self.n_workers: int | None = None  # set by the run: workers of the executor now
+        self.in_flight: int | None = None  # tasks submitted and not finished
 
     @property
     def total(self) -> int:
@@ -599,6 +631,19 @@ class Progress:
         word = "ETA ~" if est and not capped else "ETA <= "
         return f"{word}{_duration(left)}"
 
+    def rate(self) -> float:
+        """Fresh evaluations per second of this invocation (replayed rows not counted)."""
+        el = time.time() - self.t0
+        fresh = self.count - (self.n0 or 0)
+        return fresh / el if el > 0 else 0.0
+
+    def pool(self) -> str:
+        """Workers, tasks in flight and evaluations per second ('' before the run sets them)."""
+        if self.n_workers is None:
+            return ""
+        return (f"{self.n_workers} workers, {self.in_flight or 0} tasks in flight, "
+                f"{self.rate():.3g} evaluations/s")
+
     def status(self) -> str:
         best = ""
         if self.front:
@@ -614,9 +659,10 @@ class Progress:
         return best
 
     def line(self) -> str:
-        best, eta = self.status(), self.eta()
+        best, eta, pool = self.status(), self.eta(), self.pool()
         return (f"{self.count} evaluations ({self.failed} failed) of <= {self.total}"
-                + (f"; {best}" if best else "") + (f", {eta}" if eta else ""))
+                + (f"; {pool}" if pool else "") + (f"; {best}" if best else "")
+                + (f", {eta}" if eta else ""))
 
     def report(self) -> None:
         self.poll()
@@ -624,7 +670,8 @@ class Progress:
             self.bar.total = max(self.count, self.count + self.remaining()[0])
             self.bar.n = self.count
             self.bar.set_postfix_str(", ".join(
-                t for t in (f"{self.failed} failed", self.status(), self.eta()) if t),
+                t for t in (f"{self.failed} failed", self.pool(), self.status(), self.eta())
+                if t),
                 refresh=False)
             self.bar.refresh()
         elif self.emit is not None:
@@ -705,16 +752,47 @@ def _workers(workers) -> int:
     return n
 
 
-def validate_run(goal: Goal, workers: int | None = None) -> dict[str, Any]:
+def validate_run(goal: Goal, workers: int | None = None,
+                 executor: ExecutorSettings | None = None) -> dict[str, Any]:
     """Every check of a run that needs no run folder; return the base design's quantities."""
     _workers(workers)
     stage_starts(goal)
+    settings = executor or goal.executor
+    _executor_workers(settings, workers)
+    if settings.kind == "dask":
+        from chiropt.search.cluster import require_distributed
+
+        require_distributed("--executor" if executor is not None else "executor")
     return check_goal(goal)
+
+
+def _executor_workers(settings: ExecutorSettings, workers: int | None) -> int:
+    """Worker processes of a local pool or a local Dask cluster (0: this process)."""
+    if settings.kind == "local":
+        return _workers(workers)
+    n = workers if workers is not None else (settings.workers or os.cpu_count() or 1)
+    if settings.address is None and n < 1:
+        raise InputError("--workers", f"got {n}, allowed an integer >= 1 with a local Dask "
+                                      "cluster")
+    return n
+
+
+def make_executor(settings: ExecutorSettings, workers: int | None = None):
+    """The executor of a run (``executor`` of the goal, or ``--executor``); close it after."""
+    n = _executor_workers(settings, workers)
+    if settings.kind == "local":
+        return SerialExecutor() if n == 0 else ProcessExecutor(n)
+    from chiropt.search.cluster import DaskExecutor
+
+    if settings.address is not None:
+        return DaskExecutor(settings.address, key="executor.dask.address")
+    return DaskExecutor(workers=n, threads_per_worker=settings.threads_per_worker,
+                        key="executor.dask")
 
 
 def run_goal(goal: Goal, *, out: str | Path = "runs", workers: int | None = None,
              progress: bool = True, interval_s: float = 2.0,
-             base: dict[str, Any] | None = None) -> RunSummary:
+             base: dict[str, Any] | None = None, executor=None) -> RunSummary:
     """Run one goal (one material) into ``out/<run_name>/``, resuming what is stored.
 
     Parameters
@@ -725,6 +803,7 @@ def run_goal(goal: Goal, *, out: str | Path = "runs", workers: int | None = None
     progress : print progress to stderr (always written to run.log)
     interval_s : seconds between progress updates [s]
     base : result of ``validate_run`` when the caller already ran it
+    executor : ``ExecutorSettings`` (default: the goal's ``executor``)
 
     Raises
     ------
@@ -732,24 +811,31 @@ def run_goal(goal: Goal, *, out: str | Path = "runs", workers: int | None = None
         Before anything is written (invalid settings, pre-run checks); ``RunFolderBusy``
         when another process runs the same folder.
     """
-    n_workers = _workers(workers)
     if base is None:
-        base = validate_run(goal, workers)
-    run_dir = Path(out) / goal.run_name
-    run_dir.mkdir(parents=True, exist_ok=True)
-    lock = RunLock(run_dir)
-    store = None
+        base = validate_run(goal, workers, executor)
+    # made before the run folder: a scheduler that does not answer leaves no files
+    pool = make_executor(executor or goal.executor, workers)
+    lock = store = None
     try:
+        run_dir = Path(out) / goal.run_name
+        run_dir.mkdir(parents=True, exist_ok=True)
+        lock = RunLock(run_dir)
         store = EvaluationStore(run_dir / STORE_NAME)
-        return _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_s)
+        return _run_locked(goal, run_dir, store, lock, base, pool, progress, interval_s)
     finally:
-        if store is not None:
-            store.close()
-        close_all()
-        lock.release()
+        try:
+            pool.close()  # closed before the report already, unless the run never started
+        except KeyboardInterrupt:
+            pool.terminate() if hasattr(pool, "terminate") else None
+        finally:
+            if store is not None:
+                store.close()
+            close_all()
+            if lock is not None:
+                lock.release()
 
 
-def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_s):
+def _run_locked(goal, run_dir, store, lock, base, executor, progress, interval_s):
     tty = progress and sys.stderr.isatty()
     log = _Log(run_dir / "run.log", echo=progress)
     store_path = store.path
@@ -826,12 +912,21 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
                     emit=log if progress else None, bar=bar)
     prog.poll()
     status = "complete"
-    executor = (SerialExecutor() if n_workers == 0 else ProcessExecutor(n_workers))
     outcomes: dict[str, TaskOutcome] = {}
     tasks: list = list(explore_tasks)
+    stream = None
+    if getattr(executor, "streams", False):  # workers without the run folder
+        stream = _Stream(executor, store)
+    if hasattr(executor, "describe"):
+        log(executor.describe())
+        if executor.workers == 0:
+            log("note: no worker has joined the scheduler yet; the tasks wait for workers")
+        for line in executor.version_mismatches():
+            log(f"WARNING: {line}: install the same chiropt and material data on every "
+                "worker, or the same seed may not give the same evaluations")
     try:
-        status = _execute(executor, explore_tasks, outcomes, prog, log, n_workers, progress,
-                          tty, interval_s)
+        status = _execute(executor, explore_tasks, outcomes, prog, log, progress, tty,
+                          interval_s, stream)
         stopped = any(o.status != "done" for o in outcomes.values())
         if status == "complete" and not stopped:
             local, how = local_tasks(goal, store, common)
@@ -840,8 +935,8 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
             for t in local:
                 prog.add_task(t.key, cap * (2 if t.kind == "anchor" else 1))
             tasks += local
-            status = _execute(executor, local, outcomes, prog, log, n_workers, progress, tty,
-                              interval_s)
+            status = _execute(executor, local, outcomes, prog, log, progress, tty, interval_s,
+                              stream)
     except KeyboardInterrupt:
         status = "interrupted"
         stop_file.touch()  # workers stop at their next fresh evaluation
@@ -854,10 +949,17 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
             if hasattr(executor, "terminate"):
                 executor.terminate()
             status = "interrupted"
+        if stream is not None:
+            stream.drain()  # what arrived before the executor closed
         stop_file.unlink(missing_ok=True)
         if bar is not None:
             bar.close()
             log.bar = None
+    if stream is not None:
+        n = stream.receiver.restarts
+        log(f"streamed from the workers: {stream.receiver.puts} evaluations stored"
+            + (f"; {n} {'task' if n == 1 else 'tasks'} ran again from its start (a worker "
+               "was lost), the writes repeated were applied once" if n else ""))
     errors = [o for o in outcomes.values() if o.status == "error"]
     for key, o in outcomes.items():
         if o.status == "error":
@@ -893,18 +995,62 @@ def _run_locked(goal, run_dir, store, lock, base, n_workers, progress, interval_
     return summary
 
 
-def _execute(executor, tasks, outcomes: dict, prog: Progress, log, n_workers: int,
-             progress: bool, tty: bool, interval_s: float) -> str:
+class _Stream:
+    """The run's side of a cluster whose workers lack the run folder: each task carries the
+    stored rows it replays (``chiropt.store.stream.TaskStore``), and its writes come back
+    as messages (``DaskExecutor.subscribe``) and with its outcome; this process alone
+    writes them into the store, each once."""
+
+    def __init__(self, executor, store: EvaluationStore):
+        import functools
+        import uuid
+
+        from chiropt.search.cluster import emit
+
+        self.store = store
+        self.receiver = StreamReceiver(store)
+        self.inbox: queue.SimpleQueue = queue.SimpleQueue()
+        self.run_id = uuid.uuid4().hex[:12]
+        topic = f"chiropt-{self.run_id}"
+        self.sink = functools.partial(emit, topic)
+        executor.subscribe(topic, self.inbox.put)
+
+    def ship(self, task):
+        """The task with its own store: its stored rows and scans, and the sink."""
+        token = f"{self.run_id}-{task.key}"
+        geometries = task.geometries if isinstance(task, ExploreTask) else ()
+        return replace(task, store_path=snapshot(self.store, token, task_searches(task),
+                                                 geometries, self.sink))
+
+    def drain(self) -> None:
+        """Apply the messages that arrived."""
+        while True:
+            try:
+                msg = self.inbox.get_nowait()
+            except queue.Empty:
+                return
+            self.receiver.receive(msg)
+
+    def finish(self, outcome: TaskOutcome) -> TaskOutcome:
+        """Apply a finished task's complete list of writes; the outcome without it."""
+        self.drain()
+        self.receiver.accept_all(outcome.ops)
+        return replace(outcome, ops=())
+
+
+def _execute(executor, tasks, outcomes: dict, prog: Progress, log, progress: bool, tty: bool,
+             interval_s: float, stream: _Stream | None = None) -> str:
     """Run ``tasks`` on ``executor``, recording each outcome under its key; the status."""
     stop_reports = threading.Event()
     reporter = None
     # in this process (workers 0) the searches run inside submit: report from a thread
-    if n_workers == 0 and progress:
+    if isinstance(executor, SerialExecutor) and progress:
         reporter = threading.Thread(target=_report_every, daemon=True, args=(
             prog, stop_reports, interval_s if tty else 10 * interval_s), name="chiropt-progress")
         reporter.start()
     try:
-        futures = {executor.submit(_run_task, t): t for t in tasks}
+        futures = {executor.submit(_run_task, stream.ship(t) if stream else t): t
+                   for t in tasks}
     finally:
         stop_reports.set()
         if reporter is not None:
@@ -914,16 +1060,25 @@ def _execute(executor, tasks, outcomes: dict, prog: Progress, log, n_workers: in
         executor._logged = 1
     last = logged = time.time()
     pending = set(futures)
+    prog.n_workers = executor.workers
     while pending:
-        done, pending = wait(pending, timeout=interval_s, return_when=FIRST_COMPLETED)
+        done, pending = wait(pending, timeout=min(interval_s, STREAM_POLL_S) if stream
+                             else interval_s, return_when=FIRST_COMPLETED)
+        if stream is not None:
+            stream.drain()
         for f in done:
             t = futures[f]
             try:
                 outcomes[t.key] = f.result()
-            except Exception as exc:  # a worker process that died (BrokenProcessPool)
+                if stream is not None:
+                    outcomes[t.key] = stream.finish(outcomes[t.key])
+            except Exception as exc:  # a worker process that died (BrokenProcessPool), a
+                # task whose workers kept dying (KilledWorker)
                 outcomes[t.key] = TaskOutcome(t.index, "error", f"{type(exc).__name__}: {exc}")
             prog.finished.add(t.key)
+        prog.in_flight = len(pending)
         if time.time() - last >= (interval_s if tty else 10 * interval_s) or not pending:
+            prog.n_workers = executor.workers
             prog.report()
             last = time.time()
             if tty and (last - logged >= 10 * interval_s or not pending):
@@ -938,20 +1093,23 @@ def _report_every(prog: Progress, stop: threading.Event, period_s: float) -> Non
 
 
 def run_goal_file(path: str | Path, *, out: str | Path | None = None, workers: int | None = None,
-                  progress: bool = True) -> list[RunSummary]:
+                  progress: bool = True,
+                  executor: ExecutorSettings | None = None) -> list[RunSummary]:
     """Run every material of a goal file; with several, also write ``<name>-compare.png``.
 
     ``out`` defaults to ``runs/`` of the current folder. Every material is validated before
     the first run folder is made; an interrupted material ends the whole run (the
-    summaries so far are returned, the last with status ``interrupted``).
+    summaries so far are returned, the last with status ``interrupted``). ``executor``
+    overrides the goal file's ``executor`` (``chiropt run --executor``).
     """
     goals = load_goal(path)
     _workers(workers)
-    bases = [validate_run(g, workers) for g in goals]
+    bases = [validate_run(g, workers, executor) for g in goals]
     root = Path(out) if out is not None else Path.cwd() / "runs"
     summaries = []
     for g, base in zip(goals, bases, strict=True):
-        summaries.append(run_goal(g, out=root, workers=workers, progress=progress, base=base))
+        summaries.append(run_goal(g, out=root, workers=workers, progress=progress, base=base,
+                                  executor=executor))
         if summaries[-1].status == "interrupted":
             return summaries
     if len(summaries) > 1:

@@ -134,6 +134,15 @@ Metrics
 ``seed``
     Seed of the start points and of the stochastic algorithms (default 1). Same goal, same
     seed: same evaluations, same front.
+``executor``
+    Where the searches run: ``local`` (default: a pool of worker processes on this machine,
+    ``--workers`` of them), ``{dask: {address: tcp://HOST:8786}}`` (the workers of a running
+    Dask scheduler, on any number of machines) or ``{dask: {local_cluster: {workers: N,
+    threads_per_worker: 1}}}`` (a Dask cluster on this machine that the run starts and
+    stops; ``executor: dask`` is one with a worker per core). Dask needs the optional extra
+    ``chiropt[cluster]``. ``chiropt run --executor`` overrides this key. The executor never
+    changes the evaluations: same seed, same store, whatever runs it and however many
+    workers there are, so a run may be resumed on another executor.
 """
 
 from __future__ import annotations
@@ -155,9 +164,10 @@ from chiropt.yamlio import Located, check_keys, load_yaml
 
 __all__ = [
     "AVERAGED", "EXPLAIN", "FABRICATION_KINDS", "FRONT_METHODS", "METRIC_NAMES", "Budget",
-    "ExploreSettings", "FabricationConstraint", "Goal", "MetricConstraint", "Objective",
+    "ExecutorSettings", "ExploreSettings", "FabricationConstraint", "Goal", "MetricConstraint",
+    "Objective",
     "SearchSettings", "Variable", "WavelengthSpec", "goal_from_dict", "load_goal",
-    "parse_wall_time",
+    "parse_executor_option", "parse_wall_time",
 ]  # fmt: skip
 
 # the user reference only: from its heading on (the module notes above it are for developers)
@@ -174,7 +184,7 @@ ALIASES = {"radius_nm": "particles[0].radius_nm", "period_nm": "lattice.period_n
            "wavelength_nm": WAVELENGTH_PATH, "polar_deg": "illumination.polar_deg",
            "height_nm": "region.height_nm"}
 TOP_KEYS = {"name", "description", "design", "materials", "variables", "links", "fixed",
-            "objectives", "constraints", "search", "budget", "seed"}
+            "objectives", "constraints", "search", "budget", "seed", "executor"}
 DEFAULT_BAND_POINTS = 5
 
 
@@ -377,6 +387,28 @@ class Budget:
 
 
 @dataclass(frozen=True)
+class ExecutorSettings:
+    """Where the searches run (``executor``): ``kind`` "local" or "dask"; a Dask scheduler's
+    ``address``, or (None) a local cluster of ``workers`` processes (None: one per core) with
+    ``threads_per_worker`` threads each."""
+
+    kind: str = "local"
+    address: str | None = None
+    workers: int | None = None
+    threads_per_worker: int = 1
+
+    def to_dict(self) -> Any:
+        if self.kind == "local":
+            return "local"
+        if self.address is not None:
+            return {"dask": {"address": self.address}}
+        cluster: dict[str, Any] = {"threads_per_worker": self.threads_per_worker}
+        if self.workers is not None:
+            cluster = {"workers": self.workers, **cluster}
+        return {"dask": {"local_cluster": cluster}}
+
+
+@dataclass(frozen=True)
 class Goal:
     """A resolved goal for one material: everything a run needs, validated.
 
@@ -398,6 +430,7 @@ class Goal:
     seed: int = 1
     description: str = ""
     source: str = ""
+    executor: ExecutorSettings = field(default_factory=ExecutorSettings)
     located: Any = field(default=None, compare=False, repr=False)
 
     def where(self, key: str) -> str:
@@ -452,6 +485,8 @@ class Goal:
         out["search"] = self.search.to_dict()
         out["budget"] = self.budget.to_dict()
         out["seed"] = self.seed
+        if self.executor.kind != "local":
+            out["executor"] = self.executor.to_dict()
         return out
 
 
@@ -741,12 +776,13 @@ def _one_goal(ctx: _Ctx, data: dict, name: str, design_dict: dict, design_base, 
     search = _search(ctx, data.get("search") or {}, objectives)
     budget = _budget(ctx, data.get("budget") or {})
     seed = ctx.integer(data.get("seed", 1), "seed", low=0, high=2**31 - 1)
+    executor = _executor(ctx, data.get("executor", "local"))
     return Goal(name=name, design=design, material=label, variables=tuple(variables),
                 objectives=objectives, constraints=constraints, links=tuple(links),
                 fixed=tuple(fixed), search=search, budget=budget, seed=seed,
                 description=str(data.get("description", "")),
                 source=ctx.located.source if ctx.located is not None else "",
-                located=ctx.located)
+                located=ctx.located, executor=executor)
 
 
 def _check_robust(ctx: _Ctx, design: Design, items, var_paths) -> None:
@@ -1039,3 +1075,57 @@ def _check_bound_ranges(ctx: _Ctx, design: Design, variables) -> None:
                     raise ctx.error(f"variables.{v.path}.{which}",
                                     f"bound {value:g} is outside the allowed range of "
                                     f"{v.path}: {exc.message}") from None
+
+
+ADDRESS = re.compile(r"^(?:[a-z][a-z0-9+.-]*://)?[^\s/:]+(?::\d+)?$")
+MAX_LOCAL_WORKERS = 1024
+
+
+def _address(ctx: _Ctx, value: Any, key: str) -> str:
+    if not isinstance(value, str) or not ADDRESS.match(value.strip()):
+        raise ctx.error(key, f"got {value!r}, allowed a Dask scheduler address such as "
+                             "tcp://HOST:8786")
+    return value.strip()
+
+
+def _executor(ctx: _Ctx, raw: Any) -> ExecutorSettings:
+    key = "executor"
+    if raw == "local":
+        return ExecutorSettings()
+    if raw == "dask":
+        return ExecutorSettings(kind="dask")
+    if not isinstance(raw, dict) or set(raw) != {"dask"}:
+        raise ctx.error(key, f"got {raw!r}, allowed local, dask, {{dask: {{address: "
+                             "tcp://HOST:8786}} or {dask: {local_cluster: {workers: N, "
+                             "threads_per_worker: T}}}")
+    d = raw["dask"] if raw["dask"] is not None else {}
+    ctx.keys(d, {"address", "local_cluster"}, f"{key}.dask")
+    if "address" in d and "local_cluster" in d:
+        raise ctx.error(f"{key}.dask", "give either address (a running scheduler) or "
+                                       "local_cluster (one started by the run), not both")
+    if "address" in d:
+        return ExecutorSettings(kind="dask", address=_address(ctx, d["address"],
+                                                              f"{key}.dask.address"))
+    lc = d.get("local_cluster") or {}
+    ctx.keys(lc, {"workers", "threads_per_worker"}, f"{key}.dask.local_cluster")
+    workers = None
+    if "workers" in lc:
+        workers = ctx.integer(lc["workers"], f"{key}.dask.local_cluster.workers", low=1,
+                              high=MAX_LOCAL_WORKERS)
+    threads = ctx.integer(lc.get("threads_per_worker", 1),
+                          f"{key}.dask.local_cluster.threads_per_worker", low=1, high=256)
+    return ExecutorSettings(kind="dask", workers=workers, threads_per_worker=threads)
+
+
+def parse_executor_option(text: str) -> ExecutorSettings:
+    """``chiropt run --executor``: ``local``, ``dask`` (a local cluster) or an address."""
+    t = str(text).strip()
+    if t == "local":
+        return ExecutorSettings()
+    if t == "dask":
+        return ExecutorSettings(kind="dask")
+    if "://" in t and ADDRESS.match(t):
+        return ExecutorSettings(kind="dask", address=t)
+    raise InputError("--executor", f"got {text!r}, allowed local, dask (a local Dask cluster "
+                                   "of --workers processes) or a scheduler address such as "
+                                   "tcp://HOST:8786")

@@ -2,8 +2,9 @@
 
 Owns: the small ``Executor`` interface the search drivers use (``map`` in order, ``submit``
 returning a future), ``SerialExecutor`` (in-process) and ``ProcessExecutor`` (a pool of
-spawned worker processes). Another engine (a cluster queue) plugs in by implementing the same
-two methods; the drivers never look further.
+spawned worker processes). Another engine plugs in by implementing the same two methods; the
+drivers never look further (``chiropt.search.cluster.DaskExecutor`` does, for a Dask
+cluster; its ``streams`` attribute tells the run that its workers lack the run folder).
 
 Must not import: physics modules, store, report, cli.
 

@@ -34,6 +34,7 @@ Conventions
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import sqlite3
@@ -54,6 +55,9 @@ __all__ = [
     "StoreMismatchError",
     "StoredEvaluation",
     "close_all",
+    "open_store",
+    "record_from_values",
+    "row_values",
 ]
 
 SCHEMA_VERSION = 1
@@ -128,6 +132,35 @@ def _dumps(value) -> str:
 
 def _array_json(a) -> str | None:
     return None if a is None else _dumps(np.asarray(a, dtype=float).tolist())
+
+
+_INSERT = (f"INSERT INTO evaluations ({_COLUMNS.split(', ', 1)[1]}) "
+           "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)")
+
+
+def row_values(stage: str, start: int, seq: int, x, ev: Evaluation, *,
+               wall_time_s: float = 0.0) -> tuple:
+    """The column values of one evaluation row (every column but ``id``), as stored."""
+    return (
+        str(stage),
+        int(start),
+        int(seq),
+        _array_json(np.asarray(x, dtype=float)),
+        None if np.isnan(ev.f) else float(ev.f),
+        _array_json(ev.df),
+        _array_json(ev.g),
+        _array_json(ev.dg),
+        _dumps(dict(ev.metrics)),
+        ev.status,
+        ev.reason,
+        float(wall_time_s),
+        datetime.now(UTC).isoformat(timespec="microseconds"),
+    )
+
+
+def record_from_values(values, id_: int = 0) -> StoredEvaluation:
+    """The record of a row given by its column values (``row_values``)."""
+    return _row_to_record((id_, *values))
 
 
 @dataclass(frozen=True)
@@ -269,28 +302,9 @@ class EvaluationStore:
         StoreMismatchError
             ``(stage, start, seq)`` is already stored (two writers on one search).
         """
-        ev = evaluation
-        row = (
-            str(stage),
-            int(start),
-            int(seq),
-            _array_json(np.asarray(x, dtype=float)),
-            None if np.isnan(ev.f) else float(ev.f),
-            _array_json(ev.df),
-            _array_json(ev.g),
-            _array_json(ev.dg),
-            _dumps(dict(ev.metrics)),
-            ev.status,
-            ev.reason,
-            float(wall_time_s),
-            datetime.now(UTC).isoformat(timespec="microseconds"),
-        )
+        row = row_values(stage, start, seq, x, evaluation, wall_time_s=wall_time_s)
         try:
-            cur = self._conn.execute(
-                f"INSERT INTO evaluations ({_COLUMNS.split(', ', 1)[1]}) "
-                "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                row,
-            )
+            cur = self._conn.execute(_INSERT, row)
         except sqlite3.IntegrityError as exc:
             raise StoreMismatchError(
                 "run",
@@ -298,6 +312,53 @@ class EvaluationStore:
                 "processes are running the same search",
             ) from exc
         return int(cur.lastrowid)
+
+    def put_values(self, values) -> bool:
+        """Insert a row given by its column values (``row_values``); idempotent.
+
+        Returns False, storing nothing, when the row ``(stage, start, seq)`` is already
+        stored at the same design vector (the same evaluation delivered twice).
+
+        Raises
+        ------
+        StoreMismatchError
+            The row is stored at another design vector.
+        """
+        stage, start, seq, x = values[:4]
+        row = self._conn.execute(
+            "SELECT x FROM evaluations WHERE stage = ? AND start = ? AND seq = ?",
+            (str(stage), int(start), int(seq))).fetchone()
+        if row is None:
+            self._conn.execute(_INSERT, tuple(values))
+            return True
+        if np.asarray(json.loads(row[0]), float).tobytes() != \
+                np.asarray(json.loads(x), float).tobytes():
+            raise StoreMismatchError(
+                "run", f"evaluation {stage}/{start}/{seq} arrived at x = {x}, but {self.path} "
+                       f"holds it at x = {row[0]}: two runs write into this folder")
+        return False
+
+    def values(self, stage: str, start: int | None = None) -> list[tuple]:
+        """Column values (``row_values`` order) of the rows of one stage (and search)."""
+        where, args = "stage = ?", [str(stage)]
+        if start is not None:
+            where, args = where + " AND start = ?", args + [int(start)]
+        cols = _COLUMNS.split(", ", 1)[1]
+        return [tuple(r) for r in self._conn.execute(
+            f"SELECT {cols} FROM evaluations WHERE {where} ORDER BY start, seq", args)]
+
+    @contextlib.contextmanager
+    def transaction(self):
+        """Group the writes of a ``with`` block into one SQLite transaction (one commit for
+        many rows; rolled back if the block raises)."""
+        conn = self._conn
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            yield self
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+        conn.execute("COMMIT")
 
     def get(self, stage: str, start: int, seq: int) -> StoredEvaluation | None:
         """The stored evaluation ``(stage, start, seq)``, or None."""
@@ -413,6 +474,11 @@ def _close(abspath: str) -> None:
     conn.close()
 
 
+def open_store(where) -> EvaluationStore:
+    """The store at a path, or ``where`` itself when it is a store object already."""
+    return where if hasattr(where, "put_values") else EvaluationStore(where)
+
+
 def close_all() -> None:
     """Close every connection of this process (a worker at the end of its task)."""
     for pid, path in list(_CONNECTIONS):
@@ -427,8 +493,9 @@ class CachedProblem:
     ----------
     problem : Problem
         The problem evaluated when the store has no answer.
-    path : str or os.PathLike
-        Store file.
+    path : str, os.PathLike or TaskStore
+        Store file, or the task-side store of a worker without the run folder
+        (``chiropt.store.stream``).
     stage : str
         Stage label of the search.
     start : int
@@ -457,7 +524,8 @@ class CachedProblem:
                  supersede_tag: str | None = None):
         self.problem = problem
         self.supersede_tag = supersede_tag
-        self.path = os.fspath(path)
+        # a path, or a task's own store (``chiropt.store.stream.TaskStore``)
+        self.path = path if hasattr(path, "put_values") else os.fspath(path)
         self.stage = str(stage)
         self.start = int(start)
         self.lower = problem.lower
@@ -478,6 +546,8 @@ class CachedProblem:
     @property
     def store(self) -> EvaluationStore:
         """The store (this process's connection)."""
+        if not isinstance(self.path, str):
+            return self.path
         if self._store is None or self._pid != os.getpid():
             self._store, self._pid = EvaluationStore(self.path), os.getpid()
         return self._store
@@ -529,13 +599,13 @@ class CachingWrap:
 
     Parameters
     ----------
-    path : str
-        Store file.
+    path : str or TaskStore
+        Store file (or a task-side store, see ``CachedProblem``).
     supersede_tag : str, optional
         Set when the run's evaluation cap changed: see ``CachedProblem``.
     """
 
-    path: str
+    path: Any
     supersede_tag: str | None = None
 
     def __call__(self, problem: Problem, stage: str, start: int) -> CachedProblem:
