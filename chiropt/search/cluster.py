@@ -81,7 +81,15 @@ def emit(topic: str, text: str) -> None:
     worker.log_event(topic, text)
 
 
+_BLAS_LIMITED = []
+
+
 def _call(fn, args, kwargs):
+    """Run a task on a worker; the first task of a worker process limits its BLAS to one
+    thread (the worker threads fill the cores, as with the local pool's workers)."""
+    if not _BLAS_LIMITED:
+        from chiropt.search.executor import limit_blas_threads
+        _BLAS_LIMITED.append(limit_blas_threads(1))
     return fn(*args, **kwargs)
 
 
