@@ -31,6 +31,8 @@ from chiropt.run import run_goal
 from chiropt.store import CachedProblem, EvaluationStore
 from chiropt.store.stream import StreamReceiver, TaskStore
 
+from test_processes import _count
+
 ROOT = Path(__file__).resolve().parents[1]
 ENV = dict(os.environ, PYTHONPATH=str(ROOT), OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
 TWO = ExecutorSettings(kind="dask", workers=2)
@@ -81,19 +83,6 @@ def _rows(run_dir: Path) -> dict:
     """Every stored evaluation by its key (stage, search, sequence number)."""
     return {(r.stage, r.start, r.seq): r
             for r in EvaluationStore(run_dir / "evaluations.sqlite").records()}
-
-
-def _count(db: Path) -> int:
-    if not db.exists():
-        return 0
-    try:
-        conn = sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=1.0)
-        try:
-            return int(conn.execute("SELECT COUNT(*) FROM evaluations").fetchone()[0])
-        finally:
-            conn.close()
-    except sqlite3.Error:
-        return 0
 
 
 def _per_search(db: Path, stage: str) -> dict[int, int]:

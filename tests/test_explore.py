@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import json
 import signal
-import sqlite3
 import textwrap
 import time
 from dataclasses import replace
@@ -27,7 +26,7 @@ from chiropt.run import run_goal, run_goal_file, write_report
 from chiropt.search.pareto import hypervolume, non_dominated
 from chiropt.store import EvaluationStore
 
-from test_processes import _start, _wait_for, linux
+from test_processes import _count, _start, _wait_for, linux
 
 GOAL = """\
 name: small
@@ -210,17 +209,6 @@ def test_explore_settings_are_validated(tmp_path):
     assert exc.value.key == "search.front.reference"
 
 
-def _explored(db: Path) -> int:
-    try:
-        conn = sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=1.0)
-        try:
-            return int(conn.execute("SELECT COUNT(*) FROM scans").fetchone()[0])
-        finally:
-            conn.close()
-    except sqlite3.Error:
-        return 0
-
-
 @linux
 def test_kill_during_exploration_then_resume_gives_the_same_front(small_run, tmp_path):
     goal, reference = small_run
@@ -228,11 +216,11 @@ def test_kill_during_exploration_then_resume_gives_the_same_front(small_run, tmp
     out = tmp_path / "runs"
     db = out / "small-Si" / "evaluations.sqlite"
     proc = _start(goal_file, out, "--workers", "1")
-    _wait_for(lambda: _explored(db) >= 2, proc=proc)
+    _wait_for(lambda: _count(db, "scans") >= 2, proc=proc)
     proc.send_signal(signal.SIGKILL)
     proc.wait()
     time.sleep(0.5)  # the worker dies with its parent
-    killed = _explored(db)
+    killed = _count(db, "scans")
     assert 2 <= killed < 64  # caught during the exploration
     s = run_goal(goal, out=out, workers=0, progress=False)
     assert s.status == "complete"

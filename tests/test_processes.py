@@ -71,13 +71,14 @@ def _write(folder: Path, text: str, name: str = "g.yaml") -> Path:
     return p
 
 
-def _count(db: Path) -> int:
+def _count(db: Path, table: str = "evaluations") -> int:
+    """Rows of ``table`` in a run's store, read-only (0 while it does not exist yet)."""
     if not db.exists():
         return 0
     try:
         conn = sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=1.0)
         try:
-            return int(conn.execute("SELECT COUNT(*) FROM evaluations").fetchone()[0])
+            return int(conn.execute(f"SELECT COUNT(*) FROM {table}").fetchone()[0])
         finally:
             conn.close()
     except sqlite3.Error:
