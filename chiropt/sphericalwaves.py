@@ -55,7 +55,7 @@ from functools import cache
 import autograd.numpy as np
 import numpy as onp
 import scipy.special as sps
-from autograd.extend import defvjp, primitive
+from autograd.extend import defvjp, defvjp_argnums, primitive
 
 # ------------------------------------------------------------------ indexing
 
@@ -332,11 +332,11 @@ def emission_vectors(u, lmax: int):
 
 @cache
 def _projection_tables(lmax: int):
-    """Constants of :func:`order_projections`: the maps from Y ((lmax+1)^2) to the
-    components X_- = (X_x - i X_y)/2, X_+ = (X_x + i X_y)/2 and X_z of X_lm, side by side
-    ((lmax+1)^2, 3K), and the z-parity (-1)^(l+m) of the K modes."""
+    """Constants of :func:`order_projections`: the maps from Y ((lmax+1)^2) to the x, y, z
+    components of X_lm side by side ((lmax+1)^2, 3K), and the z-parity (-1)^(l+m) of the
+    K modes."""
     C = _x_matrices(lmax)
-    cat = onp.concatenate([(C[0] - 1j * C[1]) / 2, (C[0] + 1j * C[1]) / 2, C[2]], axis=1)
+    cat = onp.concatenate([C[0], C[1], C[2]], axis=1)
     _, ls, ms = mode_table(lmax)
     parity = (-1.0) ** (ls[0::2] + ms[0::2])
     cat.setflags(write=False)
@@ -361,27 +361,61 @@ def order_projections(k_up, s, p_up, lmax: int):
 
     Notes
     -----
-    X . v = X_- v_+ + X_+ v_- + X_z v_z with v_+- = v_x +- i v_y, one evaluation of
-    Y_lm; every emission and reception vector of the order follows from these two
-    numbers per mode (:func:`channel_modes`).
+    With the Cartesian components X_c (c = x, y, z) of X_lm, linear in Y_lm
+    (:func:`_x_matrices`), the projections are the matrix product P = V X of the
+    (2, 3) rows V = [s; p_up] and the (3, K) components: one evaluation of Y_lm, and every
+    emission and reception vector of the order follows from these two numbers per mode
+    (:func:`channel_modes`). One autograd node: its vector-Jacobian product is three matrix
+    products (V^T Pbar for X, Pbar X^T for V, then dY/dk_hat of the harmonic table).
 
     References
     ----------
     Jackson (1999) eqs. 9.101-9.104 (X_lm); module docstring.
     """
+    return _projections(k_up, np.stack([s, p_up], axis=-2), int(lmax))
+
+
+def _cartesian_x(Y, lmax: int):
+    """Cartesian components (..., 3, K) of X_lm from the harmonics Y (..., J)."""
     cat, _ = _projection_tables(lmax)
-    Y = spherical_harmonics(k_up, lmax)                              # (..., J)
-    sh = np.shape(Y)[:-1]
     K = lmax * (lmax + 2)
-    X = np.reshape(np.matmul(np.reshape(Y, (-1, (lmax + 1) ** 2)), cat), sh + (3, K))
-    Xm, Xp, Xz = X[..., 0, :], X[..., 1, :], X[..., 2, :]
+    sh = onp.shape(Y)[:-1]
+    return onp.reshape(onp.reshape(Y, (-1, (lmax + 1) ** 2)) @ cat, sh + (3, K))
 
-    def dot(v):
-        vp = (v[..., 0] + 1j * v[..., 1])[..., None]
-        vm = (v[..., 0] - 1j * v[..., 1])[..., None]
-        return Xm * vp + Xp * vm + Xz * v[..., 2:3]
 
-    return np.stack([dot(s), dot(p_up)], axis=-2)
+@primitive
+def _projections(k_up, V, lmax):
+    """[X . s, X . p_up] (..., 2, K) from unit wavevectors (..., 3) and V = [s; p] (..., 2, 3)."""
+    Y = _harmonic_table(k_up, lmax, False)[0]
+    return onp.matmul(V, _cartesian_x(Y, lmax))
+
+
+def _projections_vjp(argnums, ans, args, kwargs):
+    k_up, V, lmax = args
+    Y, D = _harmonic_table(k_up, lmax, 0 in argnums)
+    X = _cartesian_x(Y, lmax)                                        # (..., 3, K)
+    cat, _ = _projection_tables(lmax)
+    J = (lmax + 1) ** 2
+    sh = onp.shape(Y)[:-1]
+    Vt = onp.swapaxes(V, -1, -2)
+    Xt = onp.swapaxes(X, -1, -2)
+
+    def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
+        out = []
+        for i in argnums:
+            if i == 0:
+                Xbar = np.reshape(np.matmul(Vt, g), (-1, cat.shape[1]))   # (..., 3K)
+                Ybar = np.reshape(np.matmul(Xbar, cat.T), sh + (1, J))
+                v = np.matmul(Ybar, D)[..., 0, :]
+            else:
+                v = np.matmul(g, Xt)
+            out.append(v if onp.iscomplexobj(args[i]) else np.real(v))
+        return tuple(out)
+
+    return vjp
+
+
+defvjp_argnums(_projections, _projections_vjp)
 
 
 def down_parity(lmax: int):
@@ -416,17 +450,53 @@ def channel_modes(P, kind: str, lmax: int):
     W_M . (s, p) = (X.s, X.p), W_N . (s, p) = i (X.p, -X.s); V the same with
     X -> -(-1)^m X_{l,-m}.
     """
+    if kind not in ("emit", "receive"):
+        raise ValueError(f"kind must be 'emit' or 'receive', not {kind!r}")
+    return _channels(P, kind == "receive", int(lmax))
+
+
+@cache
+def _channel_tables(receive: bool, lmax: int):
+    """Constants of :func:`channel_modes`: the gather of P over modes (m -> -m for
+    'receive', identity for 'emit') and the factors (a_s, a_p, b) with
+    out[c, (l m), N] = a_c P[1 - c] and out[c, (l m), M] = b P[c] after the gather."""
+    perm, sign = _neg_m_perm(lmax)
+    factor = 4 * onp.pi * _i_power(lmax, +1) if receive else _i_power(lmax, -1)
+    fN, fM = factor[0::2], factor[1::2]
+    w = sign if receive else onp.ones_like(sign)   # receive: P -> -(-1)^m P[m -> -m], n -> -n
+    a0, a1 = 1j * w * fN, -1j * w * fN
+    b = -w * fM if receive else fM
+    return (perm if receive else None), onp.argsort(perm), a0, a1, b
+
+
+@primitive
+def _channels(P, receive, lmax):
+    """:func:`channel_modes` as one autograd node (a linear map of P, transposed in reverse)."""
+    perm, _, a0, a1, b = _channel_tables(receive, lmax)
+    Pg = P[..., perm] if receive else P
     K = lmax * (lmax + 2)
-    if kind == "receive":
-        perm, sign = _neg_m_perm(lmax)
-        P = -(P[..., perm] * sign)
-        factor = 4 * np.pi * _i_power(lmax, +1)
-    else:
-        factor = _i_power(lmax, -1)
-    n = 1j * np.stack([P[..., 1, :], -P[..., 0, :]], axis=-2)
-    if kind == "receive":
-        n = -n
-    return np.reshape(np.stack([n, P], axis=-1), np.shape(n)[:-1] + (2 * K,)) * factor
+    sh = onp.shape(Pg)[:-2]
+    out = onp.empty(sh + (2, K, 2), dtype=complex)
+    out[..., 0, :, 0] = Pg[..., 1, :] * a0
+    out[..., 1, :, 0] = Pg[..., 0, :] * a1
+    onp.multiply(Pg, b, out=out[..., 1])
+    return onp.reshape(out, sh + (2, 2 * K))
+
+
+def _channels_vjp(ans, P, receive, lmax):
+    _, inverse, a0, a1, b = _channel_tables(receive, lmax)
+    K = lmax * (lmax + 2)
+
+    def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
+        g4 = np.reshape(g, np.shape(g)[:-1] + (K, 2))
+        gn, gm = g4[..., 0], g4[..., 1]
+        Pbar = gm * b + np.stack([gn[..., 1, :] * a1, gn[..., 0, :] * a0], axis=-2)
+        return Pbar[..., inverse] if receive else Pbar
+
+    return vjp
+
+
+defvjp(_channels, _channels_vjp, None, None)
 
 
 # ------------------------------------------------------------------ dipole map

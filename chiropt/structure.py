@@ -15,7 +15,8 @@ from functools import cached_property
 from typing import Any
 
 import autograd.numpy as np
-from autograd.tracer import getval
+import numpy as onp
+from autograd.tracer import getval, isbox
 
 from chiropt.errors import MaterialRangeError
 from chiropt.design import Design
@@ -95,7 +96,13 @@ class Structure:
 
     @cached_property
     def k_par(self):
-        """Bloch (in-plane incident) wavevector [1/m], shape (W, 2)."""
+        """Bloch (in-plane incident) wavevector [1/m], shape (W, 2).
+
+        At a fixed normal incidence (polar angle zero and not traced) it is a plain zero
+        array: identically zero for every design, so no derivative is carried through it.
+        """
+        if not isbox(self.polar) and not onp.any(onp.sin(onp.asarray(self.polar))):
+            return onp.zeros((len(getval(self.k0)), 2))
         kin = np.real(self.n_incidence) * self.k0 * np.sin(self.polar)
         return np.stack([kin * np.cos(self.azimuth), kin * np.sin(self.azimuth)], axis=-1)
 

@@ -38,6 +38,7 @@ analogue, recurrences of the integrals I_p); Hobson, Proc. London Math. Soc. 24,
 from __future__ import annotations
 
 import math
+import threading
 from functools import cache
 
 import autograd.numpy as np
@@ -281,7 +282,9 @@ def lattice_sums(k, k_par, lattice: Lattice, d, pmax: int, *, tol=1e-10, splitti
     k = k if isbox(k) else onp.asarray(k)
     k = np.real(k) if onp.iscomplexobj(getval(k)) else k
     split = None if splitting is None else float(onp.asarray(getval(splitting)))
-    return _sums(k, k_par, lattice.a1, lattice.a2, d, pmax, float(tol), split)
+    args = (k, k_par, lattice.a1, lattice.a2, d)
+    traced = tuple(i for i, a in enumerate(args) if isbox(a))
+    return _sums(*args, pmax, float(tol), split, traced)
 
 
 _ARG_SIZES = (1, 2, 2, 2, 3)   # directions per argument: k; k_par; a1; a2; d (x, y, z)
@@ -339,10 +342,23 @@ def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=()):
     return out.v, T._full_tangent(out) * onp.array(unit)[:, None, None, None]
 
 
+# the directional derivatives made with the value of the last traced call, for its
+# vector-Jacobian product (one slot per thread, matched by the identity of the value)
+_LAST = threading.local()
+
+
 @primitive
-def _sums(k, k_par, a1, a2, d, pmax, tol, splitting):
-    """D_pM from plain inputs: one autograd node (derivatives in ``_sums_vjp``)."""
-    return _kernel(k, k_par, a1, a2, d, pmax, tol, splitting)
+def _sums(k, k_par, a1, a2, d, pmax, tol, splitting, traced=()):
+    """D_pM from plain inputs: one autograd node (derivatives in ``_sums_vjp``).
+
+    ``traced``: the argument positions that carry derivatives; their directional
+    derivatives are made in the same pass as the value and kept for ``_sums_vjp``.
+    """
+    if not traced:
+        return _kernel(k, k_par, a1, a2, d, pmax, tol, splitting)
+    value, t = _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=traced)
+    _LAST.entry = (value, traced, t)
+    return value
 
 
 def _sums_vjp(argnums, ans, args, kwargs):
@@ -352,7 +368,12 @@ def _sums_vjp(argnums, ans, args, kwargs):
     differentiable in the cotangent (the reverse-of-reverse used by --grad sensitivities).
     """
     wrt = tuple(sorted(argnums))
-    _, t = _kernel(*args, wrt=wrt)
+    entry = getattr(_LAST, "entry", None)
+    _LAST.entry = None
+    if entry is not None and entry[0] is ans and entry[1] == wrt:
+        t = entry[2]
+    else:
+        _, t = _kernel(*args[:8], wrt=wrt)
     rules = {0: "wpj,wpj->w", 1: "wpj,cwpj->wc", 2: "wpj,cwpj->c", 3: "wpj,cwpj->c",
              4: "wpj,cwpj->pc"}
     blocks, start = {}, 0

@@ -60,30 +60,31 @@ def _vjp(argnums, ans, args, kwargs):
     K2 = onp.shape(recv)[-1]
     L, R = _factors(rc, r, recv, ph, emit)
     shape5 = (W, G, 2, N, K2)
-    r5 = onp.reshape(r, (W, G, 2, 1, 1))
-    rc5 = onp.reshape(rc, (W, G, 1, N, 1))
-    recv5 = onp.reshape(recv, (W, G, 2, 1, K2))
-    ph5 = onp.reshape(ph, (W, G, 1, N, 1))
-    emit5 = onp.reshape(emit, (W, G, 2, 1, K2))
+    wanted = set(argnums)
+    # products of the factors that do not depend on the cotangent, made once per forward
+    # pass however many reverse passes follow
+    r_recv = r[..., None] * recv if 0 in wanted else None          # (W, G, 2, 2K)
+    rc_recv = (onp.einsum("wgn,wgca->wgcna", rc, recv) if 1 in wanted else None)
+    rc_r = onp.einsum("wgn,wgc->wgcn", rc, r) if 2 in wanted else None
 
-    def vjp(g):   # autograd operations: differentiated again by the --grad sensitivities
+    def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
         out = []
         Lbar = Rbar = None
-        if {0, 1, 2} & set(argnums):
+        if wanted & {0, 1, 2}:
             Lbar = np.reshape(np.matmul(R, np.transpose(g, (0, 2, 1))), shape5)
-        if {3, 4} & set(argnums):
+        if wanted & {3, 4}:
             Rbar = np.reshape(np.matmul(L, g), shape5)
         for i in argnums:
             if i == 0:
-                v = np.sum(Lbar * (r5 * recv5), axis=(2, 4))
+                v = np.einsum("wgcna,wgca->wgn", Lbar, r_recv)
             elif i == 1:
-                v = np.sum(Lbar * (rc5 * recv5), axis=(3, 4))
+                v = np.einsum("wgcna,wgcna->wgc", Lbar, rc_recv)
             elif i == 2:
-                v = np.sum(Lbar * (rc5 * r5), axis=3)
+                v = np.einsum("wgcna,wgcn->wgca", Lbar, rc_r)
             elif i == 3:
-                v = np.sum(Rbar * emit5, axis=(2, 4))
+                v = np.einsum("wgcna,wgca->wgn", Rbar, emit)
             else:
-                v = np.sum(Rbar * ph5, axis=3)
+                v = np.einsum("wgcna,wgn->wgca", Rbar, ph)
             out.append(v if onp.iscomplexobj(args[i]) else np.real(v))
         return tuple(out)
 

@@ -181,7 +181,10 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     area = st.lattice.area
 
     # -- lattice interaction (Ewald sums of scalar waves, translation tables) -----------
-    d = np.reshape(centres[:, None, :] - centres[None, :, :], (N * N, 3))
+    # one particle per cell: the displacement is identically zero for every design, so it
+    # is a plain array and the lattice sums carry no derivative along it
+    d = (onp.zeros((1, 3)) if N == 1 else
+         np.reshape(centres[:, None, :] - centres[None, :, :], (N * N, 3)))
     D = lattice_sums(k, st.k_par, st.lattice, d, 2 * lmax, tol=min(st.tolerance, 1e-10))
     A = np.einsum("abj,wpj->wpab", translation_table(lmax), D)
     A = np.reshape(A, (W, N, N, K2, K2))
