@@ -15,6 +15,8 @@ direction when q = 0), ``p± = s x k_hat±`` with ``k_hat± = (q, ±kz)/k``, so 
 from __future__ import annotations
 
 import autograd.numpy as np
+import numpy as onp
+from autograd.extend import defvjp_argnums, primitive
 
 
 def kz_branch(k, qq):
@@ -50,28 +52,96 @@ def order_basis(q, kz, k, azimuth):
     s, p_up, p_down, k_up, k_down : (..., 3) complex vectors. ``k_up = (q, kz)/k``;
         p vectors are complex for evanescent waves; dot products with them are
         bilinear (no conjugation), docs/theory.md §5.
+
+    Notes
+    -----
+    One autograd node (``_basis``) with a hand-written vector-Jacobian product: with
+    ``Q = |q|``, ``q_hat = q/Q``, ``c = kz/k``: ``s = z x q_hat``,
+    ``k_up/down = (q/k, +-c)``, ``p_up/down = (+-c q_hat, -Q/k)``; where ``q = 0``,
+    ``q_hat = (cos, sin)(azimuth)`` and ``-Q/k`` is ``-(q_hat . q)/k``.
     """
-    qq = np.sum(q ** 2, axis=-1)
-    nonzero = (qq > 0)[..., None]
-    safe = np.expand_dims(np.sqrt(np.where(nonzero[..., 0], qq, 1.0)), -1)
-    # np.where operands broadcast to full shape: autograd's where-VJP does not reduce
-    # broadcast axes
-    default = np.ones(np.shape(q)) * np.array([np.cos(azimuth), np.sin(azimuth)])
-    qhat = np.where(nonzero * np.ones(np.shape(q), bool), q / safe, default)
-    s = np.matmul(qhat, _S_OF_QHAT) + 0j  # z x q_hat
-    k = np.expand_dims(k + 0j * kz, -1)
-    # written out instead of cross products (fewer array operations):
-    # p± = s x k_hat± = (±(kz/k) q_hat, -(q_hat . q)/k)
-    qk = np.matmul(q, _XY_TO_3D) / k
-    c = np.expand_dims(kz, -1) / k
-    zk = c * _Z_UNIT
-    k_up = qk + zk
-    k_down = qk - zk
-    pxy = np.matmul(qhat, _XY_TO_3D) * c  # ((kz/k) q_hat, 0)
-    pz = -np.expand_dims(np.sum(qhat * q, axis=-1), -1) / k * _Z_UNIT
-    p_up = pxy + pz
-    p_down = pz - pxy
-    return s, p_up, p_down, k_up, k_down
+    out = _basis(q, kz, k, azimuth)
+    return out[0], out[1], out[2], out[3], out[4]
+
+
+def _basis_parts(q, kz, k, azimuth):
+    """Plain intermediates of :func:`order_basis` at full broadcast shape."""
+    q = onp.asarray(q, dtype=float)
+    kz = onp.asarray(kz)
+    shape = onp.broadcast_shapes(q.shape[:-1], onp.shape(kz), onp.shape(k))
+    q = onp.broadcast_to(q, shape + (2,))
+    kb = onp.broadcast_to(onp.asarray(k) + 0j, shape)
+    qq = onp.sum(q ** 2, axis=-1)
+    nonzero = qq > 0
+    Q = onp.sqrt(onp.where(nonzero, qq, 1.0))
+    az = float(onp.asarray(azimuth))
+    qhat = onp.where(nonzero[..., None], q / Q[..., None],
+                     onp.array([onp.cos(az), onp.sin(az)]))
+    c = onp.broadcast_to(kz, shape) / kb
+    return q, kb, nonzero, Q, qhat, c, az
+
+
+@primitive
+def _basis(q, kz, k, azimuth):
+    """(s, p_up, p_down, k_up, k_down) stacked, (5, ..., 3) (:func:`order_basis`)."""
+    q, kb, _, _, qhat, c, _ = _basis_parts(q, kz, k, azimuth)
+    out = onp.zeros((5,) + c.shape + (3,), dtype=complex)
+    out[0, ..., 0], out[0, ..., 1] = -qhat[..., 1], qhat[..., 0]
+    pz = -onp.sum(qhat * q, axis=-1) / kb
+    out[1, ..., :2] = c[..., None] * qhat
+    out[2, ..., :2] = -out[1, ..., :2]
+    out[1, ..., 2] = out[2, ..., 2] = pz
+    out[3, ..., :2] = out[4, ..., :2] = q / kb[..., None]
+    out[3, ..., 2], out[4, ..., 2] = c, -c
+    return out
+
+
+def _sum_to(x, shape):
+    """Sum the cotangent ``x`` over the axes broadcast to reach it from ``shape``."""
+    extra = np.ndim(x) - len(shape)
+    if extra:
+        x = np.sum(x, axis=tuple(range(extra)))
+    axes = tuple(i for i, n in enumerate(shape) if n == 1 and np.shape(x)[i] != 1)
+    return np.sum(x, axis=axes, keepdims=True) if axes else x
+
+
+def _basis_vjp(argnums, ans, args, kwargs):
+    q0, kz0, k0, az0 = args
+    q, kb, nonzero, Q, qhat, c, az = _basis_parts(q0, kz0, k0, az0)
+    P = onp.sum(qhat * q, axis=-1)                  # |q| (or q_hat . q = 0 where q = 0)
+    inv_k = 1.0 / kb
+    radial = nonzero[..., None] / Q[..., None]      # d q_hat / d q = (I - q_hat q_hat^T)/Q
+    turn = onp.where(nonzero, 0.0, 1.0)[..., None] * onp.array([-onp.sin(az), onp.cos(az)])
+
+    def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
+        gs, gpu, gpd, gku, gkd = g[0], g[1], g[2], g[3], g[4]
+        gpxy = gpu[..., :2] - gpd[..., :2]
+        gk_xy = gku[..., :2] + gkd[..., :2]
+        qhat_bar = np.stack([gs[..., 1], -gs[..., 0]], axis=-1) + c[..., None] * gpxy
+        c_bar = np.sum(qhat * gpxy, axis=-1) + gku[..., 2] - gkd[..., 2]
+        gpz = gpu[..., 2] + gpd[..., 2]
+        out = []
+        for i in argnums:
+            if i == 0:
+                along = np.sum(qhat * qhat_bar, axis=-1)[..., None]
+                v = (radial * (qhat_bar - qhat * along) + gk_xy * inv_k[..., None]
+                     - (gpz * inv_k)[..., None] * qhat)
+                v = _sum_to(v, onp.shape(q0))
+            elif i == 1:
+                v = _sum_to(c_bar * inv_k, onp.shape(kz0))
+            elif i == 2:
+                v = (-np.sum(q * gk_xy, axis=-1) * inv_k ** 2 - c_bar * c * inv_k
+                     + gpz * P * inv_k ** 2)
+                v = _sum_to(v, onp.shape(k0))
+            else:
+                v = np.sum(qhat_bar * turn)
+            out.append(v if onp.iscomplexobj(args[i]) else np.real(v))
+        return tuple(out)
+
+    return vjp
+
+
+defvjp_argnums(_basis, _basis_vjp)
 
 
 _S_OF_QHAT = np.array([[0.0, 1.0, 0.0], [-1.0, 0.0, 0.0]])

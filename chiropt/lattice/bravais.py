@@ -47,10 +47,15 @@ class Lattice:
     a2 : array (2,) — second lattice vector [m]
 
     Either vector may be an autograd-traced array. The cell must be non-degenerate.
+    ``length`` and ``shape`` (set by the square and hexagonal constructors): the lattice is
+    ``a_i = length * shape[i]`` with a plain shape, so a kernel can follow one direction
+    (the length) instead of four vector components.
     """
 
     a1: object
     a2: object
+    length: object = None
+    shape: tuple | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "a1", _as_vector("lattice.a1", self.a1))
@@ -76,7 +81,8 @@ class Lattice:
         """
         _check_length("lattice.period", period)
         zero = 0.0 * period
-        return cls(np.stack([period, zero]), np.stack([zero, period]))
+        return cls(np.stack([period, zero]), np.stack([zero, period]), length=period,
+                   shape=((1.0, 0.0), (0.0, 1.0)))
 
     @classmethod
     def rectangular(cls, px, py):
@@ -101,7 +107,8 @@ class Lattice:
         """
         _check_length("lattice.period", period)
         return cls(np.stack([period, 0.0 * period]),
-                   np.stack([0.5 * period, 0.5 * np.sqrt(3.0) * period]))
+                   np.stack([0.5 * period, 0.5 * np.sqrt(3.0) * period]), length=period,
+                   shape=((1.0, 0.0), (0.5, 0.5 * float(np.sqrt(3.0)))))
 
     @classmethod
     def oblique(cls, a, b, angle_rad):

@@ -282,15 +282,22 @@ def lattice_sums(k, k_par, lattice: Lattice, d, pmax: int, *, tol=1e-10, splitti
     k = k if isbox(k) else onp.asarray(k)
     k = np.real(k) if onp.iscomplexobj(getval(k)) else k
     split = None if splitting is None else float(onp.asarray(getval(splitting)))
-    args = (k, k_par, lattice.a1, lattice.a2, d)
+    shape = lattice.shape if lattice.length is not None else None
+    # a lattice of fixed shape: one direction (its length) instead of the four components
+    args = ((k, k_par, lattice.length, None, d) if shape is not None
+            else (k, k_par, lattice.a1, lattice.a2, d))
     traced = tuple(i for i, a in enumerate(args) if isbox(a))
-    return _sums(*args, pmax, float(tol), split, traced)
+    return _sums(*args, pmax, float(tol), split, traced, shape)
 
 
 _ARG_SIZES = (1, 2, 2, 2, 3)   # directions per argument: k; k_par; a1; a2; d (x, y, z)
 
 
-def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=()):
+def _sizes(shape):
+    return _ARG_SIZES if shape is None else (1, 2, 1, 0, 3)
+
+
+def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=(), shape=None):
     """D_pM (W, P, J) and, for the arguments ``wrt``, dD along their input directions.
 
     Plain inputs; ``wrt`` lists argument positions (0 k, 1 k_par, 2 a1, 3 a2, 4 d).
@@ -303,7 +310,11 @@ def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=()):
     """
     kv = onp.asarray(k, dtype=float)
     kparv = onp.asarray(k_par, dtype=float)
-    a1v, a2v = onp.asarray(a1, dtype=float), onp.asarray(a2, dtype=float)
+    if shape is not None:
+        length = float(a1)
+        a1v, a2v = length * onp.asarray(shape[0]), length * onp.asarray(shape[1])
+    else:
+        a1v, a2v = onp.asarray(a1, dtype=float), onp.asarray(a2, dtype=float)
     dv = onp.asarray(d, dtype=float)
     plain = Lattice(a1v, a2v)
     W = kv.size
@@ -323,12 +334,20 @@ def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=()):
     groups = [[ksv], [kparv[:, 0] * scale, kparv[:, 1] * scale], list(a1v / scale),
               list(a2v / scale), list(dv.T / scale)]
     units = [scale, scale, 1.0 / scale, 1.0 / scale, 1.0 / scale]   # d(scaled)/d(input)
-    D = sum(_ARG_SIZES[i] for i in wrt)
+    sizes = _sizes(shape)
+    D = sum(sizes[i] for i in wrt)
     seeded, unit = 0, []
     for i in sorted(wrt):
-        groups[i] = [T.Tangent.seed(x, seeded + j, D) for j, x in enumerate(groups[i])]
-        seeded += _ARG_SIZES[i]
-        unit += [units[i]] * _ARG_SIZES[i]
+        if shape is not None and i == 2:   # a_i = L u_i: d(a_i / scale)/dL = u_i / scale
+            rates = list(onp.asarray(shape[0]) / scale) + list(onp.asarray(shape[1]) / scale)
+            lat = [T.Tangent(x, _unit_rate(rate, seeded, D)) for x, rate in
+                   zip(groups[2] + groups[3], rates, strict=True)]
+            groups[2], groups[3] = lat[:2], lat[2:]
+            unit.append(1.0)
+        else:
+            groups[i] = [T.Tangent.seed(x, seeded + j, D) for j, x in enumerate(groups[i])]
+            unit += [units[i]] * sizes[i]
+        seeded += sizes[i]
     (ks,), (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy, dz) = groups
     spec = _spectral(ks, (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy), dz, Es, mn, pmax)
     spat = _spatial(ks, (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy, dz), Es, nm, pmax, 1e-24)
@@ -347,16 +366,23 @@ def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=()):
 _LAST = threading.local()
 
 
+def _unit_rate(rate: float, direction: int, directions: int):
+    """Tangent (D,) of a scalar moving with ``rate`` along one direction."""
+    t = onp.zeros(directions)
+    t[direction] = rate
+    return t
+
+
 @primitive
-def _sums(k, k_par, a1, a2, d, pmax, tol, splitting, traced=()):
+def _sums(k, k_par, a1, a2, d, pmax, tol, splitting, traced=(), shape=None):
     """D_pM from plain inputs: one autograd node (derivatives in ``_sums_vjp``).
 
     ``traced``: the argument positions that carry derivatives; their directional
     derivatives are made in the same pass as the value and kept for ``_sums_vjp``.
     """
     if not traced:
-        return _kernel(k, k_par, a1, a2, d, pmax, tol, splitting)
-    value, t = _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=traced)
+        return _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, shape=shape)
+    value, t = _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=traced, shape=shape)
     _LAST.entry = (value, traced, t)
     return value
 
@@ -368,18 +394,23 @@ def _sums_vjp(argnums, ans, args, kwargs):
     differentiable in the cotangent (the reverse-of-reverse used by --grad sensitivities).
     """
     wrt = tuple(sorted(argnums))
+    shape = args[9] if len(args) > 9 else kwargs.get("shape")
     entry = getattr(_LAST, "entry", None)
     _LAST.entry = None
     if entry is not None and entry[0] is ans and entry[1] == wrt:
         t = entry[2]
     else:
-        _, t = _kernel(*args[:8], wrt=wrt)
+        _, t = _kernel(*args[:8], wrt=wrt, shape=shape)
     rules = {0: "wpj,wpj->w", 1: "wpj,cwpj->wc", 2: "wpj,cwpj->c", 3: "wpj,cwpj->c",
              4: "wpj,cwpj->pc"}
+    if shape is not None:
+        rules[2] = "wpj,wpj->"
+    sizes = _sizes(shape)
     blocks, start = {}, 0
     for i in wrt:
-        n = _ARG_SIZES[i]
-        blocks[i] = (t[start] if i == 0 else t[start:start + n], rules[i])
+        n = sizes[i]
+        blocks[i] = (t[start] if i == 0 or (shape is not None and i == 2)
+                     else t[start:start + n], rules[i])
         start += n
 
     def vjp(g):
