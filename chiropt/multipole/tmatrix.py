@@ -86,11 +86,31 @@ class Sphere:
     core_index: Any = None
 
     def tmatrix(self, k_host, lmax: int):
+        return diagonal_tmatrix(*self.mie(k_host, lmax), lmax)
+
+    def mie(self, k_host, lmax: int):
+        """Mie coefficients a_l, b_l (W, lmax) at host wavenumbers k_host (W,) [1/m]."""
         if self.core_radius is None:
-            return sphere_tmatrix(k_host * self.radius, self.index / self.n_host, lmax)
-        return coreshell_tmatrix(k_host * self.core_radius, k_host * self.radius,
-                                 self.core_index / self.n_host, self.index / self.n_host,
-                                 lmax)
+            return mie_coefficients(k_host * self.radius, self.index / self.n_host, lmax)
+        return coreshell_mie_coefficients(k_host * self.core_radius, k_host * self.radius,
+                                          self.core_index / self.n_host,
+                                          self.index / self.n_host, lmax)
+
+
+def _order_magnitudes(particle, k_host, lmax: int):
+    """max |T| over the modes of each degree l = 1..lmax, (W, lmax), plain values.
+
+    A sphere gives max(|a_l|, |b_l|) from its Mie coefficients directly; other particles
+    the diagonal of their T-matrix.
+    """
+    if isinstance(particle, Sphere):
+        a, b = particle.mie(k_host, lmax)
+        return onp.maximum(onp.abs(getval(a)), onp.abs(getval(b)))
+    T = onp.asarray(getval(particle.tmatrix(k_host, lmax)))
+    diag = onp.abs(onp.diagonal(T, axis1=-2, axis2=-1))             # (W, 2K)
+    _, ls, _ = mode_table(lmax)
+    return onp.stack([onp.max(diag[..., ls == l], axis=-1) for l in range(1, lmax + 1)],
+                     axis=-1)
 
 
 def design_particles(design, values: dict | None = None) -> list:
@@ -161,10 +181,10 @@ def choose_lmax(particles, k_host, *, tol: float = 1e-6, lmax_cap: int = 8) -> i
     """
     if not (0 < tol < 1):
         raise InputError("model.lmax_tolerance", f"must lie in (0, 1); got {tol!r}")
-    T = getval(stack_tmatrices(particles, getval(k_host), lmax_cap + 1))
-    _, ls, _ = mode_table(lmax_cap + 1)
-    diag = onp.abs(onp.diagonal(onp.asarray(T), axis1=-2, axis2=-1))  # (W, N, 2K)
+    k = getval(k_host)
+    size = onp.max([onp.max(_order_magnitudes(pa, k, lmax_cap + 1), axis=0)
+                    for pa in particles], axis=0)                    # (lmax_cap + 1,)
     for lmax in range(1, lmax_cap + 1):
-        if onp.max(diag[..., ls == lmax + 1]) < tol:
+        if size[lmax] < tol:        # degree lmax + 1, the first one left out
             return lmax
     return lmax_cap
