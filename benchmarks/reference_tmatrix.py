@@ -24,7 +24,7 @@ import numpy as np
 
 from chiropt.design import design_from_dict
 from chiropt.goals import GoalProblem, load_goal
-from chiropt.search.executor import limit_blas_threads
+from chiropt.search.executor import limit_blas_threads, reuse_freed_memory
 from chiropt.sensitivity import compute_quantities, value_and_gradient
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -61,6 +61,7 @@ def _our_design():
 
 def main():
     limit_blas_threads(1)
+    reuse_freed_memory()
     try:
         t_ref = _best(_reference_point)
         T_ref, R_ref = _reference_point()

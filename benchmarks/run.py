@@ -23,7 +23,7 @@ import numpy as onp
 
 from chiropt.goals import GoalProblem, load_goal
 from chiropt.run import run_goal
-from chiropt.search.executor import limit_blas_threads
+from chiropt.search.executor import limit_blas_threads, reuse_freed_memory
 from chiropt.sensitivity import value_and_gradient
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -45,6 +45,7 @@ def _median(fn, repeats=5):
 
 def main(argv):
     limit_blas_threads(1)
+    reuse_freed_memory()
     goal, label = _goal(argv[1] if len(argv) > 1 else None)
     P = GoalProblem(goal)
     x = (P.lower + P.upper) / 2

@@ -497,6 +497,9 @@ def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     warnings.simplefilter("default")
+    from chiropt.search.executor import reuse_freed_memory
+
+    reuse_freed_memory()   # serial runs and evaluations happen in this process
     try:
         return args.func(args)
     except InputError as exc:

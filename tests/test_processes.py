@@ -400,3 +400,22 @@ def test_workers_run_their_linear_algebra_on_one_thread():
     with ProcessExecutor(1) as ex:
         threads = ex.map(_blas_threads, [0])[0]
     assert threads and all(n == 1 for n in threads)
+
+
+def _large_arrays_stay_in_the_heap(_):
+    # a freed 8 MiB array comes back at the same address when the heap keeps it
+    import numpy as onp
+    a = onp.ones(1 << 20)
+    first = a.ctypes.data
+    del a
+    b = onp.ones(1 << 20)
+    return first == b.ctypes.data
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="glibc mallopt")
+def test_workers_reuse_freed_memory():
+    # mallopt(3), Linux man-pages: with M_MMAP_THRESHOLD raised, a freed large block is
+    # reused by the next allocation of the same size instead of a fresh mmap
+    from chiropt.search.executor import ProcessExecutor
+    with ProcessExecutor(1) as ex:
+        assert ex.map(_large_arrays_stay_in_the_heap, [0])[0]

@@ -88,8 +88,9 @@ def _call(fn, args, kwargs):
     """Run a task on a worker; the first task of a worker process limits its BLAS to one
     thread (the worker threads fill the cores, as with the local pool's workers)."""
     if not _BLAS_LIMITED:
-        from chiropt.search.executor import limit_blas_threads
+        from chiropt.search.executor import limit_blas_threads, reuse_freed_memory
         _BLAS_LIMITED.append(limit_blas_threads(1))
+        reuse_freed_memory()
     return fn(*args, **kwargs)
 
 
