@@ -32,6 +32,7 @@ from typing import Any
 
 import autograd.numpy as np
 import numpy as onp
+from autograd.extend import defvjp, defvjp_argnums, primitive
 from autograd.tracer import getval
 
 from chiropt.capacity import capacity_metrics
@@ -158,12 +159,102 @@ def local_metrics(E, ZH, structure: Structure) -> dict:
 # ----------------------------------------------------------------------------------------
 
 def _phi1(x):
-    """(exp(x) - 1)/x for complex x, exact at 0 (the mean of exp(x t) over t in [0, 1])."""
-    small = np.abs(getval(x)) < _PHI1_SERIES
-    xs = np.where(small, 1.0 + 0j, x)
+    """(exp(x) - 1)/x for complex x, exact at 0 (the mean of exp(x t) over t in [0, 1]).
+
+    One autograd node; its derivative phi1'(x) = (exp(x) - phi1(x))/x, by its Taylor
+    series near 0 (DLMF 4.2.19 for the series of exp).
+    """
+    return _phi1_primitive(x)
+
+
+def _phi1_values(x):
+    x = onp.asarray(x)
+    small = onp.abs(x) < _PHI1_SERIES
+    xs = onp.where(small, 1.0 + 0j, x)
     series = 1.0 + x * (1 / 2 + x * (1 / 6 + x * (1 / 24 + x * (1 / 120 + x * (
         1 / 720 + x / 5040)))))
-    return np.where(small, series, np.expm1(xs) / xs)
+    return onp.where(small, series, onp.expm1(xs) / xs), small, xs
+
+
+@primitive
+def _phi1_primitive(x):
+    return _phi1_values(x)[0]
+
+
+def _phi1_vjp(ans, x):
+    value, small, xs = _phi1_values(x)
+    x = onp.asarray(x)
+    series = 1 / 2 + x * (1 / 3 + x * (1 / 8 + x * (1 / 30 + x * (1 / 144 + x * (
+        1 / 840 + x / 5760)))))
+    slope = onp.where(small, series, (onp.exp(xs) - value) / xs)
+    real = not onp.iscomplexobj(x)
+    return lambda g: np.real(g * slope) if real else g * slope
+
+
+defvjp(_phi1_primitive, _phi1_vjp)
+
+
+def _single_wave_forms(up, c, K, decay):
+    """Slab-averaged |E|^2, C_hat, S0, S3 of single upward waves, (4, W, 2, G).
+
+    ``up`` (W, 2, 2, G) amplitudes on (s, p_up); ``c = kz/k`` (W, G); ``K = |q|/k``
+    (W, G); ``decay`` (W, 1, G) the slab mean of exp(-2 Im(kz) z) (formulas in
+    :func:`order_averages`). One autograd node with a hand-written vector-Jacobian product.
+    """
+    return _single_waves(up, c, K, decay)
+
+
+def _single_wave_parts(up, c, K):
+    a_s, a_p = up[:, :, 0], up[:, :, 1]
+    c2 = (onp.real(c) ** 2 + onp.imag(c) ** 2)[:, None]
+    p2 = (K ** 2)[:, None] + c2
+    ss = onp.real(a_s) ** 2 + onp.imag(a_s) ** 2
+    pp = onp.real(a_p) ** 2 + onp.imag(a_p) ** 2
+    sp = onp.conj(a_s) * a_p
+    return a_s, a_p, c2, p2, ss, pp, sp
+
+
+@primitive
+def _single_waves(up, c, K, decay):
+    _, _, c2, p2, ss, pp, sp = _single_wave_parts(up, c, K)
+    raw = onp.stack([ss + p2 * pp, -(1.0 + p2) * onp.imag(sp), ss + c2 * pp,
+                     -2.0 * onp.imag(c[:, None] * sp)])
+    return raw * decay
+
+
+def _single_waves_vjp(argnums, ans, args, kwargs):
+    """Wirtinger form: a real output y of complex z has zbar = 2 g dy/dz (dy/dz at fixed
+    conj z), autograd's convention for complex inputs."""
+    up, c, K, decay = args
+    a_s, a_p, c2, p2, ss, pp, sp = _single_wave_parts(up, c, K)
+    cs, cp, cc = onp.conj(a_s), onp.conj(a_p), onp.conj(c)[:, None]
+    im_sp = onp.imag(sp)
+    raw = None if 3 not in argnums else onp.stack(
+        [ss + p2 * pp, -(1.0 + p2) * im_sp, ss + c2 * pp, -2.0 * onp.imag(c[:, None] * sp)])
+
+    def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
+        wE, wC, w0, w3 = g[0] * decay, g[1] * decay, g[2] * decay, g[3] * decay
+        out = []
+        for i in argnums:
+            if i == 0:
+                bar_s = (2.0 * cs * (wE + w0) - 1j * (1.0 + p2) * wC * cp
+                         - 2j * w3 * cc * cp)
+                bar_p = (2.0 * cp * (wE * p2 + w0 * c2) + 1j * (1.0 + p2) * wC * cs
+                         + 2j * w3 * c[:, None] * cs)
+                out.append(np.stack([bar_s, bar_p], axis=2))
+            elif i == 1:
+                out.append(2.0 * np.sum(cc * (pp * (wE + w0) - wC * im_sp) + 1j * w3 * sp,
+                                        axis=1))
+            elif i == 2:
+                out.append(np.sum((wE * pp - wC * im_sp) * 2.0 * K[:, None], axis=1))
+            else:
+                out.append(np.sum(np.sum(g * raw, axis=0), axis=1, keepdims=True))
+        return tuple(out)
+
+    return vjp
+
+
+defvjp_argnums(_single_waves, _single_waves_vjp)
 
 
 def order_averages(content: OrderContent, thickness, *, side: str = "host") -> dict:
@@ -193,19 +284,8 @@ def order_averages(content: OrderContent, thickness, *, side: str = "host") -> d
     docs/theory.md §5, §12, §14 (single-wave forms).
     """
     up = content.up
-    a_s, a_p = up[:, :, 0], up[:, :, 1]                      # (W, 2, G)
-    c = content.kz_over_k                                     # (W, G)
-    K = content.K
-    c2 = np.real(c) ** 2 + np.imag(c) ** 2
-    p2 = (K ** 2 + c2)[:, None]
-    ss = np.real(a_s) ** 2 + np.imag(a_s) ** 2
-    pp = np.real(a_p) ** 2 + np.imag(a_p) ** 2
-    sp = np.conj(a_s) * a_p
     decay = np.real(_phi1(-2.0 * np.imag(content.kz) * thickness))[:, None]   # (W, 1, G)
-    res = {"EE": (ss + p2 * pp) * decay,
-           "C": -(1.0 + p2) * np.imag(sp) * decay,
-           "S0": (ss + c2[:, None] * pp) * decay,
-           "S3": 2.0 * np.imag(np.conj(c)[:, None] * np.conj(sp)) * decay}
+    forms = _single_wave_forms(up, content.kz_over_k, content.K, decay)   # (4, W, 2, G)
 
     # (0,0): up and down waves with interference, explicit vectors
     o0 = OrderContent(content.mn[:1], content.g_norm[:1], content.q[:, :1], content.kz[:, :1],
@@ -231,10 +311,11 @@ def order_averages(content: OrderContent, thickness, *, side: str = "host") -> d
           "C": -np.imag(np.einsum("wtai,wtbi,wab->wt", cE, Hw, m)),
           "S0": np.real(np.einsum("wtai,wtbi,wab->wt", cE[..., :2], Ew[..., :2], m)),
           "S3": 2.0 * np.imag(np.einsum("wta,wtb,wab->wt", cE[..., 0], Ew[..., 1], m))}
-    G = up.shape[3]
-    first = (onp.arange(G) == 0)[None, None, :]
-    return {key: np.where(first, r0[key][..., None] * np.ones(res[key].shape), res[key])
-            for key in res}
+    keys = ("EE", "C", "S0", "S3")
+    # the (0,0) order's interference forms replace its single-wave ones
+    both = np.concatenate([np.stack([r0[key] for key in keys])[..., None], forms[..., 1:]],
+                          axis=-1)
+    return {key: both[i] for i, key in enumerate(keys)}
 
 
 def region_content(solution: Solution, region, *, tol: float | None = None):
