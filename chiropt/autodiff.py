@@ -18,6 +18,9 @@ length 1 as well (a no-op sum, ~10 us each: the forward model keeps a wavelength
 length 1 in a single-wavelength goal, so nearly every rule paid it). The replacement sums
 all removed axes in one call and only the axes that were really broadcast: the same sum
 up to the order of floating-point additions (round-off).
+Forward stash: ``ForwardStash`` hands what a coarse primitive's forward pass made (factors,
+directional derivatives) to its vector-Jacobian-product maker, which autograd calls right
+after the forward pass with the same arguments, so nothing is computed twice.
 Must not import: any chiropt module (imported for its side effect by the modules that run
 reverse passes: ``chiropt.sensitivity``, ``chiropt.goals.objectives``).
 
@@ -28,6 +31,8 @@ NumPy manual, "Indexing on ndarrays" (basic versus advanced indexing).
 """
 
 from __future__ import annotations
+
+import threading
 
 import numpy as onp
 from autograd.core import SparseObject, vspace
@@ -40,6 +45,29 @@ from autograd.tracer import getval
 
 
 _BASIC = (slice, int, type(None), type(Ellipsis))
+
+
+class ForwardStash:
+    """One slot per thread: the data a primitive's forward pass made for its VJP maker.
+
+    ``put(value, key, data)`` in the forward pass; ``take(value, key)`` in the VJP maker
+    returns ``data`` only for the very array the forward pass returned (identity, so a
+    stale entry of another call can never be used) and the same ``key`` (e.g. the traced
+    argument positions), else None (then the maker recomputes). The slot is emptied on take.
+    """
+
+    def __init__(self):
+        self._local = threading.local()
+
+    def put(self, value, key, data) -> None:
+        self._local.entry = (value, key, data)
+
+    def take(self, value, key):
+        entry = getattr(self._local, "entry", None)
+        self._local.entry = None
+        if entry is not None and entry[0] is value and entry[1] == key:
+            return entry[2]
+        return None
 
 
 def _is_basic(idx) -> bool:

@@ -207,40 +207,56 @@ def test_bad_tmatrix_shape_is_an_input_error():
         solve_multipole(st, np.zeros((3, 1, 6, 6)), 0)
 
 
-@pytest.mark.parametrize("arg", range(5))
-def test_reflected_interaction_primitive_matches_the_taped_products(arg):
+@pytest.mark.parametrize("arg,reflected", [(a, True) for a in range(8)]
+                         + [(a, False) for a in range(3)])
+def test_coupled_solve_primitive_matches_the_taped_operations(arg, reflected):
     # autograd (reference library): its own derivative of the operation-by-operation
-    # product that the primitive replaces; values equal, and the gradient of a real
-    # functional w.r.t. each (complex) input equal to round-off
+    # system (stack-reflected products, (I - T W) f = T b, e = b + W f) that the primitive
+    # replaces; values equal, and the gradient of a real functional of f and e w.r.t.
+    # each (complex) input equal to round-off
     import autograd.numpy as anp
     from autograd import grad as agrad
 
-    from chiropt.multipole.reflected import reflected_interaction
+    from chiropt.multipole.coupled import coupled_solve
 
     rng = np.random.default_rng(5)
     W, G, N, K2 = 2, 7, 2, 6
+    M = N * K2
 
     def c(*shape):
         return rng.normal(size=shape) + 1j * rng.normal(size=shape)
 
-    args = [c(W, G, N), c(W, G, 2), c(W, G, 2, K2), c(W, G, N), c(W, G, 2, K2)]
-    weight = c(W, N * K2, N * K2)
+    args = [0.3 * c(W, M, M), 0.2 * c(W, M, M), c(W, 2, M),
+            c(W, G, N), c(W, G, 2), 0.3 * c(W, G, 2, K2), c(W, G, N), 0.3 * c(W, G, 2, K2)]
+    weight_f, weight_e = c(W, 2, M), c(W, 2, M)
 
-    def taped(rc, r, recv, ph, emit):
-        rv = (anp.reshape(rc, (W, G, 1, N, 1)) * anp.reshape(r, (W, G, 2, 1, 1))
-              * anp.reshape(recv, (W, G, 2, 1, K2)))
-        em = anp.reshape(ph, (W, G, 1, N, 1)) * anp.reshape(emit, (W, G, 2, 1, K2))
-        return anp.matmul(anp.transpose(anp.reshape(rv, (W, 2 * G, N * K2)), (0, 2, 1)),
-                          anp.reshape(em, (W, 2 * G, N * K2)))
+    def taped(Tb, W_lat, b, rc, r, recv, ph, emit):
+        Wm = W_lat
+        if reflected:
+            rv = (anp.reshape(rc, (W, G, 1, N, 1)) * anp.reshape(r, (W, G, 2, 1, 1))
+                  * anp.reshape(recv, (W, G, 2, 1, K2)))
+            em = anp.reshape(ph, (W, G, 1, N, 1)) * anp.reshape(emit, (W, G, 2, 1, K2))
+            Wm = Wm + anp.matmul(anp.transpose(anp.reshape(rv, (W, 2 * G, M)), (0, 2, 1)),
+                                 anp.reshape(em, (W, 2 * G, M)))
+        A = anp.eye(M)[None] - anp.matmul(Tb, Wm)
+        f = anp.transpose(anp.linalg.solve(A, anp.matmul(Tb, anp.transpose(b, (0, 2, 1)))),
+                          (0, 2, 1))
+        e = b + anp.transpose(anp.matmul(Wm, anp.transpose(f, (0, 2, 1))), (0, 2, 1))
+        return f, e
 
-    def functional(f):
+    def ours(Tb, W_lat, b, rc, r, recv, ph, emit):
+        return coupled_solve(Tb, W_lat, b, (rc, r, recv, ph, emit) if reflected else None)
+
+    def functional(fn):
         def wrapped(x):
             a = list(args)
             a[arg] = x
-            return anp.real(anp.sum(weight * f(*a)))
+            f, e = fn(*a)
+            return anp.real(anp.sum(weight_f * f) + anp.sum(weight_e * e))
         return wrapped
 
-    np.testing.assert_allclose(reflected_interaction(*args), taped(*args), rtol=1e-13)
-    ours = agrad(functional(reflected_interaction))(args[arg])
+    for mine, ref in zip(ours(*args), taped(*args), strict=True):
+        np.testing.assert_allclose(mine, ref, rtol=1e-12)
+    mine = agrad(functional(ours))(args[arg])
     ref = agrad(functional(taped))(args[arg])
-    np.testing.assert_allclose(ours, ref, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(mine, ref, rtol=1e-11, atol=1e-12)

@@ -38,7 +38,6 @@ analogue, recurrences of the integrals I_p); Hobson, Proc. London Math. Soc. 24,
 from __future__ import annotations
 
 import math
-import threading
 from functools import cache
 
 import autograd.numpy as np
@@ -46,6 +45,7 @@ import numpy as onp
 from autograd.extend import defvjp_argnums, primitive
 from autograd.tracer import getval, isbox
 
+from chiropt.autodiff import ForwardStash
 from chiropt.errors import InputError
 from chiropt.lattice import Lattice, order_indices, splitting_parameter
 from chiropt.lattice.bravais import integer_pairs_within
@@ -361,9 +361,9 @@ def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=(), shape=None):
     return out.v, T._full_tangent(out) * onp.array(unit)[:, None, None, None]
 
 
-# the directional derivatives made with the value of the last traced call, for its
-# vector-Jacobian product (one slot per thread, matched by the identity of the value)
-_LAST = threading.local()
+# the directional derivatives made with the value of a traced call, for its
+# vector-Jacobian product
+_STASH = ForwardStash()
 
 
 def _unit_rate(rate: float, direction: int, directions: int):
@@ -383,7 +383,7 @@ def _sums(k, k_par, a1, a2, d, pmax, tol, splitting, traced=(), shape=None):
     if not traced:
         return _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, shape=shape)
     value, t = _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=traced, shape=shape)
-    _LAST.entry = (value, traced, t)
+    _STASH.put(value, tuple(traced), t)
     return value
 
 
@@ -395,11 +395,8 @@ def _sums_vjp(argnums, ans, args, kwargs):
     """
     wrt = tuple(sorted(argnums))
     shape = args[9] if len(args) > 9 else kwargs.get("shape")
-    entry = getattr(_LAST, "entry", None)
-    _LAST.entry = None
-    if entry is not None and entry[0] is ans and entry[1] == wrt:
-        t = entry[2]
-    else:
+    t = _STASH.take(ans, wrt)
+    if t is None:
         _, t = _kernel(*args[:8], wrt=wrt, shape=shape)
     rules = {0: "wpj,wpj->w", 1: "wpj,cwpj->wc", 2: "wpj,cwpj->c", 3: "wpj,cwpj->c",
              4: "wpj,cwpj->pc"}

@@ -1,8 +1,11 @@
-"""The stack-reflected multipole interaction as one autograd primitive.
+"""The stack-reflected multipole coupling: its factors and their low-rank cotangents.
 
-Owns: ``reflected_interaction`` — the (W, N 2K, N 2K) matrix that couples the particles
-of a cell through the waves the stack reflects, summed over the diffraction orders and
-both channels (s, p). Must not import: solve, fourier, farfield, fields, metrics, search.
+Owns: ``reflected_factors`` — the factors L, R of the (W, N 2K, N 2K) matrix W = L^T R
+that couples the particles of a cell through the waves the stack reflects, summed over
+the diffraction orders and both channels (s, p); ``low_rank_cotangents`` — the cotangents
+of the factors' inputs when the cotangent of W has the rank-two form u F^T of the coupled
+solve (``chiropt.multipole.coupled``). Must not import: solve, fourier, farfield, fields,
+metrics, search.
 
 The sum (docs/theory.md §9, §10): with x = (order g, channel c),
 
@@ -11,21 +14,33 @@ The sum (docs/theory.md §9, §10): with x = (order g, channel c),
 
 rc and ph the receiving and emitting phases of particles i, j, r the stack's reflection
 coefficient, recv and emit the plane-wave channel vectors of the modes
-(``chiropt.sphericalwaves.channel_modes``). Taped operation by operation, the hundreds of
-orders of a particle close to the stack made these products the costliest part of every
-reverse pass; as one node, its vector-Jacobian product is two matrix products and five
-contractions. For Y = L^T R and cotangent Ybar: Lbar = R Ybar^T, Rbar = L Ybar (autograd's
-convention, no conjugation), then the product rule on L and R.
+(``chiropt.sphericalwaves.channel_modes``). For Wbar = sum_t u_t F_t^T (autograd's
+convention, no conjugation): Lbar = (R F) u^T and Rbar = (L u) F^T, and the product rule on
+L and R gives every input's cotangent from contractions two columns wide (t = the two
+helicities): with F and u as (N, 2K) blocks per helicity,
+
+    Q[g,c,j,t] = sum_b emit[g,c,b] F[j,b,t],   (R F)[g,c,t] = sum_j ph[g,j] Q[g,c,j,t],
+    Y[g,c,n,t] = sum_a recv[g,c,a] u[n,a,t],   (L u)[g,c,t] = r[g,c] sum_n rc[g,n] Y[g,c,n,t],
+
+    rc_bar[g,n]     = sum_(c,t) (R F)[g,c,t] r[g,c] Y[g,c,n,t]
+    r_bar[g,c]      = sum_t (R F)[g,c,t] sum_n rc[g,n] Y[g,c,n,t]
+    recv_bar[g,c,a] = r[g,c] sum_t (R F)[g,c,t] sum_n rc[g,n] u[n,a,t]
+    ph_bar[g,j]     = sum_(c,t) (L u)[g,c,t] Q[g,c,j,t]
+    emit_bar[g,c,b] = sum_t (L u)[g,c,t] sum_j ph[g,j] F[j,b,t].
+
+Q, R F and sum_j ph F depend on the forward solution only and are made once; each reverse
+pass costs a few products of the size of the channel vectors, where a dense Wbar cost two
+matrix products 2K N wide over hundreds of orders.
 """
 
 from __future__ import annotations
 
 import autograd.numpy as np
 import numpy as onp
-from autograd.extend import defvjp_argnums, primitive
 
 
-def _factors(rc, r, recv, ph, emit):
+def reflected_factors(rc, r, recv, ph, emit):
+    """The factors L, R (W, 2G, N 2K) of the reflected coupling W = L^T R (module docstring)."""
     W, G, N = onp.shape(rc)
     K2 = onp.shape(recv)[-1]
     L = (np.reshape(rc, (W, G, 1, N, 1)) * np.reshape(r, (W, G, 2, 1, 1))
@@ -34,61 +49,56 @@ def _factors(rc, r, recv, ph, emit):
     return np.reshape(L, (W, 2 * G, N * K2)), np.reshape(R, (W, 2 * G, N * K2))
 
 
-@primitive
-def reflected_interaction(rc, r, recv, ph, emit):
-    """Stack-reflected coupling matrix (W, N 2K, N 2K) [-].
+def low_rank_cotangents(args, argnums, F):
+    """Cotangents of (rc, r, recv, ph, emit) for a cotangent u F^T of W (module docstring).
 
     Parameters
     ----------
-    rc : (W, G, N) — phase with which particle i receives the reflected upward order
-    r : (W, G, 2) — reflection coefficients of the stack for (s, p)
-    recv : (W, G, 2, 2K) — reception vectors of the upward orders
-    ph : (W, G, N) — phase with which particle j emits the downward order
-    emit : (W, G, 2, 2K) — emission vectors of the downward orders
+    args : (rc (W, G, N), r (W, G, 2), recv (W, G, 2, 2K), ph (W, G, N), emit (W, G, 2, 2K))
+    argnums : positions (0-4) of the wanted arguments
+    F : (W, N 2K, 2) — the right factor (the outgoing coefficients, one column per
+        helicity), fixed by the forward pass
 
-    References
-    ----------
-    Module docstring; docs/theory.md §9-§10.
+    Returns
+    -------
+    ``contract(u) -> tuple`` over ``argnums``, u (W, N 2K, 2); linear in u with autograd
+    operations (reverse mode applied twice works).
     """
-    L, R = _factors(rc, r, recv, ph, emit)
-    return onp.matmul(onp.transpose(L, (0, 2, 1)), R)
-
-
-def _vjp(argnums, ans, args, kwargs):
     rc, r, recv, ph, emit = args
     W, G, N = onp.shape(rc)
     K2 = onp.shape(recv)[-1]
-    L, R = _factors(rc, r, recv, ph, emit)
-    shape5 = (W, G, 2, N, K2)
     wanted = set(argnums)
-    # products of the factors that do not depend on the cotangent, made once per forward
-    # pass however many reverse passes follow
-    r_recv = r[..., None] * recv if 0 in wanted else None          # (W, G, 2, 2K)
-    rc_recv = (onp.einsum("wgn,wgca->wgcna", rc, recv) if 1 in wanted else None)
-    rc_r = onp.einsum("wgn,wgc->wgcn", rc, r) if 2 in wanted else None
+    # (W, 2K, 2N) columns (j, t) of F; products over the 2K modes as matrix products
+    F_cols = onp.reshape(onp.transpose(onp.reshape(F, (W, N, K2, 2)), (0, 2, 1, 3)),
+                         (W, K2, 2 * N))
+    Q = onp.reshape(onp.matmul(onp.reshape(emit, (W, 2 * G, K2)), F_cols), (W, G, 2, N, 2))
+    RF = onp.sum(ph[:, :, None, :, None] * Q, axis=3)                 # (W, G, 2, 2)
+    phF = onp.transpose(onp.reshape(onp.matmul(ph, onp.reshape(F, (W, N, 2 * K2))),
+                                    (W, G, K2, 2)), (0, 1, 3, 2))     # (W, G, t, 2K)
+    RF_r = RF * r[..., None]
+    recv2 = onp.reshape(recv, (W, 2 * G, K2))
 
-    def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
+    def contract(u):
+        u4 = np.reshape(u, (W, N, K2, 2))
+        u_cols = np.reshape(np.transpose(u4, (0, 2, 1, 3)), (W, K2, 2 * N))
+        Y = np.reshape(np.matmul(recv2, u_cols), (W, G, 2, N, 2))      # [g, c, n, t]
+        S = np.sum(rc[:, :, None, :, None] * Y, axis=3)                # (W, G, 2, 2)
+        Lu = r[..., None] * S
         out = []
-        Lbar = Rbar = None
-        if wanted & {0, 1, 2}:
-            Lbar = np.reshape(np.matmul(R, np.transpose(g, (0, 2, 1))), shape5)
-        if wanted & {3, 4}:
-            Rbar = np.reshape(np.matmul(L, g), shape5)
         for i in argnums:
             if i == 0:
-                v = np.einsum("wgcna,wgca->wgn", Lbar, r_recv)
+                v = np.sum(RF_r[:, :, :, None, :] * Y, axis=(2, 4))
             elif i == 1:
-                v = np.einsum("wgcna,wgcna->wgc", Lbar, rc_recv)
+                v = np.sum(RF * S, axis=-1)
             elif i == 2:
-                v = np.einsum("wgcna,wgcn->wgca", Lbar, rc_r)
+                Z = np.reshape(np.matmul(rc, np.reshape(np.transpose(u4, (0, 1, 3, 2)),
+                                                        (W, N, 2 * K2))), (W, G, 2, K2))
+                v = r[..., None] * np.matmul(RF, Z)                    # [c, t] @ [t, a]
             elif i == 3:
-                v = np.einsum("wgcna,wgca->wgn", Rbar, emit)
+                v = np.sum(Lu[:, :, :, None, :] * Q, axis=(2, 4))
             else:
-                v = np.einsum("wgcna,wgn->wgca", Rbar, ph)
+                v = np.matmul(Lu, phF)                                 # [c, t] @ [t, b]
             out.append(v if onp.iscomplexobj(args[i]) else np.real(v))
         return tuple(out)
 
-    return vjp
-
-
-defvjp_argnums(reflected_interaction, _vjp)
+    return contract if wanted else None

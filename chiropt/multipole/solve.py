@@ -30,8 +30,8 @@ import numpy as onp
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
+from chiropt.multipole.coupled import coupled_solve
 from chiropt.multipole.latticesums import lattice_sums
-from chiropt.multipole.reflected import reflected_interaction
 from chiropt.multipole.translation import translation_table
 from chiropt.sphericalwaves import (
     channel_modes,
@@ -197,7 +197,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     pref = 2 * np.pi / (area * k[:, None] * orders.kz)                # (W, G)
     qr, kzh, ph_up, ph_dn = emission_phases(orders, rho, h, pref)
 
-    coef = None
+    coef = reflected = None
     if st.has_substrate:
         coef = stack_for_orders(st, orders, "host")
         # stack-reflected interaction, both channels of every order in one product
@@ -206,7 +206,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
         rc_up = np.exp(1j * qr + 1j * kzh)                             # receive upward wave
         recv_up = channel_modes(P, "receive", lmax)                    # (W, G, 2, 2K)
         emit_dn = channel_modes(P * parity, "emit", lmax)
-        Wmat = Wmat + reflected_interaction(rc_up, r, recv_up, ph_dn, emit_dn)
+        reflected = (rc_up, r, recv_up, ph_dn, emit_dn)
 
     # -- background field: (0,0)-order components on (s, p) ---------------------------------
     D0, U0, X0 = background_components(st, orders, coef)
@@ -220,12 +220,8 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
          + np.matmul(U0, r0_up)[:, :, None, :] * up0)                 # (W, 2, N, 2K)
     b = np.reshape(b, (W, 2, N * K2))
 
-    # -- solve (I - T W) f = T b ---------------------------------------------------------------
-    Tb = _block_diag(tmatrices)
-    Amat = np.eye(N * K2)[None] - np.matmul(Tb, Wmat)
-    rhs = np.matmul(Tb, np.transpose(b, (0, 2, 1)))
-    f = np.transpose(np.linalg.solve(Amat, rhs), (0, 2, 1))           # (W, 2, N 2K)
-    e = b + np.transpose(np.matmul(Wmat, np.transpose(f, (0, 2, 1))), (0, 2, 1))
+    # -- solve (I - T W) f = T b, e = b + W f (W with the stack-reflected part) -----------
+    f, e = coupled_solve(_block_diag(tmatrices), Wmat, b, reflected)   # (W, 2, N 2K) each
 
     # -- outgoing orders, components on (s, p) --------------------------------------------
     # amplitude of channel c in direction d: sum_(c', k) P[c', k] F[c', k, d, c] with

@@ -1,0 +1,124 @@
+"""The coupled multipole system of one cell, solved as one autograd primitive.
+
+Owns: ``coupled_solve`` — the outgoing coefficients f and the exciting coefficients e of
+the particles of a cell from their T-matrices, the lattice coupling, the stack-reflected
+coupling (optional) and the background exciting field, for both incident helicities.
+Must not import: solve, fourier, farfield, fields, metrics, search.
+
+The system (docs/theory.md §9, §10), per wavelength, with W = W_lat + W_refl and
+W_refl = L^T R (``chiropt.multipole.reflected``):
+
+    (I - T W) f = T b,        e = b + W f,
+
+for the two helicities as two right-hand sides. Vector-Jacobian product (bilinear pairing,
+autograd's convention, no conjugation): with the cotangents fbar, ebar of f and e,
+
+    lam = (I - T W)^-T (fbar + W^T ebar),     u = ebar + T^T lam,
+    Tbar = lam e^T,   bbar = u,   Wbar = u f^T,
+
+so the cotangent of the coupling is of rank two (the two helicities) per wavelength, and
+the stack-reflected part passes it on in that form
+(``chiropt.multipole.reflected.low_rank_cotangents``): contractions two columns wide
+instead of the 2K N of a dense Wbar, which made the reflected coupling the costliest part
+of every reverse pass (one per objective and constraint row).
+
+References
+----------
+Giles, "Collected matrix derivative results for forward and reverse mode algorithmic
+differentiation", in Advances in Automatic Differentiation, Springer (2008), §2.2-2.3
+(reverse-mode rules of the inverse, the solve and the matrix product).
+"""
+
+from __future__ import annotations
+
+import autograd.numpy as np
+import numpy as onp
+from autograd.extend import defvjp_argnums, primitive
+
+from chiropt.autodiff import ForwardStash
+from chiropt.multipole.reflected import low_rank_cotangents, reflected_factors
+
+_STASH = ForwardStash()
+
+
+def coupled_solve(Tb, W_lat, b, reflected=None):
+    """Outgoing and exciting coefficients of the particles of a cell.
+
+    Parameters
+    ----------
+    Tb : (W, M, M) — block-diagonal T-matrix of the cell, M = N 2K [-]
+    W_lat : (W, M, M) — lattice coupling (translation of the lattice-summed outgoing waves
+        into regular waves at every particle) [-]
+    b : (W, 2, M) — exciting coefficients of the background field, helicities [+1, -1] [V/m]
+    reflected : tuple (rc, r, recv, ph, emit) or None — the arguments of
+        ``chiropt.multipole.reflected.reflected_interaction`` (stack-reflected coupling)
+
+    Returns
+    -------
+    (f, e) : (W, 2, M) each — outgoing and exciting coefficients [V/m].
+
+    References
+    ----------
+    Module docstring; docs/theory.md §9.
+    """
+    args = (Tb, W_lat, b) + (tuple(reflected) if reflected is not None else (None,) * 5)
+    out = _coupled(*args)
+    return out[0], out[1]
+
+
+def _forward(Tb, W_lat, b, rc, r, recv, ph, emit):
+    Wmat = onp.asarray(W_lat)
+    if rc is not None:
+        L, R = reflected_factors(rc, r, recv, ph, emit)
+        Wmat = Wmat + onp.matmul(onp.transpose(L, (0, 2, 1)), R)
+    M = Wmat.shape[-1]
+    A = onp.eye(M)[None] - onp.matmul(Tb, Wmat)
+    bT = onp.transpose(b, (0, 2, 1))                                   # (W, M, 2)
+    F = onp.linalg.solve(A, onp.matmul(Tb, bT))                       # (W, M, 2)
+    E = bT + onp.matmul(Wmat, F)
+    return onp.stack([onp.transpose(F, (0, 2, 1)), onp.transpose(E, (0, 2, 1))]), \
+        (Wmat, A, F, E)
+
+
+@primitive
+def _coupled(Tb, W_lat, b, rc, r, recv, ph, emit):
+    """[f, e] stacked, (2, W, 2, M) (:func:`coupled_solve`)."""
+    out, parts = _forward(Tb, W_lat, b, rc, r, recv, ph, emit)
+    _STASH.put(out, None, parts)
+    return out
+
+
+def _coupled_vjp(argnums, ans, args, kwargs):
+    parts = _STASH.take(ans, None)
+    if parts is None:
+        parts = _forward(*args)[1]
+    Wmat, A, F, E = parts
+    Tb = args[0]
+    At = onp.transpose(A, (0, 2, 1))
+    Wt = onp.transpose(Wmat, (0, 2, 1))
+    Tt = onp.transpose(Tb, (0, 2, 1))
+    Ft = onp.transpose(F, (0, 2, 1))
+    refl = [i - 3 for i in argnums if i >= 3]
+    contract = low_rank_cotangents(args[3:], refl, F) if refl else None
+
+    def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
+        gf, ge = np.transpose(g[0], (0, 2, 1)), np.transpose(g[1], (0, 2, 1))   # (W, M, 2)
+        lam = np.linalg.solve(At, gf + np.matmul(Wt, ge))
+        u = ge + np.matmul(Tt, lam)
+        out = {}
+        if 0 in argnums:
+            out[0] = np.matmul(lam, np.transpose(E, (0, 2, 1)))
+        if 1 in argnums:
+            out[1] = np.matmul(u, Ft)
+        if 2 in argnums:
+            out[2] = np.transpose(u, (0, 2, 1))
+        if refl:
+            for i, v in zip(refl, contract(u), strict=True):
+                out[i + 3] = v
+        return tuple(out[i] if onp.iscomplexobj(args[i]) else np.real(out[i])
+                     for i in argnums)
+
+    return vjp
+
+
+defvjp_argnums(_coupled, _coupled_vjp)
