@@ -73,8 +73,38 @@ def _near_rayleigh(_rng):
     })
 
 
+def _multipole_normal(rng):
+    # multipole model at normal incidence on a square lattice (degenerate (1,0)/(0,1)
+    # orders, plain zero Bloch vector): the coarse primitives' hardest symmetric point
+    return design_from_dict({
+        "lattice": {"kind": "square", "period_nm": float(rng.uniform(400, 440))},
+        "particles": [{"radius_nm": float(rng.uniform(75, 90)), "material": "Si"}],
+        "substrate": {"material": "SiO2"}, "gap_nm": 0,
+        "region": {"kind": "plane", "height_nm": 10.0},
+        "illumination": {"wavelength_nm": [float(rng.uniform(660, 720))], "polar_deg": 0.0},
+        "model": {"lmax": 3},
+    })
+
+
+def _multipole_near_rayleigh(_rng):
+    # multipole model 0.2 % to the red of the (1,0) substrate anomaly of a hexagonal lattice
+    # (lambda = n_sub a sqrt(3)/2 for its shortest reciprocal vector), oblique incidence
+    a = 420.0
+    return design_from_dict({
+        "lattice": {"kind": "hexagonal", "period_nm": a},
+        "particles": [{"radius_nm": 70.0, "material": {"n": 3.2, "k": 0.02}}],
+        "substrate": {"material": {"n": 1.46}}, "gap_nm": 5,
+        "region": {"kind": "slab", "from_nm": 5.0, "thickness_nm": 15.0},
+        "illumination": {"wavelength_nm": [1.46 * a * np.sqrt(3) / 2 * 1.002],
+                         "polar_deg": 3.0, "azimuth_deg": 10.0},
+        "model": {"lmax": 2},
+    })
+
+
 BUILDERS = {"substrate": _substrate_design, "free-oblique-coreshell": _free_design,
-            "near-mie": _near_mie, "near-rayleigh": _near_rayleigh}
+            "near-mie": _near_mie, "near-rayleigh": _near_rayleigh,
+            "multipole-normal": _multipole_normal,
+            "multipole-near-rayleigh": _multipole_near_rayleigh}
 
 
 def _objective(weights, names=FAR_FIELD):

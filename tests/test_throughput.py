@@ -51,3 +51,143 @@ def test_gradients_equal_the_stored_reference(name):
         s = value_and_gradient(design, lambda q, n=qname, w=w: anp.real(q[n][w]), list(ref))
         for path, v in ref.items():
             _close(s.gradient[path], v, f"{name}: d {label} / d {path}")
+
+
+# ------------------------------------------------------------------ primitives vs FD
+
+def _c(rng, *shape):
+    return rng.normal(size=shape) + 1j * rng.normal(size=shape)
+
+
+def _directions(W, G, at):
+    """In-plane wavevectors (W, G, 2) [1/k] with (0,0) first: ``ordinary`` orders, the
+    orders of a square lattice at ``normal`` incidence (q = 0 and degenerate pairs), or
+    one order ``grazing`` a Rayleigh anomaly (|q| = k within 1e-3)."""
+    rng = onp.random.default_rng(7)
+    q = rng.normal(size=(W, G, 2)) * 0.8
+    if at == "normal":
+        mn = onp.array([[0, 0], [1, 0], [0, 1], [-1, 0], [0, -1], [1, 1]])[:G]
+        q = onp.broadcast_to(0.7 * mn.astype(float), (W, G, 2)).copy()
+    elif at == "grazing":
+        q[:, 1] = [1.0 + 1e-3, 0.0]
+    return q
+
+
+@pytest.mark.parametrize("at", ["ordinary", "normal", "grazing"])
+def test_order_basis_primitive_against_finite_differences(at):
+    # central finite differences (autograd.test_util.check_grads, common practice, no
+    # source) of s, p_up, p_down, k_up, k_down; q = 0 only where the azimuth fixes q_hat
+    from autograd.test_util import check_grads
+
+    from chiropt.planewaves import kz_branch, order_basis
+    q = _directions(2, 6, at)
+    k = onp.array([[1.0], [1.1]])
+    kz = kz_branch(k, onp.sum(q ** 2, axis=-1))
+    nonzero = onp.any(q != 0, axis=-1)
+
+    def stacked(qv, kzv, kv, az):
+        q_full = anp.where(nonzero[..., None], qv, 0.0)
+        return anp.stack(order_basis(q_full, kzv, kv, az))
+
+    check_grads(stacked, modes=["rev"], order=1)(onp.where(nonzero[..., None], q, 0.3), kz,
+                                               k * (1 + 0.02j), 0.4)
+
+
+@pytest.mark.parametrize("at", ["ordinary", "normal", "grazing"])
+@pytest.mark.parametrize("lmax", [1, 3])
+def test_projection_and_channel_primitives_against_finite_differences(at, lmax):
+    # central finite differences (check_grads, common practice, no source) of the
+    # projections X . s, X . p (analytic continuation for evanescent directions) and of
+    # the emission and reception vectors built from them
+    from autograd.test_util import check_grads
+
+    from chiropt.planewaves import kz_branch, order_basis
+    from chiropt.sphericalwaves import channel_modes, order_projections
+    q = _directions(1, 6, at)
+    kz = kz_branch(1.0, onp.sum(q ** 2, axis=-1))
+    s, pu, _, ku, _ = order_basis(q, kz, 1.0, 0.2)
+    check_grads(lambda a, b, c: order_projections(a, b, c, lmax), modes=["rev"],
+                order=1)(ku, s, pu)
+    P = order_projections(ku, s, pu, lmax)
+    for kind in ("emit", "receive"):
+        check_grads(lambda x, kind=kind: channel_modes(x, kind, lmax), modes=["rev"],
+                    order=1)(P)
+
+
+def test_region_average_primitives_against_finite_differences():
+    # central finite differences (check_grads, common practice, no source): single-wave
+    # forms of |E|^2, C, S0, S3, and (exp(x)-1)/x on both sides of its series switch
+    from autograd.test_util import check_grads
+
+    from chiropt.metrics import _phi1, _single_wave_forms
+    rng = onp.random.default_rng(3)
+    W, G = 2, 5
+    check_grads(_single_wave_forms, modes=["rev"], order=1)(
+        _c(rng, W, 2, 2, G), _c(rng, W, G), onp.abs(rng.normal(size=(W, G))),
+        onp.abs(rng.normal(size=(W, 1, G))))
+    for x in (onp.array([0.0, 1e-3, -9e-3, 1.1e-2, 0.5, -3.0]),
+              onp.array([1e-3 + 2e-3j, 0.4 - 0.2j, 2j])):
+        check_grads(_phi1, modes=["rev"], order=1)(x)
+
+
+@pytest.mark.parametrize("kind", ["square", "hexagonal"])
+def test_lattice_sums_along_the_length_against_finite_differences(kind):
+    # central finite differences (common practice, no source) of the lattice sums of a
+    # lattice of fixed shape, differentiated along its length (one direction), against the
+    # same sums built from the four vector components (the general path)
+    from autograd import jacobian
+
+    from chiropt.lattice import Lattice
+    from chiropt.multipole.latticesums import lattice_sums
+    k = onp.array([2 * onp.pi / 700e-9])
+    kp = onp.array([[1.2e6, -0.4e6]])
+    d = onp.array([[0.0, 0.0, 0.0], [60e-9, -30e-9, 10e-9]])
+    make = getattr(Lattice, kind)
+
+    def general(a):
+        lat = make(a)
+        return lattice_sums(k, kp, Lattice(lat.a1, lat.a2), d, 4)
+
+    def along(a):
+        return lattice_sums(k, kp, make(a), d, 4)
+
+    a0, h = 410e-9, 1e-12
+    fd = (general(a0 + h) - general(a0 - h)) / (2 * h)
+    ours = jacobian(lambda a: anp.real(along(a)))(a0) + 1j * jacobian(
+        lambda a: anp.imag(along(a)))(a0)
+    onp.testing.assert_allclose(along(a0), general(a0), rtol=1e-13)
+    onp.testing.assert_allclose(ours, fd, rtol=1e-5, atol=1e-6 * onp.max(onp.abs(fd)))
+
+
+def test_designs_evaluated_in_turn_never_share_values():
+    # common practice, no source: the forward stashes (lattice sums, coupled solve) and the
+    # cached tables must not hand one design's data to another
+    a, b = (REFERENCE[n]["design"] for n in ("multipole-square-substrate-normal",
+                                             "multipole-oblique-two-particles"))
+    da, db = design_from_dict(a), design_from_dict(b)
+
+    def grad_of(design):
+        paths = [p for p in design.parameters() if p != "host_index"]
+        return value_and_gradient(design, lambda q: anp.real(q["g"][0]), paths)
+
+    first = grad_of(da)
+    other = grad_of(db)
+    again = grad_of(da)
+    assert again.value == first.value and other.value != first.value
+    for path, v in first.gradient.items():
+        onp.testing.assert_array_equal(again.gradient[path], v)
+
+
+def test_a_stash_entry_is_used_only_by_the_call_that_made_it():
+    # common practice, no source: a VJP maker that meets another call's stash entry
+    # recomputes instead of using it
+    from chiropt.autodiff import ForwardStash
+    stash = ForwardStash()
+    first, second = onp.zeros(3), onp.zeros(3)
+    stash.put(first, (0,), "data of the first call")
+    assert stash.take(second, (0,)) is None        # another array: not its entry
+    stash.put(first, (0,), "data of the first call")
+    assert stash.take(first, (1,)) is None         # other traced arguments
+    stash.put(first, (0,), "data of the first call")
+    assert stash.take(first, (0,)) == "data of the first call"
+    assert stash.take(first, (0,)) is None         # emptied on take
