@@ -429,7 +429,7 @@ def down_parity(lmax: int):
     return onp.stack([-parity, parity])
 
 
-def channel_modes(P, kind: str, lmax: int):
+def channel_modes(P, kind: str, lmax: int, down: bool = False):
     """Emission or reception vectors over the 2K modes from the projections P.
 
     Parameters
@@ -437,6 +437,8 @@ def channel_modes(P, kind: str, lmax: int):
     P : array (..., 2, K) — [X . s, X . p] of one direction (:func:`order_projections`)
     kind : 'emit' or 'receive'
     lmax : int
+    down : the vectors of the downward direction (q, -kz)/k, whose projections are
+        ``P * down_parity(lmax)`` (the parity folded into the constant factors)
 
     Returns
     -------
@@ -452,27 +454,31 @@ def channel_modes(P, kind: str, lmax: int):
     """
     if kind not in ("emit", "receive"):
         raise ValueError(f"kind must be 'emit' or 'receive', not {kind!r}")
-    return _channels(P, kind == "receive", int(lmax))
+    return _channels(P, kind == "receive", int(lmax), bool(down))
 
 
 @cache
-def _channel_tables(receive: bool, lmax: int):
+def _channel_tables(receive: bool, lmax: int, down: bool):
     """Constants of :func:`channel_modes`: the gather of P over modes (m -> -m for
-    'receive', identity for 'emit') and the factors (a_s, a_p, b) with
-    out[c, (l m), N] = a_c P[1 - c] and out[c, (l m), M] = b P[c] after the gather."""
+    'receive', identity for 'emit') and the factors (a_s, a_p (K,), b (2, K)) with
+    out[c, (l m), N] = a_c P[1 - c] and out[c, (l m), M] = b_c P[c] after the gather;
+    ``down`` folds in the parity of :func:`down_parity`."""
     perm, sign = _neg_m_perm(lmax)
     factor = 4 * onp.pi * _i_power(lmax, +1) if receive else _i_power(lmax, -1)
     fN, fM = factor[0::2], factor[1::2]
     w = sign if receive else onp.ones_like(sign)   # receive: P -> -(-1)^m P[m -> -m], n -> -n
     a0, a1 = 1j * w * fN, -1j * w * fN
-    b = -w * fM if receive else fM
+    b = onp.stack([-w * fM if receive else fM] * 2)
+    if down:
+        par = down_parity(lmax)[:, perm] if receive else down_parity(lmax)
+        a0, a1, b = a0 * par[1], a1 * par[0], b * par
     return (perm if receive else None), onp.argsort(perm), a0, a1, b
 
 
 @primitive
-def _channels(P, receive, lmax):
+def _channels(P, receive, lmax, down):
     """:func:`channel_modes` as one autograd node (a linear map of P, transposed in reverse)."""
-    perm, _, a0, a1, b = _channel_tables(receive, lmax)
+    perm, _, a0, a1, b = _channel_tables(receive, lmax, down)
     Pg = P[..., perm] if receive else P
     K = lmax * (lmax + 2)
     sh = onp.shape(Pg)[:-2]
@@ -483,8 +489,8 @@ def _channels(P, receive, lmax):
     return onp.reshape(out, sh + (2, 2 * K))
 
 
-def _channels_vjp(ans, P, receive, lmax):
-    _, inverse, a0, a1, b = _channel_tables(receive, lmax)
+def _channels_vjp(ans, P, receive, lmax, down):
+    _, inverse, a0, a1, b = _channel_tables(receive, lmax, down)
     K = lmax * (lmax + 2)
 
     def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
@@ -496,7 +502,7 @@ def _channels_vjp(ans, P, receive, lmax):
     return vjp
 
 
-defvjp(_channels, _channels_vjp, None, None)
+defvjp(_channels, _channels_vjp, None, None, None)
 
 
 # ------------------------------------------------------------------ dipole map

@@ -102,7 +102,7 @@ def test_projection_and_channel_primitives_against_finite_differences(at, lmax):
     from autograd.test_util import check_grads
 
     from chiropt.planewaves import kz_branch, order_basis
-    from chiropt.sphericalwaves import channel_modes, order_projections
+    from chiropt.sphericalwaves import channel_modes, down_parity, order_projections
     q = _directions(1, 6, at)
     kz = kz_branch(1.0, onp.sum(q ** 2, axis=-1))
     s, pu, _, ku, _ = order_basis(q, kz, 1.0, 0.2)
@@ -110,8 +110,13 @@ def test_projection_and_channel_primitives_against_finite_differences(at, lmax):
                 order=1)(ku, s, pu)
     P = order_projections(ku, s, pu, lmax)
     for kind in ("emit", "receive"):
-        check_grads(lambda x, kind=kind: channel_modes(x, kind, lmax), modes=["rev"],
-                    order=1)(P)
+        for down in (False, True):
+            check_grads(lambda x, kind=kind, down=down: channel_modes(x, kind, lmax, down),
+                        modes=["rev"], order=1)(P)
+        # the downward direction's vectors: the projections times their z-parity
+        onp.testing.assert_allclose(channel_modes(P, kind, lmax, down=True),
+                                    channel_modes(P * down_parity(lmax), kind, lmax),
+                                    rtol=1e-15, atol=0)
 
 
 def test_region_average_primitives_against_finite_differences():

@@ -36,7 +36,7 @@ import numpy as onp
 from autograd.extend import defvjp_argnums, primitive
 
 from chiropt.autodiff import ForwardStash
-from chiropt.multipole.reflected import low_rank_cotangents, reflected_factors
+from chiropt.multipole.reflected import low_rank_cotangents, reflected_matrix
 
 _STASH = ForwardStash()
 
@@ -69,8 +69,7 @@ def coupled_solve(Tb, W_lat, b, reflected=None):
 def _forward(Tb, W_lat, b, rc, r, recv, ph, emit):
     Wmat = onp.asarray(W_lat)
     if rc is not None:
-        L, R = reflected_factors(rc, r, recv, ph, emit)
-        Wmat = Wmat + onp.matmul(onp.transpose(L, (0, 2, 1)), R)
+        Wmat = Wmat + reflected_matrix(rc, r, recv, ph, emit)
     M = Wmat.shape[-1]
     A = onp.eye(M)[None] - onp.matmul(Tb, Wmat)
     bT = onp.transpose(b, (0, 2, 1))                                   # (W, M, 2)

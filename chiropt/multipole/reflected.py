@@ -2,7 +2,8 @@
 
 Owns: ``reflected_factors`` — the factors L, R of the (W, N 2K, N 2K) matrix W = L^T R
 that couples the particles of a cell through the waves the stack reflects, summed over
-the diffraction orders and both channels (s, p); ``low_rank_cotangents`` — the cotangents
+the diffraction orders and both channels (s, p); ``reflected_matrix`` — W itself;
+``low_rank_cotangents`` — the cotangents
 of the factors' inputs when the cotangent of W has the rank-two form u F^T of the coupled
 solve (``chiropt.multipole.coupled``). Must not import: solve, fourier, farfield, fields,
 metrics, search.
@@ -47,6 +48,20 @@ def reflected_factors(rc, r, recv, ph, emit):
          * np.reshape(recv, (W, G, 2, 1, K2)))
     R = np.reshape(ph, (W, G, 1, N, 1)) * np.reshape(emit, (W, G, 2, 1, K2))
     return np.reshape(L, (W, 2 * G, N * K2)), np.reshape(R, (W, 2 * G, N * K2))
+
+
+def reflected_matrix(rc, r, recv, ph, emit):
+    """W = L^T R (W, N 2K, N 2K), plain values. One particle per cell: the phases and the
+    reflection coefficient fold into one weight per order and channel, W = (w recv)^T emit,
+    so only one weighted copy of the channel vectors is made."""
+    W, G, N = onp.shape(rc)
+    if N == 1:
+        w = (rc * ph) * r                                               # (W, G, 2)
+        K2 = onp.shape(recv)[-1]
+        weighted = onp.reshape(w[..., None] * recv, (W, 2 * G, K2))
+        return onp.matmul(onp.transpose(weighted, (0, 2, 1)), onp.reshape(emit, (W, 2 * G, K2)))
+    L, R = reflected_factors(rc, r, recv, ph, emit)
+    return onp.matmul(onp.transpose(L, (0, 2, 1)), R)
 
 
 def low_rank_cotangents(args, argnums, F):

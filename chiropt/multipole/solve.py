@@ -205,7 +205,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
         r = np.stack([coef.r_s, coef.r_p], axis=-1)                    # (W, G, 2)
         rc_up = np.exp(1j * qr + 1j * kzh)                             # receive upward wave
         recv_up = channel_modes(P, "receive", lmax)                    # (W, G, 2, 2K)
-        emit_dn = channel_modes(P * parity, "emit", lmax)
+        emit_dn = channel_modes(P, "emit", lmax, down=True)
         reflected = (rc_up, r, recv_up, ph_dn, emit_dn)
 
     # -- background field: (0,0)-order components on (s, p) ---------------------------------
@@ -215,7 +215,7 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     dn0 = (ph0 * np.exp(-1j * kz0[:, None] * h[None, :]))[:, None, :, None]
     up0 = (ph0 * np.exp(1j * kz0[:, None] * h[None, :]))[:, None, :, None]
     r0_up = channel_modes(P[:, 0], "receive", lmax)                   # (W, 2, 2K)
-    r0_dn = channel_modes(P[:, 0] * parity, "receive", lmax)
+    r0_dn = channel_modes(P[:, 0], "receive", lmax, down=True)
     b = (np.matmul(D0, r0_dn)[:, :, None, :] * dn0
          + np.matmul(U0, r0_up)[:, :, None, :] * up0)                 # (W, 2, N, 2K)
     b = np.reshape(b, (W, 2, N * K2))
