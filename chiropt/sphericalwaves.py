@@ -56,6 +56,9 @@ import autograd.numpy as np
 import numpy as onp
 import scipy.special as sps
 from autograd.extend import defvjp, defvjp_argnums, primitive
+from autograd.tracer import isbox
+
+from chiropt.autodiff import ForwardStash
 
 # ------------------------------------------------------------------ indexing
 
@@ -134,45 +137,81 @@ def harmonics_and_derivatives(u, lmax: int, derivative: bool = True):
     return _harmonic_table(u, int(lmax), bool(derivative))
 
 
+@cache
+def _harmonic_constants(lmax: int):
+    """Per (l, m >= 0) constants of :func:`_harmonic_table`, over l = 0..lmax rows."""
+    ms = onp.arange(lmax + 1)
+    dfact = onp.array([float(onp.prod(onp.arange(2 * m - 1, 0, -2))) if m else 1.0
+                       for m in ms])
+    norm = onp.array([[_norm(l, m) if m <= l else 0.0 for m in ms] for l in range(lmax + 1)])
+    sign = (-1.0) ** ms
+    return ms, dfact, norm, sign
+
+
 def _harmonic_table(u, lmax: int, derivative: bool):
-    """Plain values Y (..., J) and, with ``derivative``, dY/du (..., J, 3)."""
+    """Plain values Y (..., J) and, with ``derivative``, dY/du (..., J, 3).
+
+    Y_lm = c_lm (-1)^m (u_x + i u_y)^m q_lm(u_z), Y_l,-m = c_lm (u_x - i u_y)^m q_lm(u_z),
+    with q_lm = d^m P_l / dt^m (t = u_z) from the three-term recurrence in l (DLMF 14.10.3
+    differentiated m times; the polynomial form continues Y_lm to complex u), run for all
+    m at once: one step per degree l.
+    """
     u = onp.asarray(u)
     ux, uy, t = u[..., 0], u[..., 1], u[..., 2]
+    sh = t.shape
+    ms, dfact, norm, sign = _harmonic_constants(lmax)
+    M = lmax + 1
+    # powers (u_x +- i u_y)^m, m = 0..lmax, and m (u_x +- i u_y)^(m-1) for the derivative
+    pw_p = onp.empty((M,) + sh, dtype=complex)
+    pw_m = onp.empty((M,) + sh, dtype=complex)
+    pw_p[0] = pw_m[0] = 1.0
     plus, minus = ux + 1j * uy, ux - 1j * uy
-    one = onp.ones_like(t, dtype=complex)
-    pw_p, pw_m = [one], [one]
-    for _ in range(lmax):
-        pw_p.append(pw_p[-1] * plus)
-        pw_m.append(pw_m[-1] * minus)
-    J = (lmax + 1) ** 2
-    Y = onp.empty(t.shape + (J,), dtype=complex)
-    D = onp.empty(t.shape + (J, 3), dtype=complex) if derivative else None
-    for m in range(lmax + 1):
-        dfact = float(onp.prod(onp.arange(2 * m - 1, 0, -2))) if m > 0 else 1.0
-        q_prev, q = 0.0 * one, dfact * one
-        dq_prev, dq = 0.0 * one, 0.0 * one
-        for l in range(m, lmax + 1):
-            if l > m:
-                nxt = ((2 * l - 1) * t * q - (l + m - 1) * q_prev) / (l - m)
-                dnxt = ((2 * l - 1) * (q + t * dq) - (l + m - 1) * dq_prev) / (l - m)
-                q_prev, q, dq_prev, dq = q, nxt, dq, dnxt
-            c = _norm(l, m)
-            sign = (-1) ** m
-            Y[..., l * (l + 1) + m] = c * sign * pw_p[m] * q
-            if m > 0:
-                Y[..., l * (l + 1) - m] = c * pw_m[m] * q
+    for m in range(1, M):
+        pw_p[m] = pw_p[m - 1] * plus
+        pw_m[m] = pw_m[m - 1] * minus
+    J = M * M
+    Y = onp.empty((J,) + sh, dtype=complex)          # harmonic index first while filling
+    D = onp.zeros((J, 3) + sh, dtype=complex) if derivative else None
+    q_prev = onp.zeros((M,) + sh, dtype=complex)
+    q = onp.zeros((M,) + sh, dtype=complex)
+    dq_prev = onp.zeros_like(q) if derivative else None
+    dq = onp.zeros_like(q) if derivative else None
+    tb = t[None]
+    for l in range(M):
+        lo = ms[:l]                                     # m < l: one recurrence step
+        if l:
+            a = ((2 * l - 1) / (l - lo)).reshape((-1,) + (1,) * t.ndim)
+            b = ((l + lo - 1) / (l - lo)).reshape((-1,) + (1,) * t.ndim)
+            nxt = a * tb * q[:l] - b * q_prev[:l]
             if derivative:
-                lower_p = m * pw_p[m - 1] if m > 0 else 0.0 * one
-                lower_m = m * pw_m[m - 1] if m > 0 else 0.0 * one
-                k = l * (l + 1) + m
-                D[..., k, 0] = c * sign * lower_p * q
-                D[..., k, 1] = c * sign * 1j * lower_p * q
-                D[..., k, 2] = c * sign * pw_p[m] * dq
-                if m > 0:
-                    k = l * (l + 1) - m
-                    D[..., k, 0] = c * lower_m * q
-                    D[..., k, 1] = -1j * c * lower_m * q
-                    D[..., k, 2] = c * pw_m[m] * dq
+                dnxt = a * (q[:l] + tb * dq[:l]) - b * dq_prev[:l]
+                dq_prev[:l], dq[:l] = dq[:l], dnxt
+            q_prev[:l], q[:l] = q[:l], nxt
+        q[l] = dfact[l]                                 # m = l starts its column
+        if derivative:
+            dq[l] = 0.0
+        c = norm[l, :l + 1].reshape((-1,) + (1,) * t.ndim)
+        s = sign[:l + 1].reshape(c.shape)
+        pos = c * s * pw_p[:l + 1] * q[:l + 1]          # Y_l,m, m = 0..l
+        neg = c[1:] * pw_m[1:l + 1] * q[1:l + 1]        # Y_l,-m, m = 1..l
+        base = l * (l + 1)
+        Y[base:base + l + 1] = pos
+        Y[base - l:base][::-1] = neg                    # m = -1 .. -l at base-1 .. base-l
+        if derivative:
+            mm = ms[1:l + 1].reshape((-1,) + (1,) * t.ndim)
+            low_p = mm * pw_p[:l]                       # m (u_x + i u_y)^(m-1), m >= 1
+            low_m = mm * pw_m[:l]
+            cs = c * s
+            Dp, Dn = D[base:base + l + 1], D[base - l:base][::-1]
+            Dp[1:, 0] = cs[1:] * low_p * q[1:l + 1]
+            Dp[1:, 1] = 1j * Dp[1:, 0]
+            Dp[:, 2] = cs * pw_p[:l + 1] * dq[:l + 1]
+            Dn[:, 0] = c[1:] * low_m * q[1:l + 1]
+            Dn[:, 1] = -1j * Dn[:, 0]
+            Dn[:, 2] = c[1:] * pw_m[1:l + 1] * dq[1:l + 1]
+    Y = onp.ascontiguousarray(onp.moveaxis(Y, 0, -1))
+    if derivative:
+        D = onp.ascontiguousarray(onp.moveaxis(D, (0, 1), (-2, -1)))
     return Y, D
 
 
@@ -372,7 +411,7 @@ def order_projections(k_up, s, p_up, lmax: int):
     ----------
     Jackson (1999) eqs. 9.101-9.104 (X_lm); module docstring.
     """
-    return _projections(k_up, np.stack([s, p_up], axis=-2), int(lmax))
+    return _projections(k_up, np.stack([s, p_up], axis=-2), int(lmax), isbox(k_up))
 
 
 def _cartesian_x(Y, lmax: int):
@@ -383,16 +422,26 @@ def _cartesian_x(Y, lmax: int):
     return onp.reshape(onp.reshape(Y, (-1, (lmax + 1) ** 2)) @ cat, sh + (3, K))
 
 
+_PROJECTION_STASH = ForwardStash()
+
+
 @primitive
-def _projections(k_up, V, lmax):
-    """[X . s, X . p_up] (..., 2, K) from unit wavevectors (..., 3) and V = [s; p] (..., 2, 3)."""
-    Y = _harmonic_table(k_up, lmax, False)[0]
-    return onp.matmul(V, _cartesian_x(Y, lmax))
+def _projections(k_up, V, lmax, traced=False):
+    """[X . s, X . p_up] (..., 2, K) from unit wavevectors (..., 3) and V = [s; p] (..., 2, 3);
+    with ``traced`` the harmonics' derivatives are made in the same pass, for the VJP."""
+    Y, D = _harmonic_table(k_up, lmax, traced)
+    out = onp.matmul(V, _cartesian_x(Y, lmax))
+    if traced:
+        _PROJECTION_STASH.put(out, None, (Y, D))
+    return out
 
 
 def _projections_vjp(argnums, ans, args, kwargs):
-    k_up, V, lmax = args
-    Y, D = _harmonic_table(k_up, lmax, 0 in argnums)
+    k_up, V, lmax = args[:3]
+    table = _PROJECTION_STASH.take(ans, None)
+    if table is None or (0 in argnums and table[1] is None):
+        table = _harmonic_table(k_up, lmax, 0 in argnums)
+    Y, D = table
     X = _cartesian_x(Y, lmax)                                        # (..., 3, K)
     cat, _ = _projection_tables(lmax)
     J = (lmax + 1) ** 2

@@ -96,7 +96,9 @@ def test_layer_rule(importers, forbidden, allowed):
 @pytest.mark.parametrize("module", ["chiropt.sphericalwaves", "chiropt.problem"])
 def test_shared_kernels_import_nothing_of_chiropt(module):
     # common practice, no source: a module shared by several layers depends on none of them
-    assert not GRAPH[module], sorted(GRAPH[module])
+    # (chiropt.autodiff, itself importing nothing of chiropt, is a tool, not a layer)
+    layers = {n for n in GRAPH[module] if not _in(n, "chiropt.autodiff")}
+    assert not layers, sorted(layers)
 
 
 def test_capacity_imports_only_errors():
