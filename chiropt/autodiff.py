@@ -121,5 +121,18 @@ def unbroadcast(x, target_meta, broadcast_idx=0):
     return x
 
 
+def unbroadcast_f(target, f):
+    """autograd's ``unbroadcast_f`` with the operand's metadata read off the array itself
+    (``anp.metadata`` goes through a wrapped function and ``result_type`` for every node
+    of the tape; for an ndarray its dtype is that result type)."""
+    if type(target) is onp.ndarray:
+        dtype = target.dtype
+        meta = (target.shape, target.ndim, dtype, dtype.kind == "c")
+    else:
+        meta = anp.metadata(target)
+    return lambda g: unbroadcast(f(g), meta)
+
+
 AUTOGRAD_UNBROADCAST = _numpy_vjps.unbroadcast   # autograd's own rule (tests compare)
 _numpy_vjps.unbroadcast = unbroadcast
+_numpy_vjps.unbroadcast_f = unbroadcast_f
