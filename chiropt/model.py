@@ -84,17 +84,19 @@ def traced_region(design: Design, values: dict[str, Any] | None):
     return replace(region, **changes) if changes else region
 
 
-def resolve_lmax(design: Design, structure: Structure, values=None) -> int:
+def resolve_lmax(design: Design, structure: Structure, values=None, particles=None) -> int:
     """The multipole degree: the design's integer, or for ``auto`` the smallest lmax whose
     first omitted Mie order of every particle is below ``model.lmax_tolerance``.
     (Non-spherical particles always go through the multipole model, at lmax 1 with their
-    full anisotropic dipole T-matrix.)"""
+    full anisotropic dipole T-matrix.) ``particles``: the design's T-matrix sources, if
+    already made (:func:`chiropt.multipole.tmatrix.design_particles`)."""
     if design.lmax != "auto":
         return int(design.lmax)
     from chiropt.multipole.tmatrix import choose_lmax, design_particles
 
-    return choose_lmax(design_particles(design, values), structure.k,
-                       tol=design.lmax_tolerance, lmax_cap=LMAX_CAP)
+    if particles is None:
+        particles = design_particles(design, values)
+    return choose_lmax(particles, structure.k, tol=design.lmax_tolerance, lmax_cap=LMAX_CAP)
 
 
 def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int | None = None,
@@ -124,14 +126,21 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
         if not warn:
             warnings.simplefilter("ignore")
         st = build_structure(design, values)
-        degree = lmax if lmax is not None else resolve_lmax(design, st, values)
+        fixed = lmax if lmax is not None else (None if design.lmax == "auto"
+                                                else int(design.lmax))
+        particles = None   # T-matrix sources, made once for the degree and the solve
+        if fixed != 1 or not all(st.spherical):
+            from chiropt.multipole.tmatrix import design_particles
+
+            particles = design_particles(design, values)
+        degree = fixed if fixed is not None else resolve_lmax(design, st, values, particles)
         region = traced_region(design, values)
         tol = metrics_tolerance(design)
         if degree == 1 and all(st.spherical):
             sol = solve(st, warn=warn)
         else:
             from chiropt.multipole.solve import solve_multipole
-            from chiropt.multipole.tmatrix import design_particles, stack_tmatrices
+            from chiropt.multipole.tmatrix import stack_tmatrices
 
             g_max = None
             if region is not None:
@@ -139,7 +148,7 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
 
                 g_max = region_g_max(st, region_span(st, region)[0],
                                      tol=maps_tolerance(design) if maps else tol)
-            T = stack_tmatrices(design_particles(design, values), st.k, degree)
+            T = stack_tmatrices(particles, st.k, degree)
             sol = solve_multipole(st, T, degree, warn=warn, g_max=g_max)
         frac = power_fractions(sol)
         metrics = _region_metrics(sol, region, tol, area_grid)

@@ -181,6 +181,15 @@ def test_designs_evaluated_in_turn_never_share_values():
     assert again.value == first.value and other.value != first.value
     for path, v in first.gradient.items():
         onp.testing.assert_array_equal(again.gradient[path], v)
+    # plain evaluations (the Mie coefficients kept between the degree choice and the
+    # T-matrix), with the degree chosen per design
+    auto = [design_from_dict({**d, "model": {"lmax": "auto"}}) for d in (a, b)]
+    qa = compute_quantities(auto[0])
+    qb = compute_quantities(auto[1])
+    qa_again = compute_quantities(auto[0])
+    for key in qa:
+        onp.testing.assert_array_equal(qa_again[key], qa[key])
+    assert not onp.allclose(qa["g"], qb["g"])
 
 
 def test_a_stash_entry_is_used_only_by_the_call_that_made_it():

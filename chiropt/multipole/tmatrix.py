@@ -19,7 +19,7 @@ from typing import Any, Protocol
 
 import autograd.numpy as np
 import numpy as onp
-from autograd.tracer import getval
+from autograd.tracer import getval, isbox
 
 from chiropt.errors import InputError
 from chiropt.sphericalwaves import mode_table
@@ -88,8 +88,32 @@ class Sphere:
     def tmatrix(self, k_host, lmax: int):
         return diagonal_tmatrix(*self.mie(k_host, lmax), lmax)
 
+    def is_plain(self) -> bool:
+        return not any(isbox(v) for v in (self.radius, self.index, self.n_host,
+                                          self.core_radius, self.core_index))
+
+    def plain(self) -> Sphere:
+        """The same sphere with untraced values."""
+        return Sphere(getval(self.radius), getval(self.index), getval(self.n_host),
+                      getval(self.core_radius), getval(self.core_index))
+
     def mie(self, k_host, lmax: int):
-        """Mie coefficients a_l, b_l (W, lmax) at host wavenumbers k_host (W,) [1/m]."""
+        """Mie coefficients a_l, b_l (W, lmax) at host wavenumbers k_host (W,) [1/m].
+
+        Untraced inputs: the coefficients of the highest order asked for at the same
+        ``k_host`` array are kept on the particle and sliced for lower orders (the degree
+        choice asks for lmax_cap + 1 first, the T-matrix then for lmax).
+        """
+        plain = not isbox(k_host) and self.is_plain()
+        kept = self.__dict__.get("_kept_mie")
+        if plain and kept is not None and kept[0] is k_host and kept[1] >= lmax:
+            return kept[2][:, :lmax], kept[3][:, :lmax]
+        a, b = self._mie(k_host, lmax)
+        if plain:
+            self.__dict__["_kept_mie"] = (k_host, lmax, a, b)
+        return a, b
+
+    def _mie(self, k_host, lmax: int):
         if self.core_radius is None:
             return mie_coefficients(k_host * self.radius, self.index / self.n_host, lmax)
         return coreshell_mie_coefficients(k_host * self.core_radius, k_host * self.radius,
@@ -104,8 +128,9 @@ def _order_magnitudes(particle, k_host, lmax: int):
     the diagonal of their T-matrix.
     """
     if isinstance(particle, Sphere):
-        a, b = particle.mie(k_host, lmax)
-        return onp.maximum(onp.abs(getval(a)), onp.abs(getval(b)))
+        a, b = particle.mie(k_host, lmax) if particle.is_plain() else \
+            particle.plain().mie(k_host, lmax)   # traced: plain copy, nothing on the tape
+        return onp.maximum(onp.abs(a), onp.abs(b))
     T = onp.asarray(getval(particle.tmatrix(k_host, lmax)))
     diag = onp.abs(onp.diagonal(T, axis1=-2, axis2=-1))             # (W, 2K)
     _, ls, _ = mode_table(lmax)
