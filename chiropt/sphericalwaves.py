@@ -507,7 +507,7 @@ def channel_modes(P, kind: str, lmax: int, down: bool = False):
 
 
 @cache
-def _channel_tables(receive: bool, lmax: int, down: bool):
+def channel_tables(receive: bool, lmax: int, down: bool):
     """Constants of :func:`channel_modes`: the gather of P over modes (m -> -m for
     'receive', identity for 'emit') and the factors (a_s, a_p (K,), b (2, K)) with
     out[c, (l m), N] = a_c P[1 - c] and out[c, (l m), M] = b_c P[c] after the gather;
@@ -527,7 +527,7 @@ def _channel_tables(receive: bool, lmax: int, down: bool):
 @primitive
 def _channels(P, receive, lmax, down):
     """:func:`channel_modes` as one autograd node (a linear map of P, transposed in reverse)."""
-    perm, _, a0, a1, b = _channel_tables(receive, lmax, down)
+    perm, _, a0, a1, b = channel_tables(receive, lmax, down)
     Pg = P[..., perm] if receive else P
     K = lmax * (lmax + 2)
     sh = onp.shape(Pg)[:-2]
@@ -538,8 +538,14 @@ def _channels(P, receive, lmax, down):
     return onp.reshape(out, sh + (2, 2 * K))
 
 
+def channel_cotangent(P, kind: str, lmax: int, down: bool = False):
+    """The transposed map of :func:`channel_modes`: cotangent of P from that of the vectors
+    (linear in the cotangent, with autograd operations)."""
+    return _channels_vjp(None, P, kind == "receive", int(lmax), bool(down))
+
+
 def _channels_vjp(ans, P, receive, lmax, down):
-    _, inverse, a0, a1, b = _channel_tables(receive, lmax, down)
+    _, inverse, a0, a1, b = channel_tables(receive, lmax, down)
     K = lmax * (lmax + 2)
 
     def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works

@@ -207,35 +207,39 @@ def test_bad_tmatrix_shape_is_an_input_error():
         solve_multipole(st, np.zeros((3, 1, 6, 6)), 0)
 
 
-@pytest.mark.parametrize("arg,reflected", [(a, True) for a in range(8)]
+@pytest.mark.parametrize("arg,reflected", [(a, True) for a in range(7)]
                          + [(a, False) for a in range(3)])
 def test_coupled_solve_primitive_matches_the_taped_operations(arg, reflected):
     # autograd (reference library): its own derivative of the operation-by-operation
-    # system (stack-reflected products, (I - T W) f = T b, e = b + W f) that the primitive
-    # replaces; values equal, and the gradient of a real functional of f and e w.r.t.
-    # each (complex) input equal to round-off
+    # system (reception and emission vectors of the orders, their stack-reflected products,
+    # (I - T W) f = T b, e = b + W f) that the primitive replaces; values equal, and the
+    # gradient of a real functional of f and e w.r.t. each (complex) input equal to round-off
     import autograd.numpy as anp
     from autograd import grad as agrad
 
     from chiropt.multipole.coupled import coupled_solve
+    from chiropt.sphericalwaves import channel_modes
 
     rng = np.random.default_rng(5)
-    W, G, N, K2 = 2, 7, 2, 6
-    M = N * K2
+    W, G, N, lmax = 2, 7, 2, 1
+    K = lmax * (lmax + 2)
+    M = N * 2 * K
 
     def c(*shape):
         return rng.normal(size=shape) + 1j * rng.normal(size=shape)
 
     args = [0.3 * c(W, M, M), 0.2 * c(W, M, M), c(W, 2, M),
-            c(W, G, N), c(W, G, 2), 0.3 * c(W, G, 2, K2), c(W, G, N), 0.3 * c(W, G, 2, K2)]
+            c(W, G, N), c(W, G, 2), 0.3 * c(W, G, 2, K), c(W, G, N)]
     weight_f, weight_e = c(W, 2, M), c(W, 2, M)
 
-    def taped(Tb, W_lat, b, rc, r, recv, ph, emit):
+    def taped(Tb, W_lat, b, rc, r, P, ph):
         Wm = W_lat
         if reflected:
+            recv = channel_modes(P, "receive", lmax)
+            emit = channel_modes(P, "emit", lmax, down=True)
             rv = (anp.reshape(rc, (W, G, 1, N, 1)) * anp.reshape(r, (W, G, 2, 1, 1))
-                  * anp.reshape(recv, (W, G, 2, 1, K2)))
-            em = anp.reshape(ph, (W, G, 1, N, 1)) * anp.reshape(emit, (W, G, 2, 1, K2))
+                  * anp.reshape(recv, (W, G, 2, 1, 2 * K)))
+            em = anp.reshape(ph, (W, G, 1, N, 1)) * anp.reshape(emit, (W, G, 2, 1, 2 * K))
             Wm = Wm + anp.matmul(anp.transpose(anp.reshape(rv, (W, 2 * G, M)), (0, 2, 1)),
                                  anp.reshape(em, (W, 2 * G, M)))
         A = anp.eye(M)[None] - anp.matmul(Tb, Wm)
@@ -244,8 +248,8 @@ def test_coupled_solve_primitive_matches_the_taped_operations(arg, reflected):
         e = b + anp.transpose(anp.matmul(Wm, anp.transpose(f, (0, 2, 1))), (0, 2, 1))
         return f, e
 
-    def ours(Tb, W_lat, b, rc, r, recv, ph, emit):
-        return coupled_solve(Tb, W_lat, b, (rc, r, recv, ph, emit) if reflected else None)
+    def ours(Tb, W_lat, b, rc, r, P, ph):
+        return coupled_solve(Tb, W_lat, b, (rc, r, P, ph, lmax) if reflected else None)
 
     def functional(fn):
         def wrapped(x):

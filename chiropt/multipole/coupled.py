@@ -36,7 +36,8 @@ import numpy as onp
 from autograd.extend import defvjp_argnums, primitive
 
 from chiropt.autodiff import ForwardStash
-from chiropt.multipole.reflected import low_rank_cotangents, reflected_matrix
+from chiropt.multipole.reflected import low_rank_cotangents, reflected_matrix_from_projections
+from chiropt.sphericalwaves import channel_cotangent, channel_modes
 
 _STASH = ForwardStash()
 
@@ -50,8 +51,10 @@ def coupled_solve(Tb, W_lat, b, reflected=None):
     W_lat : (W, M, M) — lattice coupling (translation of the lattice-summed outgoing waves
         into regular waves at every particle) [-]
     b : (W, 2, M) — exciting coefficients of the background field, helicities [+1, -1] [V/m]
-    reflected : tuple (rc, r, recv, ph, emit) or None — the arguments of
-        ``chiropt.multipole.reflected.reflected_interaction`` (stack-reflected coupling)
+    reflected : tuple (rc, r, P, ph, lmax) or None — the stack-reflected coupling
+        (``chiropt.multipole.reflected``): receiving phases rc (W, G, N), reflection
+        coefficients r (W, G, 2), projections P (W, G, 2, K) of the upward orders
+        (``chiropt.sphericalwaves.order_projections``), emitting phases ph (W, G, N), lmax
 
     Returns
     -------
@@ -66,10 +69,10 @@ def coupled_solve(Tb, W_lat, b, reflected=None):
     return out[0], out[1]
 
 
-def _forward(Tb, W_lat, b, rc, r, recv, ph, emit):
+def _forward(Tb, W_lat, b, rc, r, P, ph, lmax):
     Wmat = onp.asarray(W_lat)
     if rc is not None:
-        Wmat = Wmat + reflected_matrix(rc, r, recv, ph, emit)
+        Wmat = Wmat + reflected_matrix_from_projections(rc, r, P, ph, lmax)
     M = Wmat.shape[-1]
     A = onp.eye(M)[None] - onp.matmul(Tb, Wmat)
     bT = onp.transpose(b, (0, 2, 1))                                   # (W, M, 2)
@@ -80,9 +83,9 @@ def _forward(Tb, W_lat, b, rc, r, recv, ph, emit):
 
 
 @primitive
-def _coupled(Tb, W_lat, b, rc, r, recv, ph, emit):
+def _coupled(Tb, W_lat, b, rc, r, P, ph, lmax):
     """[f, e] stacked, (2, W, 2, M) (:func:`coupled_solve`)."""
-    out, parts = _forward(Tb, W_lat, b, rc, r, recv, ph, emit)
+    out, parts = _forward(Tb, W_lat, b, rc, r, P, ph, lmax)
     _STASH.put(out, None, parts)
     return out
 
@@ -97,8 +100,7 @@ def _coupled_vjp(argnums, ans, args, kwargs):
     Wt = onp.transpose(Wmat, (0, 2, 1))
     Tt = onp.transpose(Tb, (0, 2, 1))
     Ft = onp.transpose(F, (0, 2, 1))
-    refl = [i - 3 for i in argnums if i >= 3]
-    contract = low_rank_cotangents(args[3:], refl, F) if refl else None
+    refl, contract = _reflected_cotangents(args, argnums, F)
 
     def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
         gf, ge = np.transpose(g[0], (0, 2, 1)), np.transpose(g[1], (0, 2, 1))   # (W, M, 2)
@@ -112,12 +114,43 @@ def _coupled_vjp(argnums, ans, args, kwargs):
         if 2 in argnums:
             out[2] = np.transpose(u, (0, 2, 1))
         if refl:
-            for i, v in zip(refl, contract(u), strict=True):
-                out[i + 3] = v
+            out.update(contract(u))
         return tuple(out[i] if onp.iscomplexobj(args[i]) else np.real(out[i])
                      for i in argnums)
 
     return vjp
+
+
+def _reflected_cotangents(args, argnums, F):
+    """The wanted reflected inputs (rc 3, r 4, P 5, ph 6) and ``contract(u) -> {pos: bar}``.
+
+    The low-rank contractions work on the channel vectors (reception of the upward and
+    emission of the downward orders, made here from P, once per forward pass); the
+    cotangent of P is the transposed channel maps of theirs.
+    """
+    rc, r, P, ph, lmax = args[3:8]
+    wanted = [i for i in argnums if 3 <= i <= 6]
+    if not wanted:
+        return [], None
+    recv = channel_modes(P, "receive", lmax)
+    emit = channel_modes(P, "emit", lmax, down=True)
+    inner = {3: [0], 4: [1], 5: [2, 4], 6: [3]}          # positions of low_rank_cotangents
+    order = sorted({j for i in wanted for j in inner[i]})
+    low = low_rank_cotangents((rc, r, recv, ph, emit), order, F)
+    back_recv = channel_cotangent(P, "receive", lmax)
+    back_emit = channel_cotangent(P, "emit", lmax, down=True)
+
+    def contract(u):
+        bars = dict(zip(order, low(u), strict=True))
+        out = {}
+        for i in wanted:
+            if i == 5:
+                out[5] = back_recv(bars[2]) + back_emit(bars[4])
+            else:
+                out[i] = bars[inner[i][0]]
+        return out
+
+    return wanted, contract
 
 
 defvjp_argnums(_coupled, _coupled_vjp)

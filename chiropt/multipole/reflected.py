@@ -1,9 +1,8 @@
 """The stack-reflected multipole coupling: its factors and their low-rank cotangents.
 
-Owns: ``reflected_factors`` — the factors L, R of the (W, N 2K, N 2K) matrix W = L^T R
-that couples the particles of a cell through the waves the stack reflects, summed over
-the diffraction orders and both channels (s, p); ``reflected_matrix`` — W itself;
-``low_rank_cotangents`` — the cotangents
+Owns: ``reflected_matrix_from_projections`` — the (W, N 2K, N 2K) matrix W = L^T R that
+couples the particles of a cell through the waves the stack reflects, summed over the
+diffraction orders and both channels (s, p); ``low_rank_cotangents`` — the cotangents
 of the factors' inputs when the cotangent of W has the rank-two form u F^T of the coupled
 solve (``chiropt.multipole.coupled``). Must not import: solve, fourier, farfield, fields,
 metrics, search.
@@ -39,29 +38,40 @@ from __future__ import annotations
 import autograd.numpy as np
 import numpy as onp
 
+from chiropt.sphericalwaves import channel_tables
 
-def reflected_factors(rc, r, recv, ph, emit):
-    """The factors L, R (W, 2G, N 2K) of the reflected coupling W = L^T R (module docstring)."""
+
+def reflected_matrix_from_projections(rc, r, P, ph, lmax: int):
+    """W (W, N 2K, N 2K) from the projections P (W, G, 2, K) of the upward orders, plain.
+
+    The sum W = L^T R of the module docstring with recv the reception vectors of P and
+    emit the downward emission vectors (``chiropt.sphericalwaves.channel_modes``), without
+    making them: each block of W between an electric (N) or magnetic (M) mode of particle
+    i and one of particle j is a weighted Gram matrix sum_g w P[g, c1]^T P[g, c2] of the
+    two-number projections times the channel factors, so one product of weighted copies of
+    P (K wide per channel) serves all four blocks.
+    """
+    perm, _, a0r, a1r, br = channel_tables(True, lmax, False)   # reception, upward
+    _, _, a0e, a1e, be = channel_tables(False, lmax, True)      # emission, downward
     W, G, N = onp.shape(rc)
-    K2 = onp.shape(recv)[-1]
-    L = (np.reshape(rc, (W, G, 1, N, 1)) * np.reshape(r, (W, G, 2, 1, 1))
-         * np.reshape(recv, (W, G, 2, 1, K2)))
-    R = np.reshape(ph, (W, G, 1, N, 1)) * np.reshape(emit, (W, G, 2, 1, K2))
-    return np.reshape(L, (W, 2 * G, N * K2)), np.reshape(R, (W, 2 * G, N * K2))
-
-
-def reflected_matrix(rc, r, recv, ph, emit):
-    """W = L^T R (W, N 2K, N 2K), plain values. One particle per cell: the phases and the
-    reflection coefficient fold into one weight per order and channel, W = (w recv)^T emit,
-    so only one weighted copy of the channel vectors is made."""
-    W, G, N = onp.shape(rc)
-    if N == 1:
-        w = (rc * ph) * r                                               # (W, G, 2)
-        K2 = onp.shape(recv)[-1]
-        weighted = onp.reshape(w[..., None] * recv, (W, 2 * G, K2))
-        return onp.matmul(onp.transpose(weighted, (0, 2, 1)), onp.reshape(emit, (W, 2 * G, K2)))
-    L, R = reflected_factors(rc, r, recv, ph, emit)
-    return onp.matmul(onp.transpose(L, (0, 2, 1)), R)
+    K = onp.shape(P)[-1]
+    Pr = P[..., perm]
+    # A[w, g, (c, i, c1, j)] = rc[g, i] r[g, c] Pr[g, c1, j];  B[w, g, (i', c2, j')]
+    A = (onp.einsum("wgi,wgc->wgci", rc, r)[:, :, :, :, None, None]
+         * Pr[:, :, None, None, :, :]).reshape(W, G, 4 * N * K)
+    B = (ph[:, :, :, None, None] * P[:, :, None, :, :]).reshape(W, G, 2 * N * K)
+    Gm = onp.matmul(onp.transpose(A, (0, 2, 1)), B).reshape(W, 2, N, 2, K, N, 2, K)
+    out = onp.empty((W, N, K, 2, N, K, 2), dtype=complex)
+    # [c, i, c1, j, i', c2, j'] blocks: NN, NM, MN, MM (docstring)
+    out[:, :, :, 0, :, :, 0] = (a0r[:, None, None] * a0e * Gm[:, 0, :, 1, :, :, 1]
+                                + a1r[:, None, None] * a1e * Gm[:, 1, :, 0, :, :, 0])
+    out[:, :, :, 0, :, :, 1] = (a0r[:, None, None] * be[0] * Gm[:, 0, :, 1, :, :, 0]
+                                + a1r[:, None, None] * be[1] * Gm[:, 1, :, 0, :, :, 1])
+    out[:, :, :, 1, :, :, 0] = (br[0][:, None, None] * a0e * Gm[:, 0, :, 0, :, :, 1]
+                                + br[1][:, None, None] * a1e * Gm[:, 1, :, 1, :, :, 0])
+    out[:, :, :, 1, :, :, 1] = (br[0][:, None, None] * be[0] * Gm[:, 0, :, 0, :, :, 0]
+                                + br[1][:, None, None] * be[1] * Gm[:, 1, :, 1, :, :, 1])
+    return out.reshape(W, N * 2 * K, N * 2 * K)
 
 
 def low_rank_cotangents(args, argnums, F):

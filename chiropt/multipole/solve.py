@@ -204,9 +204,8 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
         # (W, N 2K, 2G) @ (W, 2G, N 2K): rows (i, a) receive, columns (j, b) emit
         r = np.stack([coef.r_s, coef.r_p], axis=-1)                    # (W, G, 2)
         rc_up = np.exp(1j * qr + 1j * kzh)                             # receive upward wave
-        recv_up = channel_modes(P, "receive", lmax)                    # (W, G, 2, 2K)
-        emit_dn = channel_modes(P, "emit", lmax, down=True)
-        reflected = (rc_up, r, recv_up, ph_dn, emit_dn)
+        # reception of the upward and emission of the downward orders, from P
+        reflected = (rc_up, r, P, ph_dn, lmax)
 
     # -- background field: (0,0)-order components on (s, p) ---------------------------------
     D0, U0, X0 = background_components(st, orders, coef)
