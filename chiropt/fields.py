@@ -27,6 +27,7 @@ ever referenced below its source (no overflow for tall gaps).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 import autograd.numpy as np
@@ -177,13 +178,13 @@ class OrderContent:
     azimuth: Any
     n_host: Any
 
-    @property
+    @cached_property
     def K(self):
-        """|q|/k of every order, (W, G) [-]."""
+        """|q|/k of every order, (W, G) [-] (made once per content)."""
         # explicit sum: numpy reductions over a length-2 last axis are ~40x slower
         return _safe_norm(self.q[..., 0] ** 2 + self.q[..., 1] ** 2) / self.k[:, None]
 
-    @property
+    @cached_property
     def kz_over_k(self):
         """kz/k = cos of the polar angle (imaginary for evanescent orders), (W, G)."""
         return self.kz / self.k[:, None]
