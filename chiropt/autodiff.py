@@ -107,16 +107,17 @@ def unbroadcast(x, target_meta, broadcast_idx=0):
     position of an einsum ellipsis, as in autograd.
     """
     target_shape, target_ndim, _, target_iscomplex = target_meta
-    shape = anp.shape(x)
-    extra = len(shape) - target_ndim
-    if extra > 0:
-        start = len(shape) - extra if broadcast_idx < 0 else broadcast_idx
-        x = anp.sum(x, axis=tuple(range(start, start + extra)))
-        shape = anp.shape(x)
-    axes = tuple(i for i, size in enumerate(target_shape) if size == 1 and shape[i] != 1)
-    if axes:
-        x = anp.sum(x, axis=axes, keepdims=True)
-    if not target_iscomplex and anp.iscomplexobj(x):
+    shape = onp.shape(x)
+    if shape != target_shape:
+        extra = len(shape) - target_ndim
+        if extra > 0:
+            start = len(shape) - extra if broadcast_idx < 0 else broadcast_idx
+            x = anp.sum(x, axis=tuple(range(start, start + extra)))
+            shape = onp.shape(x)
+        axes = tuple([i for i, size in enumerate(target_shape) if size == 1 and shape[i] != 1])
+        if axes:
+            x = anp.sum(x, axis=axes, keepdims=True)
+    if not target_iscomplex and onp.iscomplexobj(x):
         x = anp.real(x)
     return x
 
