@@ -45,6 +45,13 @@ class Tangent:
         self.v, self.t = v, t
 
     @classmethod
+    def _raw(cls, v, t):
+        """A Tangent from arrays already consistent (the arithmetic's results; no checks)."""
+        obj = object.__new__(cls)
+        obj.v, obj.t = v, t
+        return obj
+
+    @classmethod
     def seed(cls, v, direction: int, directions: int):
         """``v`` varying along one direction with unit rate (all its elements at once)."""
         v = onp.asarray(v, dtype=float)
@@ -74,11 +81,13 @@ class Tangent:
         return Tangent(self.v[key], self.t[(slice(None),) + key])
 
     def __neg__(self):
-        return Tangent(-self.v, -self.t)
+        return Tangent._raw(-self.v, -self.t)
 
     def __add__(self, other):
+        if type(other) is Tangent and other.v.ndim == self.v.ndim:
+            return Tangent._raw(self.v + other.v, self.t + other.t)
         a, b = _pair(self, other)
-        return Tangent(a.v + b.v, _sum_t(a, b))
+        return Tangent._raw(a.v + b.v, _sum_t(a, b))
 
     __radd__ = __add__
 
@@ -89,8 +98,12 @@ class Tangent:
         return (-self) + other
 
     def __mul__(self, other):
+        if type(other) in (float, int, complex):
+            return Tangent._raw(self.v * other, self.t * other)
+        if type(other) is Tangent and other.v.ndim == self.v.ndim:
+            return Tangent._raw(self.v * other.v, self.t * other.v + self.v * other.t)
         a, b = _pair(self, other)
-        return Tangent(a.v * b.v, _product_t(a, b))
+        return Tangent._raw(a.v * b.v, _product_t(a, b))
 
     __rmul__ = __mul__
 
@@ -153,7 +166,7 @@ def _product_t(a, b):
 
 def _reciprocal(x: Tangent) -> Tangent:
     inv = 1.0 / x.v
-    return Tangent(inv, -(inv * inv) * x.t)
+    return Tangent._raw(inv, -(inv * inv) * x.t)
 
 
 def _unary(x, value, derivative):
