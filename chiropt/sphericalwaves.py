@@ -538,12 +538,6 @@ def _channels(P, receive, lmax, down):
     return onp.reshape(out, sh + (2, 2 * K))
 
 
-def channel_cotangent(P, kind: str, lmax: int, down: bool = False):
-    """The transposed map of :func:`channel_modes`: cotangent of P from that of the vectors
-    (linear in the cotangent, with autograd operations)."""
-    return _channels_vjp(None, P, kind == "receive", int(lmax), bool(down))
-
-
 def _channels_vjp(ans, P, receive, lmax, down):
     _, inverse, a0, a1, b = channel_tables(receive, lmax, down)
     K = lmax * (lmax + 2)

@@ -37,7 +37,7 @@ from autograd.extend import defvjp_argnums, primitive
 
 from chiropt.autodiff import ForwardStash
 from chiropt.multipole.reflected import low_rank_cotangents, reflected_matrix_from_projections
-from chiropt.sphericalwaves import channel_cotangent, channel_modes
+from chiropt.sphericalwaves import channel_modes
 
 _STASH = ForwardStash()
 
@@ -126,7 +126,7 @@ def _reflected_cotangents(args, argnums, F):
 
     The low-rank contractions work on the channel vectors (reception of the upward and
     emission of the downward orders, made here from P, once per forward pass); the
-    cotangent of P is the transposed channel maps of theirs.
+    cotangent of P comes through the transposed channel maps in factored form.
     """
     rc, r, P, ph, lmax = args[3:8]
     wanted = [i for i in argnums if 3 <= i <= 6]
@@ -134,21 +134,11 @@ def _reflected_cotangents(args, argnums, F):
         return [], None
     recv = channel_modes(P, "receive", lmax)
     emit = channel_modes(P, "emit", lmax, down=True)
-    inner = {3: [0], 4: [1], 5: [2, 4], 6: [3]}          # positions of low_rank_cotangents
-    order = sorted({j for i in wanted for j in inner[i]})
-    low = low_rank_cotangents((rc, r, recv, ph, emit), order, F)
-    back_recv = channel_cotangent(P, "receive", lmax)
-    back_emit = channel_cotangent(P, "emit", lmax, down=True)
+    inner = {3: 0, 4: 1, 5: 5, 6: 3}          # positions of low_rank_cotangents (5: P)
+    low = low_rank_cotangents((rc, r, recv, ph, emit), [inner[i] for i in wanted], F, lmax)
 
     def contract(u):
-        bars = dict(zip(order, low(u), strict=True))
-        out = {}
-        for i in wanted:
-            if i == 5:
-                out[5] = back_recv(bars[2]) + back_emit(bars[4])
-            else:
-                out[i] = bars[inner[i][0]]
-        return out
+        return dict(zip(wanted, low(u), strict=True))
 
     return wanted, contract
 

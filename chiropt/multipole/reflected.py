@@ -74,15 +74,21 @@ def reflected_matrix_from_projections(rc, r, P, ph, lmax: int):
     return out.reshape(W, N * 2 * K, N * 2 * K)
 
 
-def low_rank_cotangents(args, argnums, F):
+def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
     """Cotangents of (rc, r, recv, ph, emit) for a cotangent u F^T of W (module docstring).
 
     Parameters
     ----------
     args : (rc (W, G, N), r (W, G, 2), recv (W, G, 2, 2K), ph (W, G, N), emit (W, G, 2, 2K))
-    argnums : positions (0-4) of the wanted arguments
+    argnums : positions (0-4) of the wanted arguments; 5 for the cotangent of the
+        projections P (W, G, 2, K) when recv and emit are the reception vectors of the
+        upward and the emission vectors of the downward orders made from P
+        (``chiropt.sphericalwaves.channel_modes``): the transposed channel maps applied to
+        the factored recv_bar = (r R F) Z and emit_bar = (L u) (ph F), K wide per
+        (channel, N or M) instead of 2K
     F : (W, N 2K, 2) — the right factor (the outgoing coefficients, one column per
         helicity), fixed by the forward pass
+    lmax : the multipole degree (needed for position 5)
 
     Returns
     -------
@@ -102,6 +108,19 @@ def low_rank_cotangents(args, argnums, F):
                                     (W, G, K2, 2)), (0, 1, 3, 2))     # (W, G, t, 2K)
     RF_r = RF * r[..., None]
     recv2 = onp.reshape(recv, (W, 2 * G, K2))
+    if 5 in wanted:
+        perm_r, inv_r, a0r, a1r, br = channel_tables(True, lmax, False)
+        _, _, a0e, a1e, be = channel_tables(False, lmax, True)
+        phF_N = onp.ascontiguousarray(phF[..., 0::2])                 # (W, G, t, K)
+        phF_M = onp.ascontiguousarray(phF[..., 1::2])
+
+    def transposed_channels(A, ZN, ZM, a0, a1, b):
+        """P_bar (W, G, 2, K) of channel vectors whose cotangent is sum_t A[c, t] Z[t]."""
+        n = [A[..., c, 0, None] * ZN[:, :, 0] + A[..., c, 1, None] * ZN[:, :, 1]
+             for c in (0, 1)]
+        m = [A[..., c, 0, None] * ZM[:, :, 0] + A[..., c, 1, None] * ZM[:, :, 1]
+             for c in (0, 1)]
+        return np.stack([m[0] * b[0] + n[1] * a1, m[1] * b[1] + n[0] * a0], axis=-2)
 
     def contract(u):
         u4 = np.reshape(u, (W, N, K2, 2))
@@ -109,6 +128,10 @@ def low_rank_cotangents(args, argnums, F):
         Y = np.reshape(np.matmul(recv2, u_cols), (W, G, 2, N, 2))      # [g, c, n, t]
         S = np.sum(rc[:, :, None, :, None] * Y, axis=3)                # (W, G, 2, 2)
         Lu = r[..., None] * S
+        Z = None
+        if wanted & {2, 5}:
+            Z = np.reshape(np.matmul(rc, np.reshape(np.transpose(u4, (0, 1, 3, 2)),
+                                                    (W, N, 2 * K2))), (W, G, 2, K2))
         out = []
         for i in argnums:
             if i == 0:
@@ -116,14 +139,16 @@ def low_rank_cotangents(args, argnums, F):
             elif i == 1:
                 v = np.sum(RF * S, axis=-1)
             elif i == 2:
-                Z = np.reshape(np.matmul(rc, np.reshape(np.transpose(u4, (0, 1, 3, 2)),
-                                                        (W, N, 2 * K2))), (W, G, 2, K2))
                 v = r[..., None] * np.matmul(RF, Z)                    # [c, t] @ [t, a]
             elif i == 3:
                 v = np.sum(Lu[:, :, :, None, :] * Q, axis=(2, 4))
-            else:
+            elif i == 4:
                 v = np.matmul(Lu, phF)                                 # [c, t] @ [t, b]
-            out.append(v if onp.iscomplexobj(args[i]) else np.real(v))
+            else:
+                v = (transposed_channels(RF_r, Z[..., 0::2], Z[..., 1::2], a0r, a1r,
+                                         br)[..., inv_r]
+                     + transposed_channels(Lu, phF_N, phF_M, a0e, a1e, be))
+            out.append(v if i == 5 or onp.iscomplexobj(args[i]) else np.real(v))
         return tuple(out)
 
     return contract if wanted else None
