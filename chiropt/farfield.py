@@ -15,7 +15,7 @@ from __future__ import annotations
 import autograd.numpy as np
 
 from chiropt.planewaves import z_flux
-from chiropt.solution import Solution, _slice_orders, substrate_basis
+from chiropt.solution import Solution
 
 
 def _propagating_host_flux(sol: Solution, vectors, k_hat):
@@ -31,7 +31,7 @@ def _exit_flux(sol: Solution):
     """Downward flux (negative, units 1/(2 Z0)) below the stack, summed over orders, (W, 2)."""
     st, o, n = sol.structure, sol.orders, sol.n_far
     if st.has_substrate:
-        _, _, _, kvec = substrate_basis(st, _slice_orders(o, n))
+        _, _, _, kvec = sol.substrate_orders(n)
         return np.sum(z_flux(sol.exit_vectors(n), kvec[:, None]), axis=-1)
     return _propagating_host_flux(sol, sol.exit_vectors(n), o.k_down)
 

@@ -101,11 +101,19 @@ class Solution:
         o, n = self.orders, count or len(self.orders.mn)
         return _vectors(self.up_sp[:, :, :n], o.s[:, :n], o.p_up[:, :n])
 
+    def substrate_orders(self, count: int):
+        """:func:`substrate_basis` of the first ``count`` orders, made once per count (the
+        exit vectors and the exit flux both need it)."""
+        kept = self.__dict__.setdefault("_substrate_orders", {})
+        if count not in kept:
+            kept[count] = substrate_basis(self.structure, _slice_orders(self.orders, count))
+        return kept[count]
+
     def exit_vectors(self, count: int | None = None):
         """Downward amplitude vectors below the stack (W, 2, G', 3), first ``count`` orders."""
         o, n = self.orders, count or len(self.orders.mn)
         if self.structure.has_substrate:
-            _, _, pd, _ = substrate_basis(self.structure, _slice_orders(o, n))
+            _, _, pd, _ = self.substrate_orders(n)
         else:
             pd = o.p_down[:, :n]
         return _vectors(self.exit_sp[:, :, :n], o.s[:, :n], pd)
