@@ -205,3 +205,30 @@ def test_a_stash_entry_is_used_only_by_the_call_that_made_it():
     stash.put(first, (0,), "data of the first call")
     assert stash.take(first, (0,)) == "data of the first call"
     assert stash.take(first, (0,)) is None         # emptied on take
+
+
+def test_radiated_orders_primitive_against_finite_differences_and_the_taped_sum():
+    # central finite differences (check_grads, common practice, no source), and the values
+    # of the operation-by-operation sum of the emission identities it replaces
+    from autograd.test_util import check_grads
+
+    from chiropt.multipole.emission import radiated_orders
+    from chiropt.sphericalwaves import down_parity
+    rng = onp.random.default_rng(11)
+    W, G, N, lmax = 2, 5, 2, 2
+    K = lmax * (lmax + 2)
+    f, P = _c(rng, W, 2, N * 2 * K), _c(rng, W, G, 2, K)
+    ph_up, ph_dn = _c(rng, W, G, N), _c(rng, W, G, N)
+    check_grads(lambda *a: anp.stack(radiated_orders(*a, lmax)), modes=["rev"],
+                order=1)(f, P, ph_up, ph_dn)
+    e_l = (-1j) ** onp.array([l for l in range(1, lmax + 1) for _ in range(2 * l + 1)])
+    f5 = f.reshape(W, 2, N, K, 2)
+    fN, fM = f5[..., 0] * e_l, f5[..., 1] * e_l                     # (W, t, N, K)
+    for d, (ph, Pd) in enumerate([(ph_up, P), (ph_dn, P * down_parity(lmax))]):
+        s = (onp.einsum("wgk,wtnk->wgtn", Pd[:, :, 0], fM)
+             + onp.einsum("wgk,wtnk->wgtn", Pd[:, :, 1], 1j * fN))
+        p = (onp.einsum("wgk,wtnk->wgtn", Pd[:, :, 0], -1j * fN)
+             + onp.einsum("wgk,wtnk->wgtn", Pd[:, :, 1], fM))
+        ref = onp.stack([onp.einsum("wgtn,wgn->wtg", x, ph) for x in (s, p)], axis=-1)
+        onp.testing.assert_allclose(radiated_orders(f, P, ph_up, ph_dn, lmax)[d], ref,
+                                    rtol=1e-13, atol=1e-13 * onp.max(onp.abs(ref)))

@@ -31,13 +31,13 @@ from autograd.tracer import getval
 
 from chiropt.errors import InputError
 from chiropt.multipole.coupled import coupled_solve
+from chiropt.multipole.emission import radiated_orders
 from chiropt.multipole.latticesums import lattice_sums
 from chiropt.multipole.translation import translation_table
 from chiropt.sphericalwaves import (
     channel_modes,
     dipole_fields,
     dipole_moments,
-    down_parity,
     n_modes,
     order_projections,
 )
@@ -117,11 +117,6 @@ def _reflected_orders_radius(st: Structure, lmax: int) -> float:
     return max(g, need) * 1.0000001
 
 
-def _i_power_k(lmax: int):
-    """(-i)^l over the K (l, m) modes."""
-    return (-1j) ** onp.array([l for l in range(1, lmax + 1) for _ in range(2 * l + 1)])
-
-
 def _block_diag(T):
     """(W, N, K2, K2) -> (W, N K2, N K2) block-diagonal."""
     W, N, K2, _ = np.shape(T)
@@ -174,7 +169,6 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     K2 = n_modes(lmax)
     k = st.k
     orders = make_orders(st, max(_reflected_orders_radius(st, lmax), float(g_max or 0.0)))
-    G = len(orders.mn)
     centres = st.centres
     h = centres[:, 2] - st.z_top
     rho = centres[:, :2]
@@ -191,9 +185,8 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     Wmat = np.reshape(np.transpose(A, (0, 1, 3, 2, 4)), (W, N * K2, N * K2))
 
     # -- plane-wave channels of every order ------------------------------------------------
-    # P: [X.s, X.p] of every upward order (W, G, 2, K); the downward one is P * parity
+    # P: [X.s, X.p] of every upward order (W, G, 2, K); the downward one is P * down_parity
     P = order_projections(orders.k_up, orders.s, orders.p_up, lmax)
-    parity = down_parity(lmax)
     pref = 2 * np.pi / (area * k[:, None] * orders.kz)                # (W, G)
     qr, kzh, ph_up, ph_dn = emission_phases(orders, rho, h, pref)
 
@@ -223,22 +216,8 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     f, e = coupled_solve(_block_diag(tmatrices), Wmat, b, reflected)   # (W, 2, N 2K) each
 
     # -- outgoing orders, components on (s, p) --------------------------------------------
-    # amplitude of channel c in direction d: sum_(c', k) P[c', k] F[c', k, d, c] with
-    # F from f and the emission identities of sphericalwaves.channel_modes (no 2K-mode vectors)
+    up_c, down_c = radiated_orders(f, P, ph_up, ph_dn, lmax)           # (W, 2, G, 2) each
     f4 = np.reshape(f, (W, 2, N, K2))
-    e_l = _i_power_k(lmax)                                              # (-i)^l, (K,)
-    fN, fM = f4[..., 0::2] * e_l, f4[..., 1::2] * e_l                  # (W, 2, N, K)
-    F = np.stack([np.stack([fM, -1j * fN], axis=-1),                   # c' = s: c = s, p
-                  np.stack([1j * fN, fM], axis=-1)], axis=-3)          # c' = p
-    # F: (W, t, N, c', K, c); directions (up, down) via the parity of P
-    F = F[:, :, :, None] * np.reshape(onp.stack([onp.ones_like(parity), parity]),
-                                      (1, 1, 1, 2, 2, -1, 1))          # (W, t, N, d, c', K, c)
-    F = np.reshape(np.transpose(F, (0, 4, 5, 3, 6, 1, 2)), (W, K2, 8 * N))
-    y = np.reshape(np.matmul(np.reshape(P, (W, G, K2)), F), (W, G, 2, 2, 2, N))
-    ph = np.stack([ph_up, ph_dn], axis=2)                              # (W, G, d, N)
-    y = np.sum(y * np.reshape(ph, (W, G, 2, 1, 1, N)), axis=-1)        # [w, g, d, c, t]
-    up_c = np.transpose(y[:, :, 0], (0, 3, 1, 2))                      # (W, 2, G, 2)
-    down_c = np.transpose(y[:, :, 1], (0, 3, 1, 2))
     up_c, exit_c, eps_exit = combine_orders(st, coef, up_c, down_c, U0, X0)
     n_far, rayleigh = far_orders_and_anomalies(st, orders, warn=warn)
 
