@@ -8,6 +8,7 @@ tracker issue number; every ``docs/X.md §N`` cited anywhere exists as a heading
 
 from __future__ import annotations
 
+import copy
 import os
 import re
 import shlex
@@ -126,3 +127,66 @@ def test_goal_reference_keys_are_documented():
     assert {"design", "variables", "objectives"} <= keys
     text = (ROOT / "docs" / "goals.md").read_text()
     assert [k for k in keys if f"`{k}`" not in text] == []
+
+
+
+# --- every shipped goal runs end to end with a tiny budget --------------------------------
+
+GOALS = sorted(p for p in (ROOT / "configs").glob("*.yaml")
+               if {"variables:", "objectives:"} <= set(p.read_text().split()))
+TINY_EXPLORE = {"samples": 3, "wavelength_points": 3, "keep": 1}
+
+
+def _tiny(data: dict) -> dict:
+    """The goal with its first material only, one short search and a tiny exploration."""
+    data = copy.deepcopy(dict(data))
+    if isinstance(data.get("materials"), list):
+        data["materials"] = data["materials"][:1]
+    search = {k: v for k, v in (data.get("search") or {}).items() if k != "confirm"}
+    if len(data["objectives"]) > 1:
+        front = dict(search.get("front") or {})
+        search["front"] = {**front, "points": 3 if front.get("method") == "weighted-sum" else 2}
+    search.update(starts=1, max_evals_per_start=2,
+                  explore={**(search.get("explore") or {}), **TINY_EXPLORE})
+    data["search"] = search
+    data["budget"] = {"evaluations": 40}
+    for item in [*data.get("objectives", []), *data.get("constraints", [])]:
+        if isinstance(item, dict) and isinstance(item.get("robust"), dict):
+            item["robust"]["samples"] = 2
+    return data
+
+
+@pytest.fixture(scope="module")
+def goal_runs(tmp_path_factory):
+    """Runs a shipped goal once, tiny, into a folder laid out like the repository's:
+    ``configs/`` (paths in a goal are relative to its file) beside ``runs/``."""
+    from chiropt.export import read_front_csv
+    from chiropt.goals.schema import goal_from_dict
+    from chiropt.run import run_goal
+    from chiropt.yamlio import load_yaml
+
+    tmp = tmp_path_factory.mktemp("goals")
+    (tmp / "configs").mkdir()
+    done: dict[str, tuple] = {}
+
+    def run(path: Path):
+        if path.name not in done:
+            data = _tiny(load_yaml(path))
+            (goal,) = goal_from_dict(data, base_dir=tmp / "configs", default_name=path.stem)
+            summary = run_goal(goal, out=tmp / "runs", workers=0, progress=False)
+            done[path.name] = (summary, read_front_csv(summary.run_dir / "front.csv")[1])
+        return done[path.name]
+    return run
+
+
+@pytest.mark.parametrize("path", GOALS, ids=[p.name for p in GOALS])
+def test_shipped_goal_runs_with_a_tiny_budget(path, goal_runs):
+    # common practice, no source: every example goal the repository ships runs end to end
+    if "starts_from:" in path.read_text():  # a second stage: run the goals before it first
+        for before in GOALS:
+            if before != path and "starts_from:" not in before.read_text():
+                goal_runs(before)
+    summary, rows = goal_runs(path)
+    assert summary.status == "complete", summary.status
+    assert len(rows) >= 1
+    assert (summary.run_dir / "summary.json").is_file() and summary.candidates
