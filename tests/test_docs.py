@@ -81,7 +81,7 @@ def _tracked():
 
 
 OUTSIDE = re.compile(r"PHYSICS\.md|FORMULAS\.md|CONTRACT\.md|ARCHITECTURE\.md|STYLE\.md"
-                     r"|shared/design|\b[Ii]ssues? ?[0-9]|\b[Ii]ssue:|(?<![\w&])#[0-9]{1,4}\b")
+                     r"|(?<![\w-])shared/|\b[Ii]ssues? ?[0-9]|\b[Ii]ssue:|(?<![\w&])#[0-9]{1,4}\b")
 
 
 def test_no_reference_outside_the_repository():
@@ -93,13 +93,23 @@ def test_no_reference_outside_the_repository():
     assert not bad, "\n".join(bad)
 
 
+def test_the_scans_cover_code_tests_benchmarks_docs_and_readme():
+    # the reference scans below read every tracked source and documentation file
+    names = _tracked()
+    for folder in ("chiropt/", "tests/", "benchmarks/", "docs/", "configs/"):
+        assert any(n.startswith(folder) and n.endswith((".py", ".md", ".yaml"))
+                   for n in names), folder
+    assert {"README.md", "DEVELOPERS.md", "pyproject.toml"} <= set(names)
+
+
 def test_cited_markdown_files_exist():
-    # every *.md named in code, tests and docs is in the repository
-    names = set()
-    for n in [n for n in _tracked() if not n.endswith(Path(__file__).name)]:
-        names |= set(re.findall(r"\b((?:docs/)?[\w-]+\.md)\b", (ROOT / n).read_text()))
-    missing = [m for m in names if not ((ROOT / m).is_file() or (ROOT / "docs" / m).is_file()
-                                        or m in ("README.md",))]
+    # every *.md named in code, tests and docs (with its folders, if given) is a file of the
+    # repository, from its root or from docs/
+    md = re.compile(r"(?<![\w./-])((?:[\w.-]+/)*[\w.-]+\.md)\b")
+    names = {(n, m) for n in _tracked() if not n.endswith(Path(__file__).name)
+             for m in md.findall((ROOT / n).read_text())}
+    missing = sorted(f"{n}: {m}" for n, m in names
+                     if not ((ROOT / m).is_file() or (ROOT / "docs" / m).is_file()))
     assert not missing, missing
 
 
@@ -190,3 +200,21 @@ def test_shipped_goal_runs_with_a_tiny_budget(path, goal_runs):
     assert summary.status == "complete", summary.status
     assert len(rows) >= 1
     assert (summary.run_dir / "summary.json").is_file() and summary.candidates
+
+
+def test_every_command_and_option_is_in_the_cli_page():
+    # common practice, no source: docs/cli.md §11 lists every command with all its options
+    import argparse
+
+    from chiropt.cli import build_parser
+
+    text = (ROOT / "docs" / "cli.md").read_text()
+    section = text[text.index("## §11"):]
+    bullets = {m.group(1): m.group(0) for m in
+               re.finditer(r"^- `chiropt (\w+).*?(?=^- |\Z)", section, re.S | re.M)}
+    (sub,) = [a for a in build_parser()._actions if isinstance(a, argparse._SubParsersAction)]
+    missing = [name for name in sub.choices if name not in bullets]
+    missing += [f"{name} {opt}" for name, sp in sub.choices.items() if name in bullets
+                for b in sp._actions for opt in b.option_strings
+                if opt.startswith("--") and opt != "--help" and f"`{opt}" not in bullets[name]]
+    assert not missing, missing
