@@ -11,6 +11,7 @@ repository and every ``docs/X.md §N`` cited anywhere exists as a heading.
 from __future__ import annotations
 
 import copy
+import json
 import os
 import re
 import shlex
@@ -270,3 +271,22 @@ def test_every_command_and_option_is_in_the_cli_page():
                 for b in sp._actions for opt in b.option_strings
                 if opt.startswith("--") and opt != "--help" and f"`{opt}" not in bullets[name]]
     assert not missing, missing
+
+
+def test_every_key_evaluate_json_prints_is_defined(tmp_path):
+    # common practice, no source: each name `chiropt evaluate --json` prints is explained on
+    # the command-line page (docs/cli.md §2-§3, pointing on to docs/theory.md §11-§18)
+    design = tmp_path / "d.yaml"
+    text = (ROOT / "configs" / "near-field-design.yaml").read_text()
+    design.write_text(re.sub(r"wavelength_nm: \{[^}]*\}", "wavelength_nm: [650, 700]", text))
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    res = subprocess.run([sys.executable, "-m", "chiropt.cli", "evaluate", str(design),
+                          "--json", "--at-nm", "700"], cwd=ROOT, env=env,
+                         capture_output=True, text=True, timeout=600)
+    assert res.returncode == 0, res.stderr
+    out = json.loads(res.stdout)
+    keys = set(out) | set(out["metrics"]) | set(out["orders"][0])
+    page = (ROOT / "docs" / "cli.md").read_text()
+    missing = [k for k in sorted(keys)
+               if not any(n in page for n in (f"`{k}`", f"`metrics.{k}`", f'`"{k}"`'))]
+    assert len(keys) > 20 and missing == []
