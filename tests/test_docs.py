@@ -117,6 +117,16 @@ def test_cited_markdown_files_exist():
     assert not missing, missing
 
 
+def test_cited_repository_files_exist():
+    # every chiropt/, tests/, benchmarks/, configs/ or docs/ file named anywhere exists
+    path = re.compile(r"(?<![\w./-])((?:chiropt|tests|benchmarks|configs|docs)/[\w./-]*\w"
+                      r"\.(?:py|yaml|md|csv))\b")
+    me = Path(__file__).name
+    missing = sorted(f"{n}: {m}" for n in _tracked() if not n.endswith(me)
+                     for m in path.findall((ROOT / n).read_text()) if not (ROOT / m).is_file())
+    assert not missing, missing
+
+
 def _headings(page: Path) -> set[int]:
     return {int(n) for n in re.findall(r"^#+ §(\d+)\b", page.read_text(), re.M)}
 
