@@ -171,7 +171,8 @@ TINY_EXPLORE = {"samples": 3, "wavelength_points": 3, "keep": 1}
 
 
 def _tiny(data: dict, materials: int = 1) -> dict:
-    """The goal with its first material(s) only, one short search and a tiny exploration."""
+    """The goal with its first material(s) only, one short search, a tiny exploration, two
+    robust samples and no confirmation stage."""
     data = copy.deepcopy(dict(data))
     if isinstance(data.get("materials"), list):
         data["materials"] = data["materials"][:materials]
