@@ -231,7 +231,8 @@ def test_shipped_goal_runs_with_a_tiny_budget(path, goal_runs):
 
 
 # the other commands the docs show, in an order where each finds what it reads: on a copy
-# of configs/ beside the tiny quickstart runs/ (Monte Carlo samples cut to 4 to stay fast)
+# of configs/ beside the tiny quickstart runs/ (Monte Carlo samples cut to 4 and candidates
+# to 2 to stay fast)
 KIND_ORDER = ("evaluate", "inspect", "robustness", "export", "report", "compare")
 
 
@@ -259,7 +260,8 @@ HEAVY = [pytest.param(a, id=" ".join(a)[:60],
 def test_shown_commands_on_runs_exit_zero(argv, goal_runs):
     # common practice, no source: the commands the docs show succeed as shown
     goal_runs(ROOT / "configs" / "quickstart.yaml")
-    argv = [("4" if i and argv[i - 1] == "--samples" else a) for i, a in enumerate(argv)]
+    cut = {"--samples": "4", "--top": "2"}
+    argv = [cut.get(argv[i - 1], a) if i else a for i, a in enumerate(argv)]
     env = dict(os.environ, PYTHONPATH=str(ROOT))
     res = subprocess.run([sys.executable, "-m", "chiropt.cli", *argv], cwd=goal_runs.root,
                          env=env, capture_output=True, text=True, timeout=600)
