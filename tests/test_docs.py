@@ -172,7 +172,7 @@ TINY_EXPLORE = {"samples": 3, "wavelength_points": 3, "keep": 1}
 
 def _tiny(data: dict, materials: int = 1) -> dict:
     """The goal with its first material(s) only, one short search, a tiny exploration, two
-    robust samples and no confirmation stage."""
+    robust samples over two cone directions and two band points, no confirmation stage."""
     data = copy.deepcopy(dict(data))
     if isinstance(data.get("materials"), list):
         data["materials"] = data["materials"][:materials]
@@ -186,7 +186,7 @@ def _tiny(data: dict, materials: int = 1) -> dict:
     data["budget"] = {"evaluations": 40}
     for item in [*data.get("objectives", []), *data.get("constraints", [])]:
         if isinstance(item, dict) and isinstance(item.get("robust"), dict):
-            item["robust"]["samples"] = 2
+            item["robust"].update(samples=2, polar_points=1, azimuth_points=2, band_points=2)
     return data
 
 
