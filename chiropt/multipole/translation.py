@@ -12,7 +12,7 @@ centre j to the receiving centre i), for |r - r_i| < |b|:
     Psi_u(r - r_j) = sum_u' A_u'u(b) Rg Psi_u'(r - r_i),
     A_u'u(b) = sum_{p, M} C[u', u, p (p+1) + M] h_p(k|b|) Y_pM(b_hat).
 
-Derivation (ours, checked pointwise by tests/test_multipole_translation.py):
+Derivation (ours, checked pointwise by tests/test_multipole_basis.py):
 scalar addition theorem  psi_lm(r + b) = sum S_{lm;nu mu}(b) Rg psi_{nu mu}(r),
 S_{lm;nu mu} = 4 pi sum_q i^(nu - l + q) G(l m; nu mu; q) h_q Y_{q, m-mu}(b_hat) with the
 Gaunt integral G = int Y_lm conj(Y_nu mu) conj(Y_q,m-mu) dOmega. Writing

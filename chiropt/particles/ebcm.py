@@ -473,7 +473,7 @@ def spheroid_tmatrix(k_host, m_rel, a, c, lmax: int, *, nmax=None, n_quad=None):
     Differentiable by autograd in k_host, m_rel, a and c (at the integer orders chosen
     at the current point). Accurate to ~1e-9 (unitarity) for k max(a, c) <= 3 and
     aspect ratios 0.5-2 (tests/test_ebcm.py); gradients agree with central finite
-    differences to ~1e-8 relative (tests/test_ebcm_ad.py).
+    differences to ~1e-8 relative (tests/test_ebcm_gradients.py).
 
     References
     ----------
@@ -516,7 +516,7 @@ def cylinder_tmatrix(k_host, m_rel, radius, height, lmax: int, *, nmax=None, n_q
     near the dipole resonances); T elements change by about as much when n_max is
     raised. Adequate for design exploration; check critical results against another
     method. The gradient is exact for the discrete method (it agrees with central
-    finite differences at fixed orders, tests/test_ebcm_ad.py); as a derivative of the
+    finite differences at fixed orders, tests/test_ebcm_gradients.py); as a derivative of the
     physical T-matrix it carries the same truncation error.
 
     References
