@@ -55,12 +55,13 @@ def reflected_matrix_from_projections(rc, r, P, ph, lmax: int):
     _, _, a0e, a1e, be = channel_tables(False, lmax, True)      # emission, downward
     W, G, N = onp.shape(rc)
     K = onp.shape(P)[-1]
-    Pr = P[..., perm]
-    # A[w, g, (c, i, c1, j)] = rc[g, i] r[g, c] Pr[g, c1, j];  B[w, g, (i', c2, j')]
-    A = (onp.einsum("wgi,wgc->wgci", rc, r)[:, :, :, :, None, None]
-         * Pr[:, :, None, None, :, :]).reshape(W, G, 4 * N * K)
+    # A[w, g, (c, i, c1, j)] = rc[g, i] r[g, c] P[g, c1, j];  B[w, g, (i', c2, j')]; the
+    # reception's gather m -> -m is applied to the small product's rows afterwards
+    weight = onp.einsum("wgi,wgc->wgci", rc, r).reshape(W, G, 2 * N, 1)
+    A = (weight * P.reshape(W, G, 1, 2 * K)).reshape(W, G, 4 * N * K)
     B = (ph[:, :, :, None, None] * P[:, :, None, :, :]).reshape(W, G, 2 * N * K)
     Gm = onp.matmul(onp.transpose(A, (0, 2, 1)), B).reshape(W, 2, N, 2, K, N, 2, K)
+    Gm = Gm[:, :, :, :, perm]
     out = onp.empty((W, N, K, 2, N, K, 2), dtype=complex)
     # [c, i, c1, j, i', c2, j'] blocks: NN, NM, MN, MM (docstring)
     out[:, :, :, 0, :, :, 0] = (a0r[:, None, None] * a0e * Gm[:, 0, :, 1, :, :, 1]
