@@ -17,7 +17,7 @@ import autograd.numpy as anp
 import numpy as onp
 
 from chiropt.design import design_from_dict
-from chiropt.sensitivity import compute_quantities, value_and_gradient
+from chiropt.sensitivity import compute_quantities, spectrum_sensitivities, value_and_gradient
 
 OUT = Path(__file__).with_name("solver_reference.json")
 
@@ -78,8 +78,12 @@ def reference(data: dict) -> dict:
             s = value_and_gradient(design, lambda qq, n=name, w=w: anp.real(qq[n][w]), paths)
             grads[f"{name}[{w}]"] = {p: onp.asarray(v, float).tolist()
                                      for p, v in s.gradient.items()}
+    # per-wavelength sensitivities: reverse mode applied twice (the VJPs differentiated)
+    sens = spectrum_sensitivities(design, paths)
     return {"quantities": {k: onp.real(onp.asarray(v)).tolist() for k, v in q.items()},
-            "gradients": grads}
+            "gradients": grads,
+            "sensitivities": {n: {p: onp.asarray(v, float).tolist() for p, v in d.items()}
+                              for n, d in sens.items() if n in GRADIENT_OF}}
 
 
 def main() -> None:
