@@ -47,8 +47,11 @@ class Structure:
     radii : (N,) outer (equatorial) radii [m]
     half_heights : (N,) vertical half extents [m] (the radius for spheres)
     spherical : tuple of bool, per particle (non-spheres need the multipole model)
+    polarizabilities : callable returning ``alpha_e, alpha_m`` (below); the multipole and
+        Fourier solvers never call it, so their evaluations skip the dipole Mie terms
     alpha_e, alpha_m : (W, N) electric and magnetic dipole polarizabilities [m^3]
         in the normalization P = p/(eps0 n_h^2) = alpha_e E, Z m = alpha_m Z H
+        (properties, made once from ``polarizabilities``)
     eps_particles_imag_positive : bool, all particle materials passive
     z_top : height of the top of the stack (substrate top + films) [m]; 0 without substrate
     eps_substrate : (W,) complex or None
@@ -67,8 +70,7 @@ class Structure:
     radii: Any
     half_heights: Any
     spherical: tuple
-    alpha_e: Any
-    alpha_m: Any
+    polarizabilities: Any       # () -> (alpha_e, alpha_m), made when first asked for
     z_top: Any
     eps_substrate: Any
     eps_layers: Any
@@ -93,6 +95,20 @@ class Structure:
         if self.side == "substrate":
             return np.sqrt(self.eps_substrate)
         return self.n_host * np.ones_like(self.k0)
+
+    @cached_property
+    def _alphas(self):
+        return self.polarizabilities()
+
+    @property
+    def alpha_e(self):
+        """(W, N) electric dipole polarizabilities [m^3] (NaN for non-spheres)."""
+        return self._alphas[0]
+
+    @property
+    def alpha_m(self):
+        """(W, N) magnetic dipole polarizabilities [m^3] (NaN for non-spheres)."""
+        return self._alphas[1]
 
     @cached_property
     def k_par(self):
@@ -182,37 +198,45 @@ def build_structure(design: Design, values: dict[str, Any] | None = None) -> Str
     else:
         z_base = 0.0
 
-    radii, halves, centres, a_e, a_m = [], [], [], [], []
+    radii, halves, centres = [], [], []
     for i, part in enumerate(design.particles):
         r = p.get(f"particles[{i}].radius_nm", part.radius_nm) * NM
         half = r if part.height_nm is None else p[f"particles[{i}].height_nm"] * NM / 2.0
-        if part.shape != "sphere":
-            # no scalar polarizabilities: the multipole model uses the particle's T-matrix
-            ae = am = np.full(np.shape(getval(wl)), np.nan + 0j)
-        else:
-            n_out = material_index(part.material, wl, key=f"particles[{i}].material",
-                                   base_dir=base, p=p, pkey=f"particles[{i}].material")
-            if part.core_radius_nm is None:
-                a, b = mie_coefficients(kh * r, n_out / n_h, 1)
-            else:
-                rc = p[f"particles[{i}].core_radius_nm"] * NM
-                n_core = material_index(part.core_material, wl,
-                                        key=f"particles[{i}].core_material", base_dir=base,
-                                        p=p, pkey=f"particles[{i}].core_material")
-                a, b = coreshell_mie_coefficients(kh * rc, kh * r, n_core / n_h, n_out / n_h, 1)
-            ae, am = dipole_polarizabilities(a[..., 0], b[..., 0], kh)
-        a_e.append(ae)
-        a_m.append(am)
         radii.append(r)
         halves.append(half)
         centres.append(np.stack([p[f"particles[{i}].position_nm[0]"] * NM,
                                  p[f"particles[{i}].position_nm[1]"] * NM,
                                  z_base + half]))
+
+    def polarizabilities():
+        a_e, a_m = [], []
+        for i, part in enumerate(design.particles):
+            if part.shape != "sphere":
+                # no scalar polarizabilities: the multipole model uses the particle's T-matrix
+                ae = am = np.full(np.shape(getval(wl)), np.nan + 0j)
+            else:
+                n_out = material_index(part.material, wl, key=f"particles[{i}].material",
+                                       base_dir=base, p=p, pkey=f"particles[{i}].material")
+                if part.core_radius_nm is None:
+                    a, b = mie_coefficients(kh * radii[i], n_out / n_h, 1)
+                else:
+                    rc = p[f"particles[{i}].core_radius_nm"] * NM
+                    n_core = material_index(part.core_material, wl,
+                                            key=f"particles[{i}].core_material",
+                                            base_dir=base, p=p,
+                                            pkey=f"particles[{i}].core_material")
+                    a, b = coreshell_mie_coefficients(kh * rc, kh * radii[i], n_core / n_h,
+                                                      n_out / n_h, 1)
+                ae, am = dipole_polarizabilities(a[..., 0], b[..., 0], kh)
+            a_e.append(ae)
+            a_m.append(am)
+        return np.stack(a_e, axis=-1), np.stack(a_m, axis=-1)
+
     return Structure(
         wavelength_nm=wl, k0=k0, n_host=n_h, lattice=_lattice_from(design, p),
         centres=np.stack(centres), radii=np.stack(radii), half_heights=np.stack(halves),
         spherical=tuple(part.shape == "sphere" for part in design.particles),
-        alpha_e=np.stack(a_e, axis=-1), alpha_m=np.stack(a_m, axis=-1),
+        polarizabilities=polarizabilities,
         z_top=z_top, eps_substrate=eps_sub, eps_layers=eps_layers, thicknesses=thick,
         polar=p["illumination.polar_deg"] * np.pi / 180.0,
         azimuth=p["illumination.azimuth_deg"] * np.pi / 180.0,
