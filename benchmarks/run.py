@@ -5,7 +5,8 @@ asserts nothing. Default goals: the quickstart goal and one overnight goal
 (configs/overnight-valley.yaml).
 
 For each goal, at the centre of its variable box (CPU time, best of several repeats,
-linear algebra on one thread and freed memory reused, as in the run's worker processes):
+prepared as a run's worker processes are: one BLAS thread, freed memory reused, loaded
+modules frozen for the garbage collector):
 
 1. forward evaluation (objectives and constraints, no derivatives);
 2. packed value + exact Jacobian of every row, as the gradient algorithms call it (one
@@ -98,9 +99,10 @@ def whole_run(path: Path) -> None:
 
 
 def main(argv: list[str]) -> None:
-    executor.limit_blas_threads(1)
-    if hasattr(executor, "reuse_freed_memory"):
-        executor.reuse_freed_memory()
+    if hasattr(executor, "prepare_worker"):   # as a run's worker processes are
+        executor.prepare_worker()
+    else:                                      # an older checkout
+        executor.limit_blas_threads(1)
     goals = [Path(a) for a in argv[1:] if not a.startswith("--")] or DEFAULT_GOALS
     for path in goals:
         per_evaluation(path)

@@ -493,13 +493,19 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+# commands whose process evaluates many designs itself (a serial run, robustness samples)
+_EVALUATING = {"_cmd_run", "_cmd_robustness"}
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     warnings.simplefilter("default")
-    from chiropt.search.executor import reuse_freed_memory
+    if args.func.__name__ in _EVALUATING:   # serial runs and evaluations happen here
+        from chiropt.search.executor import freeze_loaded_objects, reuse_freed_memory
 
-    reuse_freed_memory()   # serial runs and evaluations happen in this process
+        reuse_freed_memory()
+        freeze_loaded_objects()
     try:
         return args.func(args)
     except InputError as exc:

@@ -419,3 +419,16 @@ def test_workers_reuse_freed_memory():
     from chiropt.search.executor import ProcessExecutor
     with ProcessExecutor(1) as ex:
         assert ex.map(_large_arrays_stay_in_the_heap, [0])[0]
+
+
+def _frozen_objects(_):
+    import gc
+    return gc.get_freeze_count()
+
+
+def test_workers_keep_their_loaded_modules_out_of_the_garbage_collector():
+    # Python documentation (gc.freeze): objects alive after the worker's set-up are moved
+    # to the permanent generation, which full collections do not walk
+    from chiropt.search.executor import ProcessExecutor
+    with ProcessExecutor(1) as ex:
+        assert ex.map(_frozen_objects, [0])[0] > 10_000

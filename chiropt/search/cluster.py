@@ -81,16 +81,17 @@ def emit(topic: str, text: str) -> None:
     worker.log_event(topic, text)
 
 
-_BLAS_LIMITED = []
+_PREPARED = []
 
 
 def _call(fn, args, kwargs):
-    """Run a task on a worker; the first task of a worker process limits its BLAS to one
-    thread (the worker threads fill the cores, as with the local pool's workers)."""
-    if not _BLAS_LIMITED:
-        from chiropt.search.executor import limit_blas_threads, reuse_freed_memory
-        _BLAS_LIMITED.append(limit_blas_threads(1))
-        reuse_freed_memory()
+    """Run a task on a worker; the first task of a worker process prepares it as the local
+    pool's workers are (``chiropt.search.executor.prepare_worker``: one BLAS thread, the
+    worker threads fill the cores)."""
+    if not _PREPARED:
+        from chiropt.search.executor import prepare_worker
+        prepare_worker()
+        _PREPARED.append(True)
     return fn(*args, **kwargs)
 
 
