@@ -7,13 +7,12 @@ for one wavelength and for a 31-point band average.
 
 from __future__ import annotations
 
-import time
-
 import autograd.numpy as anp
-import numpy as np
 
 from chiropt.design import design_from_dict
 from chiropt.sensitivity import compute_quantities, value_and_gradient
+
+from timing import median_seconds
 
 
 def _design(points, region):
@@ -27,16 +26,6 @@ def _design(points, region):
     return design_from_dict(data)
 
 
-def _median_time(fn, repeats=7):
-    fn()
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return float(np.median(times))
-
-
 def main():
     for region in (False, True):
         for points in (1, 31):
@@ -47,8 +36,8 @@ def main():
             def objective(q, names=names):
                 return sum(anp.mean(q[n]) for n in names)
 
-            t_f = _median_time(lambda d=design, o=objective: o(compute_quantities(d)))
-            t_g = _median_time(lambda d=design, o=objective, p=paths:
+            t_f = median_seconds(lambda d=design, o=objective: o(compute_quantities(d)))
+            t_g = median_seconds(lambda d=design, o=objective, p=paths:
                                value_and_gradient(d, o, p))
             print(f"{'near+far' if region else 'far field':9s} {points:3d} wavelength(s), "
                   f"{len(paths)} variables: forward {t_f * 1e3:7.1f} ms, "

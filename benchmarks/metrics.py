@@ -9,15 +9,12 @@ region needs (tolerance, height above the tops).
 
 from __future__ import annotations
 
-import time
-
-import numpy as np
-
 from chiropt.design import RegionSpec, design_from_dict
 from chiropt.farfield import power_fractions
 from chiropt.metrics import region_metrics
 from chiropt.solve import solve
 from chiropt.structure import build_structure
+from timing import median_seconds
 
 CASES = {
     "homogeneous host": {},
@@ -40,13 +37,7 @@ def _design(extra):
 
 
 def _median_ms(f, repeats=15):
-    f()
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        f()
-        times.append(time.perf_counter() - t0)
-    return float(np.median(times)) * 1e3
+    return 1e3 * median_seconds(f, repeats)
 
 
 def main():

@@ -16,7 +16,6 @@ workers; CPU time, minimum over repeats.
 
 from __future__ import annotations
 
-import time
 from pathlib import Path
 
 import autograd.numpy as anp
@@ -27,18 +26,10 @@ from chiropt.goals import GoalProblem, load_goal
 from chiropt.search.executor import limit_blas_threads, reuse_freed_memory
 from chiropt.sensitivity import compute_quantities, value_and_gradient
 
+from timing import best_cpu_seconds
+
 ROOT = Path(__file__).resolve().parent.parent
 N_SI = 3.7 + 0.01j   # a silicon-like constant index (demo value)
-
-
-def _best(fn, repeats=15):
-    fn()
-    times = []
-    for _ in range(repeats):
-        t0 = time.process_time()
-        fn()
-        times.append(time.process_time() - t0)
-    return min(times)
 
 
 def _reference_point():
@@ -63,7 +54,7 @@ def main():
     limit_blas_threads(1)
     reuse_freed_memory()
     try:
-        t_ref = _best(_reference_point)
+        t_ref = best_cpu_seconds(_reference_point, 15)
         T_ref, R_ref = _reference_point()
         print(f"reference library, forward far-field point (lmax 2): {1e3 * t_ref:7.1f} ms "
               f"(T {float(T_ref):.4f}, R {float(R_ref):.4f})")
@@ -72,10 +63,10 @@ def main():
         print("reference library not installed (pip install treams): its figures skipped")
     design = _our_design()
     paths = ["particles[0].radius_nm", "lattice.period_nm", "illumination.wavelength_nm"]
-    t_fwd = _best(lambda: compute_quantities(design))
+    t_fwd = best_cpu_seconds(lambda: compute_quantities(design), 15)
     q = compute_quantities(design)
-    t_grad = _best(lambda: value_and_gradient(
-        design, lambda qq: anp.mean(qq["R+1"] + qq["T+1"]), paths))
+    t_grad = best_cpu_seconds(lambda: value_and_gradient(
+        design, lambda qq: anp.mean(qq["R+1"] + qq["T+1"]), paths), 15)
     print(f"chiropt, same array, forward far field (lmax 2, both helicities): "
           f"{1e3 * t_fwd:7.1f} ms (T {float(q['T+1'][0]):.4f}, R {float(q['R+1'][0]):.4f})")
     print(f"chiropt, same array, value + gradient in 3 quantities:           "
@@ -84,8 +75,8 @@ def main():
     problem = GoalProblem(goal)
     base = np.array([float(np.ravel(problem._params[p])[0]) for p in problem.paths])
     for label, x in (("box centre", (problem.lower + problem.upper) / 2), ("base design", base)):
-        t_f = _best(lambda x=x: problem.evaluate(x, False), 9)
-        t_p = _best(lambda x=x: problem.evaluate(x, True), 9)
+        t_f = best_cpu_seconds(lambda x=x: problem.evaluate(x, False), 9)
+        t_p = best_cpu_seconds(lambda x=x: problem.evaluate(x, True), 9)
         line = (f"quickstart goal at its {label}: forward {1e3 * t_f:6.1f} ms, value + "
                 f"Jacobian {1e3 * t_p:6.1f} ms ({t_p / t_f:.1f} x forward)")
         if t_ref:

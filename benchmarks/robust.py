@@ -23,6 +23,8 @@ from chiropt.goals import GoalProblem, load_goal
 from chiropt.robust.analysis import analyse
 from chiropt.robust.spec import parse_robust
 
+from timing import median_seconds
+
 ROOT = Path(__file__).resolve().parents[1]
 
 GOAL = """\
@@ -60,16 +62,6 @@ def first_order_vs_monte_carlo():
                   f"{fo['p5']:.5f}: {a['first_order']}")
 
 
-def _median(fn, repeats=3):
-    fn()
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return float(np.median(times))
-
-
 def evaluation_costs():
     cases = [("nominal", ""),
              ("16 error samples", ", robust: {sigma: {radius_nm: 2, period_nm: 2}, samples: 16}"),
@@ -85,8 +77,8 @@ def evaluation_costs():
             path.write_text(textwrap.dedent(GOAL % robust))
             (goal,) = load_goal(path)
             problem = GoalProblem(goal)
-            t_val = _median(lambda p=problem: p.evaluate(x, False))
-            t_grad = _median(lambda p=problem: p.evaluate(x, True))
+            t_val = median_seconds(lambda p=problem: p.evaluate(x, False), 3)
+            t_grad = median_seconds(lambda p=problem: p.evaluate(x, True), 3)
             base = base or t_val
             print(f"  {name:26s} value {t_val * 1e3:8.1f} ms ({t_val / base:6.1f}x nominal), "
                   f"value + Jacobian {t_grad * 1e3:8.1f} ms ({t_grad / t_val:.2f}x its value)")

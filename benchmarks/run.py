@@ -37,19 +37,10 @@ from chiropt.goals import GoalProblem, load_goal
 from chiropt.run import run_goal
 from chiropt.search import executor
 
+from timing import best_cpu_seconds
+
 ROOT = Path(__file__).resolve().parent.parent
 DEFAULT_GOALS = [ROOT / "configs" / "quickstart.yaml", ROOT / "configs" / "overnight-valley.yaml"]
-
-
-def _best_cpu(fn, repeats=9):
-    """Smallest CPU time of ``repeats`` calls after one warm-up [s]."""
-    fn()
-    best = float("inf")
-    for _ in range(repeats):
-        t0 = time.process_time()
-        fn()
-        best = min(best, time.process_time() - t0)
-    return best
 
 
 def _tape(P: GoalProblem, x) -> tuple[int, int]:
@@ -74,8 +65,8 @@ def per_evaluation(path: Path) -> None:
     goal = load_goal(str(path))[0]
     P = GoalProblem(goal)
     x = (P.lower + P.upper) / 2
-    t_fwd = _best_cpu(lambda: P.evaluate(x, False))
-    t_jac = _best_cpu(lambda: P.evaluate(x, True))
+    t_fwd = best_cpu_seconds(lambda: P.evaluate(x, False))
+    t_jac = best_cpu_seconds(lambda: P.evaluate(x, True))
     nodes, passes = _tape(P, x)
     print(f"goal {path.name}: {len(P.paths)} variables, {P.n_objectives} objectives, "
           f"{P.n_constraints} constraints, {len(P.wavelengths_nm)} wavelength(s), "

@@ -18,6 +18,8 @@ import autograd.numpy as np
 import numpy as onp
 from autograd.extend import defvjp_argnums, primitive
 
+from chiropt.autodiff import unbroadcast
+
 
 def kz_branch(k, qq):
     """Normal wavenumber ``sqrt(k^2 - qq)`` with ``Im >= 0`` (``> 0`` real part when propagating).
@@ -96,15 +98,6 @@ def _basis(q, kz, k, azimuth):
     return out
 
 
-def _sum_to(x, shape):
-    """Sum the cotangent ``x`` over the axes broadcast to reach it from ``shape``."""
-    extra = np.ndim(x) - len(shape)
-    if extra:
-        x = np.sum(x, axis=tuple(range(extra)))
-    axes = tuple(i for i, n in enumerate(shape) if n == 1 and np.shape(x)[i] != 1)
-    return np.sum(x, axis=axes, keepdims=True) if axes else x
-
-
 def _basis_vjp(argnums, ans, args, kwargs):
     q0, kz0, k0, az0 = args
     q, kb, nonzero, Q, qhat, c, az = _basis_parts(q0, kz0, k0, az0)
@@ -126,16 +119,15 @@ def _basis_vjp(argnums, ans, args, kwargs):
                 along = np.sum(qhat * qhat_bar, axis=-1)[..., None]
                 v = (radial * (qhat_bar - qhat * along) + gk_xy * inv_k[..., None]
                      - (gpz * inv_k)[..., None] * qhat)
-                v = _sum_to(v, onp.shape(q0))
             elif i == 1:
-                v = _sum_to(c_bar * inv_k, onp.shape(kz0))
+                v = c_bar * inv_k
             elif i == 2:
                 v = (-np.sum(q * gk_xy, axis=-1) * inv_k ** 2 - c_bar * c * inv_k
                      + gpz * P * inv_k ** 2)
-                v = _sum_to(v, onp.shape(k0))
             else:
                 v = np.sum(qhat_bar * turn)
-            out.append(v if onp.iscomplexobj(args[i]) else np.real(v))
+            # back to the argument's shape and type (axes it was broadcast along summed)
+            out.append(unbroadcast(v, np.metadata(args[i])))
         return tuple(out)
 
     return vjp

@@ -13,7 +13,6 @@ import os
 import re
 import signal
 import sqlite3
-import subprocess
 import sys
 import textwrap
 import time
@@ -31,25 +30,15 @@ from chiropt.run import run_goal
 from chiropt.store import CachedProblem, EvaluationStore
 from chiropt.store.stream import StreamReceiver, TaskStore
 
-from test_processes import _count
+from test_processes import _alive, _count, _start, _worker_pids
+from test_processes import _wait_for as processes_wait_for
+from scenarios import DIPOLES, RADIUS_AND_PERIOD, SPHERE_ON_GLASS
 
 ROOT = Path(__file__).resolve().parents[1]
-ENV = dict(os.environ, PYTHONPATH=str(ROOT), OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
 TWO = ExecutorSettings(kind="dask", workers=2)
 
 # one objective, derivative-free, a few seconds per search: long enough to act mid-task
-SEARCHES = """\
-design:
-  lattice: {kind: square, period_nm: 420}
-  particles:
-    - {radius_nm: 75, material: Si}
-  substrate: {material: SiO2}
-  illumination: {wavelength_nm: 700}
-  region: {kind: plane, height_nm: 10}
-  model: {lmax: 1}
-variables:
-  particles[0].radius_nm: {min: 50, max: 110}
-  lattice.period_nm: {min: 300, max: 520}
+SEARCHES = SPHERE_ON_GLASS + DIPOLES + RADIUS_AND_PERIOD + """\
 objectives:
   - {maximize: g, at_nm: 700}
 search: {algorithm: COBYLA, starts: 2, max_evals_per_start: 200, xtol_rel: 0, ftol_rel: 0}
@@ -130,15 +119,6 @@ def _same_store(a: Path, b: Path) -> None:
     assert sa == sb
 
 
-def _alive(pid: int) -> bool:
-    """A live process (a zombie counts as gone); Linux /proc."""
-    try:
-        stat = Path(f"/proc/{pid}/stat").read_text()
-    except OSError:
-        return False
-    return stat.rsplit(")", 1)[1].split()[0] != "Z"
-
-
 def _descendants(pid: int) -> set[int]:
     """Every live process below ``pid`` (Linux /proc)."""
     children: dict[int, list[int]] = {}
@@ -159,31 +139,9 @@ def _descendants(pid: int) -> set[int]:
     return {p for p in out if _alive(p)}
 
 
-def _worker_pids(run_dir: Path) -> list[int]:
-    log = run_dir / "run.log"
-    if not log.exists():
-        return []
-    for line in log.read_text().splitlines():
-        if "workers: pid " in line:
-            text = line.split("workers: pid ", 1)[1].split(" (parent")[0]
-            return [int(p) for p in text.split(", ")]
-    return []
-
-
 def _wait_for(cond, timeout=120.0, proc=None):
-    t0 = time.time()
-    while not cond():
-        if proc is not None and proc.poll() is not None:
-            raise AssertionError(f"the run ended early: {proc.communicate()}")
-        if time.time() - t0 > timeout:
-            raise AssertionError("timed out")
-        time.sleep(0.05)
-
-
-def _start(goal_file: Path, out: Path, *extra: str):
-    return subprocess.Popen([sys.executable, "-m", "chiropt.cli", "run", str(goal_file),
-                             "--out", str(out), "--quiet", *extra], env=ENV,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    # the local pool's helper, with more time: a cluster starts slower
+    processes_wait_for(cond, timeout=timeout, proc=proc)
 
 
 def _kill_all(pids) -> None:

@@ -28,20 +28,12 @@ from chiropt.goals import GoalProblem, load_goal
 from chiropt.run import Progress, merge_coinciding, merge_tolerance, run_goal, run_goal_file
 from chiropt.sensitivity import compute_quantities
 from chiropt.store import EvaluationStore
+from scenarios import DIPOLES, SPHERE_ON_GLASS
 
 ROOT = Path(__file__).resolve().parents[1]
 ENV = dict(os.environ, PYTHONPATH=str(ROOT), OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
 
-BASE = """\
-design:
-  lattice: {kind: square, period_nm: 420}
-  particles:
-    - {radius_nm: 75, material: Si}
-  substrate: {material: SiO2}
-  illumination: {wavelength_nm: 700}
-  region: {kind: plane, height_nm: 10}
-  model: {lmax: 1}
-"""
+BASE = SPHERE_ON_GLASS + DIPOLES
 
 # one objective, derivative-free, long enough to be caught while running (a few seconds)
 LONG = BASE + """\

@@ -21,21 +21,11 @@ from chiropt.export import read_front_csv
 from chiropt.goals import GoalProblem, check_goal, load_goal
 from chiropt.run import run_goal
 from chiropt.store import EvaluationStore
+from scenarios import RADIUS_AND_PERIOD, SPHERE_ON_GLASS
 
 ROOT = Path(__file__).resolve().parents[1]
 
-DESIGN = """\
-design:
-  lattice: {kind: square, period_nm: 420}
-  particles:
-    - {radius_nm: 75, material: Si}
-  substrate: {material: SiO2}
-  illumination: {wavelength_nm: 700}
-  region: {kind: plane, height_nm: 10}
-variables:
-  particles[0].radius_nm: {min: 50, max: 110}
-  lattice.period_nm: {min: 300, max: 520}
-"""
+DESIGN = SPHERE_ON_GLASS + RADIUS_AND_PERIOD
 
 GRADIENT_GOAL = DESIGN + """\
   illumination.wavelength_nm: {min: 650, max: 750}

@@ -22,17 +22,10 @@ from chiropt.goals import GoalProblem, load_goal
 from chiropt.run import FEASIBILITY_TOL, run_goal, run_goal_file
 from chiropt.sensitivity import compute_quantities
 from chiropt.store import EvaluationStore, StoreMismatchError
+from scenarios import SPHERE_ON_GLASS
 
 
-DESIGN = """\
-design:
-  lattice: {kind: square, period_nm: 420}
-  particles:
-    - {radius_nm: 75, material: Si}
-  substrate: {material: SiO2}
-  illumination: {wavelength_nm: 700}
-  region: {kind: plane, height_nm: 10}
-"""
+DESIGN = SPHERE_ON_GLASS
 
 OBJ = "  - {maximize: g, at_nm: 700}\n  - {maximize: docp, at_nm: 700}\n"
 CON = "  - {metric: u, min: 0.5, at_nm: 700}\n"
