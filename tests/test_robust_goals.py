@@ -5,7 +5,6 @@ from __future__ import annotations
 import json
 import os
 import signal
-import sqlite3
 import subprocess
 import sys
 import textwrap
@@ -21,6 +20,7 @@ from chiropt.export import read_front_csv
 from chiropt.goals import GoalProblem, check_goal, load_goal
 from chiropt.run import run_goal
 from chiropt.store import EvaluationStore
+from test_processes import _count
 from scenarios import RADIUS_AND_PERIOD, SPHERE_ON_GLASS
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -171,16 +171,6 @@ def test_robust_run_folder_records_samples_and_nominal_column(robust_run):
     assert rows and {"p10(g)@700nm", "p10(g)@700nm (nominal)"} <= set(rows[0])
     for r in rows:
         assert float(r["p10(g)@700nm"]) < float(r["p10(g)@700nm (nominal)"])
-
-
-def _count(db: Path) -> int:
-    if not db.exists():
-        return 0
-    try:
-        with sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=1.0) as conn:
-            return int(conn.execute("SELECT COUNT(*) FROM evaluations").fetchone()[0])
-    except sqlite3.Error:
-        return 0
 
 
 def test_robust_run_resumes_after_kill(tmp_path, robust_run):

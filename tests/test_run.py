@@ -5,7 +5,6 @@ from __future__ import annotations
 import json
 import os
 import signal
-import sqlite3
 import subprocess
 import sys
 import textwrap
@@ -22,6 +21,7 @@ from chiropt.goals import GoalProblem, load_goal
 from chiropt.run import FEASIBILITY_TOL, run_goal, run_goal_file
 from chiropt.sensitivity import compute_quantities
 from chiropt.store import EvaluationStore, StoreMismatchError
+from test_processes import _count
 from scenarios import SPHERE_ON_GLASS
 
 
@@ -146,16 +146,6 @@ def test_another_goal_in_the_same_folder_is_refused(tiny_run):
     with pytest.raises(StoreMismatchError):
         run_goal(replace(goal, seed=goal.seed + 1), out=s.run_dir.parent, workers=0,
                  progress=False)
-
-
-def _count(db: Path) -> int:
-    if not db.exists():
-        return 0
-    try:
-        with sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=1.0) as conn:
-            return int(conn.execute("SELECT COUNT(*) FROM evaluations").fetchone()[0])
-    except sqlite3.Error:
-        return 0
 
 
 def test_resume_after_kill_gives_the_uninterrupted_store(tmp_path, tiny_run):
