@@ -18,6 +18,9 @@ length 1 as well (a no-op sum, ~10 us each: the forward model keeps a wavelength
 length 1 in a single-wavelength goal, so nearly every rule paid it). The replacement sums
 all removed axes in one call and only the axes that were really broadcast: the same sum
 up to the order of floating-point additions (round-off).
+Jacobian rows: ``value_and_jacobian`` is autograd's reverse mode for a vector function,
+one reverse pass per output row as ``make_vjp`` makes them, with the tape's topological
+order computed once for all rows instead of once per pass.
 Forward stash: ``ForwardStash`` hands what a coarse primitive's forward pass made (factors,
 directional derivatives) to its vector-Jacobian-product maker, which autograd calls right
 after the forward pass with the same arguments, so nothing is computed twice.
@@ -35,13 +38,13 @@ from __future__ import annotations
 import threading
 
 import numpy as onp
-from autograd.core import SparseObject, vspace
+from autograd.core import SparseObject, VJPNode, add_outgrads, vspace
 from autograd.extend import defjvp, defvjp, primitive
 from autograd.numpy.numpy_boxes import ArrayBox
 import autograd.numpy as anp
 import autograd.numpy.numpy_vjps as _numpy_vjps
 from autograd.numpy.numpy_vjps import untake
-from autograd.tracer import getval
+from autograd.tracer import getval, toposort, trace
 
 
 _BASIC = (slice, int, type(None), type(Ellipsis))
@@ -137,3 +140,30 @@ def unbroadcast_f(target, f):
 AUTOGRAD_UNBROADCAST = _numpy_vjps.unbroadcast   # autograd's own rule (tests compare)
 _numpy_vjps.unbroadcast = unbroadcast
 _numpy_vjps.unbroadcast_f = unbroadcast_f
+
+
+def value_and_jacobian(fun, x):
+    """Value (R,) and Jacobian (R, n) of a real vector function ``fun`` at ``x`` (n,).
+
+    autograd's reverse mode: one traced forward pass, then for each output row the
+    reverse pass of ``autograd.make_vjp`` with the unit cotangent of that row (the same
+    rules, the same order of accumulation, so the same numbers), walking the tape in one
+    topological order made once for all rows.
+    """
+    x = onp.asarray(x, float)
+    end_value, end_node = trace(VJPNode.new_root(), fun, x)
+    value = onp.asarray(end_value, float)
+    rows = onp.eye(value.size).reshape((value.size,) + value.shape)
+    if end_node is None:
+        return value.reshape(-1), onp.zeros((value.size, x.size))
+    order = list(toposort(end_node))
+    J = onp.empty((value.size, x.size))
+    for r, seed in enumerate(rows):
+        outgrads = {end_node: (seed, False)}
+        for node in order:
+            g = outgrads.pop(node)[0]
+            for parent, ingrad in zip(node.parents, node.vjp(g), strict=True):
+                outgrads[parent] = add_outgrads(outgrads.get(parent), ingrad)
+        J[r] = onp.reshape(onp.asarray(g, float), -1)
+    return value.reshape(-1), J
+

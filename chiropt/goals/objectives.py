@@ -15,7 +15,7 @@ Conventions
   upper bound ``(v - HIGH) / max(|HIGH|, 1) <= 0``; a fabrication limit ``q >= V`` is
   ``(V - q) / V <= 0`` and ``q <= V`` is ``(q - V) / V <= 0``.
 - One forward pass computes every objective and constraint; the Jacobian takes one reverse
-  pass per row (``autograd.make_vjp``), so a gradient evaluation costs about
+  pass per row (``chiropt.autodiff.value_and_jacobian``), so a gradient evaluation costs about
   ``1 + (M + m) * (reverse / forward)`` forward solves instead of ``M + m`` full gradients.
 - A robust objective or constraint (``robust:``, docs/robustness.md) is the statistic of
   its per-sample values over its own sample plan (``chiropt.robust``: fabrication errors,
@@ -39,11 +39,10 @@ from typing import Any
 
 import autograd.numpy as np
 import numpy as onp
-from autograd import make_vjp
 from autograd.tracer import getval
 from scipy.stats import qmc
 
-import chiropt.autodiff  # noqa: F401  (registers the fast indexing rule)
+from chiropt.autodiff import value_and_jacobian  # (its import registers the fast rules)
 from chiropt.capacity import parse_ev_share_name
 from chiropt.errors import ComputationError, InputError, MaterialRangeError
 from chiropt.goals.schema import (
@@ -371,11 +370,8 @@ class GoalProblem:
     @staticmethod
     def _jacobian(fun, x):
         """Value and Jacobian: one forward pass, one reverse pass per output row."""
-        vjp, out = make_vjp(fun)(x)
-        out = onp.asarray(out, float)
-        eye = onp.eye(out.size)
-        J = onp.stack([onp.asarray(vjp(eye[r]), float) for r in range(out.size)])
-        return out, J.reshape(out.size, x.size)
+        out, J = value_and_jacobian(fun, x)
+        return out, J.reshape(out.size, onp.size(x))
 
     def quantities(self, x) -> dict[str, list[float]]:
         """Spectra of every quantity at ``x`` (plain lists over ``wavelengths_at(x)``)."""

@@ -3,7 +3,7 @@
 Owns: ``Tangent`` (a value and its derivatives along D directions, ``t`` of shape
 (D,) + value shape) and the functions the lattice-sum kernels need on it (``exp``,
 ``sqrt``, ``real``, ``imag``, ``wofz``, ``einsum``, ``matmul``, ``sum``, ``stack``,
-``where``). Each function
+``where``, ``powers``, ``reshape``). Each function
 accepts plain numpy arrays too and then does plain numpy, so one kernel serves the value
 (no tangents, no tape) and the value with its Jacobian (one pass, all directions).
 Must not import: any chiropt module but ``chiropt.lattice.faddeeva``.
@@ -275,6 +275,31 @@ def sum(x, axis: int):  # noqa: A001 (the numpy name, on purpose)
         return onp.sum(x, axis=axis)
     t_axis = axis + 1 if axis >= 0 else axis
     return Tangent(onp.sum(x.v, axis=axis), onp.sum(_full_tangent(x), axis=t_axis))
+
+
+def powers(x, n: int):
+    """x^0, x^1, ..., x^n along a new last axis, (..., n + 1).
+
+    The values are the running products a loop ``p = p * x`` makes; the derivatives
+    d(x^a) = a x^(a-1) dx. One operation instead of n, for kernels that need every power.
+    """
+    xv = x.v if isinstance(x, Tangent) else onp.asarray(x)
+    run = onp.empty(xv.shape + (n + 1,), dtype=onp.result_type(xv, float))
+    run[..., 0] = 1.0
+    run[..., 1:] = xv[..., None]
+    v = onp.cumprod(run, axis=-1)
+    if not isinstance(x, Tangent):
+        return v
+    lower = onp.concatenate([onp.zeros_like(v[..., :1]), v[..., :-1]], axis=-1)
+    return Tangent._raw(v, x.t[..., None] * (onp.arange(n + 1) * lower))
+
+
+def reshape(x, shape):
+    """numpy.reshape of the value (and of each derivative, the direction axis kept)."""
+    if not isinstance(x, Tangent):
+        return onp.reshape(x, shape)
+    return Tangent._raw(onp.reshape(x.v, shape),
+                        onp.reshape(_full_tangent(x), x.t.shape[:1] + tuple(shape)))
 
 
 def value(x):

@@ -147,29 +147,29 @@ def _spectral(k, kpar, a1, a2, rho, z, E, mn, pmax):
     Phi = T.exp(-(gam / (2 * Ec)) ** 2 - (Ec * zc) ** 2)              # (W, P, G)
     tp = Phi * T.wofz(1j * (gam / (2 * Ec) + zc * Ec))
     tm = Phi * T.wofz(1j * (gam / (2 * Ec) - zc * Ec))
-    herm = _hermite(max(pmax - 2, 0), Ec * zc)
-    dphi = [(-Ec) ** j * herm[j] * Phi for j in range(max(pmax - 1, 0))]
-    fn = [(tp + tm) / gam]
-    for n_ in range(1, pmax + 1):
-        val = gam ** (n_ - 1) * (tp + (-1) ** n_ * tm)
-        for j in range(0, n_ - 1):
-            if (n_ - 1 - j) % 2 == 1:
-                val = val - (4 * Ec / _SQRT_PI) * gam ** (n_ - 2 - j) * dphi[j]
-        fn.append(val)
+    # F^(n)/gamma, n = 0..pmax, along a last axis: gamma^(n-1) [T+ + (-1)^n T-] minus the
+    # Phi^(j) terms (j <= n-2, n-1-j odd), each power of gamma made once
+    gp = T.powers(gam, pmax)                                           # (W, 1, G, n)
+    lead = T.stack([1.0 / gam] + [gp[..., i] for i in range(pmax)], axis=-1)   # gamma^(n-1)
+    both = T.stack([tp + tm, tp - tm], axis=-1)[..., onp.arange(pmax + 1) % 2]
+    fn = lead * both                                                   # (W, P, G, n)
+    if pmax >= 2:
+        herm = _hermite(pmax - 2, Ec * zc)
+        consts = T.stack([(-Ec) ** j * herm[j] for j in range(pmax - 1)], axis=-1)
+        dphi = Phi[..., None] * consts                                 # (W, P, G, j)
+        nn, jj = onp.meshgrid(onp.arange(pmax + 1), onp.arange(pmax - 1), indexing="ij")
+        live = ((jj <= nn - 2) & ((nn - 1 - jj) % 2 == 1)).astype(float)
+        expo = onp.where(live > 0, nn - 2 - jj, 0)
+        corr = T.sum(gp[..., expo] * (live * dphi[..., None, :]), axis=-1)   # (W, P, G, n)
+        fn = fn - (4 * Ec / _SQRT_PI)[..., None] * corr
     coef, absm, sgn = spectral_operator_table(pmax)
     qq = (qx * qx + qy * qy)[:, None, :]                                # (W, 1, G)
-    qpow = [1.0 + 0 * qq]
-    for _ in range(pmax // 2):
-        qpow.append(qpow[-1] * qq)
-    basis = T.stack([f * qp for f in fn for qp in qpow], axis=-1)    # (W, P, G, n j)
-    powers = []                                                         # (q_x +- i q_y)^a
-    for s in (1, -1):
-        lst = [1.0 + 0j * qx]
-        for _ in range(pmax):
-            lst.append(lst[-1] * (qx + 1j * s * qy))
-        powers += lst
-    pick = absm + (pmax + 1) * (sgn < 0)
-    angular = T.stack(powers, axis=-1)[..., pick]                      # (W, G, J)
+    qpow = T.powers(qq, pmax // 2)                                     # (W, 1, G, j)
+    shape = T.value(fn).shape[:-1] + ((pmax + 1) * (pmax // 2 + 1),)
+    basis = T.reshape(fn[..., :, None] * qpow[..., None, :], shape)   # (W, P, G, n j)
+    pick = absm + (pmax + 1) * (sgn < 0)                               # (q_x +- i q_y)^|M|
+    powers = T.powers(T.stack([qx + 1j * qy, qx - 1j * qy], axis=-1), pmax)   # (W, G, 2, a)
+    angular = T.reshape(powers, T.value(qx).shape + (2 * (pmax + 1),))[..., pick]  # (W, G, J)
     radial = T.matmul(basis, coef.reshape(coef.shape[0], -1).T)       # (W, P, G, J)
     phase = T.exp(1j * (qx[:, None, :] * rho[0][None, :, None]
                         + qy[:, None, :] * rho[1][None, :, None])) / (4.0 * area)

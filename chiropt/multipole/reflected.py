@@ -75,6 +75,14 @@ def reflected_matrix_from_projections(rc, r, P, ph, lmax: int):
     return out.reshape(W, N * 2 * K, N * 2 * K)
 
 
+def _channel_terms(a0, a1, b):
+    """The four terms (c', c, h, factor (K,)) of the channel map of
+    ``chiropt.sphericalwaves.channel_tables``: out[c', k] = sum of factor[k] x[c, h, k],
+    h = 0 (N) or 1 (M) of the input's channel c: out[0] = b_0 x[0, M] + a_1 x[1, N],
+    out[1] = b_1 x[1, M] + a_0 x[0, N]."""
+    return ((0, 0, 1, b[0]), (0, 1, 0, a1), (1, 1, 1, b[1]), (1, 0, 0, a0))
+
+
 def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
     """Cotangents of (rc, r, recv, ph, emit) for a cotangent u F^T of W (module docstring).
 
@@ -110,18 +118,19 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
     RF_r = RF * r[..., None]
     recv2 = onp.reshape(recv, (W, 2 * G, K2))
     if 5 in wanted:
-        perm_r, inv_r, a0r, a1r, br = channel_tables(True, lmax, False)
+        # P_bar = the transposed channel maps applied to r (R F) Z (reception, gathered
+        # back m -> -m; Z = rc u) and to (L u) (ph F) (emission): the emission's fixed
+        # factor ph F is folded into its channel constants here, so that its part of each
+        # reverse pass is one matrix product
+        _, inv_r, a0r, a1r, br = channel_tables(True, lmax, False)
         _, _, a0e, a1e, be = channel_tables(False, lmax, True)
-        phF_N = onp.ascontiguousarray(phF[..., 0::2])                 # (W, G, t, K)
-        phF_M = onp.ascontiguousarray(phF[..., 1::2])
-
-    def transposed_channels(A, ZN, ZM, a0, a1, b):
-        """P_bar (W, G, 2, K) of channel vectors whose cotangent is sum_t A[c, t] Z[t]."""
-        n = [A[..., c, 0, None] * ZN[:, :, 0] + A[..., c, 1, None] * ZN[:, :, 1]
-             for c in (0, 1)]
-        m = [A[..., c, 0, None] * ZM[:, :, 0] + A[..., c, 1, None] * ZM[:, :, 1]
-             for c in (0, 1)]
-        return np.stack([m[0] * b[0] + n[1] * a1, m[1] * b[1] + n[0] * a0], axis=-2)
+        K = K2 // 2
+        recv_terms = _channel_terms(a0r, a1r, br)
+        emit_fold = onp.empty((W, G, 2, 2, 2, K), dtype=complex)          # [g, c, t, c', k]
+        phF5 = onp.reshape(phF, (W, G, 2, K, 2))                          # [g, t, k, h]
+        for c_out, c_in, h, coef in _channel_terms(a0e, a1e, be):
+            emit_fold[:, :, c_in, :, c_out, :] = coef * phF5[..., h]
+        emit_fold = onp.reshape(emit_fold, (W, G, 4, 2 * K))              # [g, (c t), (c' k)]
 
     def contract(u):
         u4 = np.reshape(u, (W, N, K2, 2))
@@ -146,9 +155,12 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
             elif i == 4:
                 v = np.matmul(Lu, phF)                                 # [c, t] @ [t, b]
             else:
-                v = (transposed_channels(RF_r, Z[..., 0::2], Z[..., 1::2], a0r, a1r,
-                                         br)[..., inv_r]
-                     + transposed_channels(Lu, phF_N, phF_M, a0e, a1e, be))
+                X = np.reshape(np.matmul(RF_r, Z), (W, G, 2, K, 2))    # [c, (k h)]
+                rec = np.stack([sum(coef * X[:, :, c_in, :, h]
+                                    for c_out, c_in, h, coef in recv_terms if c_out == c)
+                                for c in (0, 1)], axis=2)[..., inv_r]
+                emi = np.matmul(np.reshape(Lu, (W, G, 1, 4)), emit_fold)
+                v = rec + np.reshape(emi, (W, G, 2, K))
             out.append(v if i == 5 or onp.iscomplexobj(args[i]) else np.real(v))
         return tuple(out)
 
