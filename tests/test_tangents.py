@@ -20,7 +20,8 @@ def _composite(a, b, c):
     s = T.stack([y, T.real(z), T.imag(z), w], axis=-1)                 # (3, 4)
     m = T.matmul(s, np.arange(8.0).reshape(4, 2))                     # (3, 2)
     e = T.einsum("ij,jk->ik", x, m)                                   # (2, 2)
-    return T.sum(e * e + (s ** 2.5)[..., :2][:2], axis=0)             # (2,)
+    q = T.reshape(T.powers(0.5 * a + 0.2j * c + 0.1, 4), (5, 3))     # (5, 3)
+    return T.sum(e * e + (s ** 2.5)[..., :2][:2], axis=0) + T.sum(q, axis=0)[:2]   # (2,)
 
 
 @pytest.mark.parametrize("which", [0, 1, 2])
@@ -41,6 +42,22 @@ def test_every_operation_matches_central_differences(which):
     fd = (_composite(*plus) - _composite(*minus)) / (2 * h)
     np.testing.assert_allclose(out.t[0], fd, rtol=1e-7, atol=1e-9)
     np.testing.assert_allclose(out.v, _composite(*args), rtol=1e-14)
+
+
+def test_powers_are_the_running_products_of_a_loop():
+    # common practice, no source: x^0..x^n as a loop p = p * x makes them (to round-off),
+    # with d(x^a) = a x^(a-1) dx; x = 0 has the derivative 1 at a = 1 only
+    x = np.array([0.0, 0.7 - 0.2j, -1.3 + 0.5j])
+    loop, p = [], np.ones(3, complex)
+    for _ in range(6):
+        loop.append(p)
+        p = p * x
+    out = T.powers(T.Tangent(x, np.ones((1, 3))), 5)
+    np.testing.assert_allclose(out.v, np.stack(loop, axis=-1), rtol=1e-15, atol=0)
+    expected = np.stack([a * x ** (a - 1) if a else np.zeros(3) for a in range(6)], axis=-1)
+    expected[0, 1:] = [1.0, 0, 0, 0, 0]
+    np.testing.assert_allclose(out.t[0], expected, rtol=1e-14, atol=0)
+    np.testing.assert_allclose(T.powers(x, 5), np.stack(loop, axis=-1), rtol=1e-15, atol=0)
 
 
 def test_plain_inputs_give_plain_numpy():

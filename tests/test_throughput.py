@@ -246,3 +246,28 @@ def test_radiated_orders_primitive_against_finite_differences_and_the_taped_sum(
         ref = onp.stack([onp.einsum("wgtn,wgn->wtg", x, ph) for x in (s, p)], axis=-1)
         onp.testing.assert_allclose(radiated_orders(f, P, ph_up, ph_dn, lmax)[d], ref,
                                     rtol=1e-13, atol=1e-13 * onp.max(onp.abs(ref)))
+
+
+def test_jacobian_rows_equal_autograds_reverse_passes():
+    # common practice, no source: the rows of value_and_jacobian (one topological order for
+    # all reverse passes) are autograd's make_vjp passes, number for number, for a goal's
+    # physics rows (objectives and constraints of a multipole design on glass)
+    from autograd import make_vjp
+
+    from chiropt.autodiff import value_and_jacobian
+    from chiropt.goals import GoalProblem, load_goal
+
+    goal = load_goal(str(Path(__file__).resolve().parent.parent / "configs"
+                         / "quickstart.yaml"))[0]
+    P = GoalProblem(goal)
+    x = 0.3 * P.lower + 0.7 * P.upper
+
+    def rows(xv):
+        return P._physics_vector(xv, {})
+
+    value, J = value_and_jacobian(rows, x)
+    vjp, out = make_vjp(rows)(x)
+    onp.testing.assert_array_equal(value, onp.asarray(out, float))
+    for r, seed in enumerate(onp.eye(value.size)):
+        onp.testing.assert_array_equal(J[r], onp.asarray(vjp(seed), float))
+    assert J.shape == (value.size, x.size) and onp.all(onp.abs(J).sum(axis=1) > 0)

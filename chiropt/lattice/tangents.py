@@ -280,7 +280,7 @@ def sum(x, axis: int):  # noqa: A001 (the numpy name, on purpose)
 def powers(x, n: int):
     """x^0, x^1, ..., x^n along a new last axis, (..., n + 1).
 
-    The values are the running products a loop ``p = p * x`` makes; the derivatives
+    The values are the running products of a loop ``p = p * x`` (to round-off); the derivatives
     d(x^a) = a x^(a-1) dx. One operation instead of n, for kernels that need every power.
     """
     xv = x.v if isinstance(x, Tangent) else onp.asarray(x)
