@@ -16,6 +16,7 @@ from dataclasses import dataclass
 from functools import cached_property
 
 import autograd.numpy as np
+import numpy as onp
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
@@ -80,9 +81,7 @@ class Lattice:
         period : float — lattice constant a [m]
         """
         _check_length("lattice.period", period)
-        zero = 0.0 * period
-        return cls(np.stack([period, zero]), np.stack([zero, period]), length=period,
-                   shape=((1.0, 0.0), (0.0, 1.0)))
+        return cls.of_shape(period, ((1.0, 0.0), (0.0, 1.0)))
 
     @classmethod
     def rectangular(cls, px, py):
@@ -106,9 +105,16 @@ class Lattice:
         period : float — nearest-neighbour distance a [m]
         """
         _check_length("lattice.period", period)
-        return cls(np.stack([period, 0.0 * period]),
-                   np.stack([0.5 * period, 0.5 * np.sqrt(3.0) * period]), length=period,
-                   shape=((1.0, 0.0), (0.5, 0.5 * float(np.sqrt(3.0)))))
+        return cls.of_shape(period, ((1.0, 0.0), (0.5, 0.5 * float(onp.sqrt(3.0)))))
+
+    @classmethod
+    def of_shape(cls, length, shape):
+        """A lattice of fixed shape, a_i = length * shape[i] (shape plain, length [m] may be
+        traced): its area, reciprocal vectors and order vectors are then plain constants
+        times powers of the length, one traced operation each."""
+        u1, u2 = onp.asarray(shape[0], float), onp.asarray(shape[1], float)
+        return cls(length * u1, length * u2, length=length,
+                   shape=(tuple(u1.tolist()), tuple(u2.tolist())))
 
     @classmethod
     def oblique(cls, a, b, angle_rad):
@@ -130,7 +136,17 @@ class Lattice:
 
     # -- derived quantities ------------------------------------------------------------
     @cached_property
+    def _unit(self):
+        """For a lattice of fixed shape: the cross product of the shape vectors and the
+        reciprocal vectors of the lattice of unit length, (c, (2, 2)) plain."""
+        u1, u2 = onp.asarray(self.shape[0]), onp.asarray(self.shape[1])
+        c = float(u1[0] * u2[1] - u1[1] * u2[0])
+        return c, (2.0 * onp.pi / c) * onp.array([[u2[1], -u2[0]], [-u1[1], u1[0]]])
+
+    @cached_property
     def _cross(self):
+        if self.length is not None:
+            return self._unit[0] * self.length ** 2
         return self.a1[0] * self.a2[1] - self.a1[1] * self.a2[0]
 
     @cached_property
@@ -147,8 +163,20 @@ class Lattice:
         """
         return self._reciprocal
 
+    def order_vectors(self, mn):
+        """Reciprocal lattice vectors g = m b1 + n b2, (N, 2) [1/m], of integer pairs ``mn``
+        (N, 2); traced if the lattice is."""
+        mn = onp.asarray(mn, dtype=float)
+        if self.length is not None:
+            return (mn @ self._unit[1]) / self.length
+        b1, b2 = self.reciprocal()
+        return mn[:, 0:1] * b1[None, :] + mn[:, 1:2] * b2[None, :]
+
     @cached_property
     def _reciprocal(self):
+        if self.length is not None:
+            inv = 1.0 / self.length
+            return inv * self._unit[1][0], inv * self._unit[1][1]
         s = 2.0 * np.pi / self._cross
         b1 = s * np.stack([self.a2[1], -self.a2[0]])
         b2 = s * np.stack([-self.a1[1], self.a1[0]])

@@ -68,9 +68,7 @@ def order_wavevectors(lattice: Lattice, k_par, mn):
     ----------
     docs/theory.md §5 (q_g = k_par + g); standard grating equation.
     """
-    b1, b2 = lattice.reciprocal()
-    mn = np.asarray(mn, dtype=float)
-    g = mn[:, 0:1] * b1[None, :] + mn[:, 1:2] * b2[None, :]
+    g = lattice.order_vectors(mn)
     return k_par[:, None, :] + g[None, :, :]
 
 
