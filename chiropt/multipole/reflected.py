@@ -119,18 +119,22 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
     recv2 = onp.reshape(recv, (W, 2 * G, K2))
     if 5 in wanted:
         # P_bar = the transposed channel maps applied to r (R F) Z (reception, gathered
-        # back m -> -m; Z = rc u) and to (L u) (ph F) (emission): the emission's fixed
-        # factor ph F is folded into its channel constants here, so that its part of each
-        # reverse pass is one matrix product
+        # back m -> -m; Z = rc u) and to (L u) (ph F) (emission): per order, a product of
+        # two-by-two blocks with the (N, M) x mode columns, then the channel factors
         _, inv_r, a0r, a1r, br = channel_tables(True, lmax, False)
         _, _, a0e, a1e, be = channel_tables(False, lmax, True)
         K = K2 // 2
-        recv_terms = _channel_terms(a0r, a1r, br)
-        emit_fold = onp.empty((W, G, 2, 2, 2, K), dtype=complex)          # [g, c, t, c', k]
-        phF5 = onp.reshape(phF, (W, G, 2, K, 2))                          # [g, t, k, h]
-        for c_out, c_in, h, coef in _channel_terms(a0e, a1e, be):
-            emit_fold[:, :, c_in, :, c_out, :] = coef * phF5[..., h]
-        emit_fold = onp.reshape(emit_fold, (W, G, 4, 2 * K))              # [g, (c t), (c' k)]
+        recv_terms = [(c_out, c_in, h, coef[inv_r])
+                      for c_out, c_in, h, coef in _channel_terms(a0r, a1r, br)]
+        emit_terms = _channel_terms(a0e, a1e, be)
+        phF_hk = onp.reshape(onp.transpose(onp.reshape(phF, (W, G, 2, K, 2)), (0, 1, 2, 4, 3)),
+                             (W, G, 2, 2 * K))                             # [g, t, (h k)]
+
+    def channel_sums(terms, X):
+        """out[c'] = sum over the terms of c' of factor * X[c, h], X (W, G, 2, 2, K)."""
+        return np.stack([sum(coef * X[:, :, c_in, h]
+                             for c_out, c_in, h, coef in terms if c_out == c)
+                         for c in (0, 1)], axis=2)
 
     def contract(u):
         u4 = np.reshape(u, (W, N, K2, 2))
@@ -139,7 +143,7 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
         S = np.sum(rc[:, :, None, :, None] * Y, axis=3)                # (W, G, 2, 2)
         Lu = r[..., None] * S
         Z = None
-        if wanted & {2, 5}:
+        if 2 in wanted:
             Z = np.reshape(np.matmul(rc, np.reshape(np.transpose(u4, (0, 1, 3, 2)),
                                                     (W, N, 2 * K2))), (W, G, 2, K2))
         out = []
@@ -155,12 +159,14 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
             elif i == 4:
                 v = np.matmul(Lu, phF)                                 # [c, t] @ [t, b]
             else:
-                X = np.reshape(np.matmul(RF_r, Z), (W, G, 2, K, 2))    # [c, (k h)]
-                rec = np.stack([sum(coef * X[:, :, c_in, :, h]
-                                    for c_out, c_in, h, coef in recv_terms if c_out == c)
-                                for c in (0, 1)], axis=2)[..., inv_r]
-                emi = np.matmul(np.reshape(Lu, (W, G, 1, 4)), emit_fold)
-                v = rec + np.reshape(emi, (W, G, 2, K))
+                # Z with the modes gathered m -> -m and the N/M index ahead of them
+                ug = np.transpose(np.reshape(u4, (W, N, K, 2, 2))[:, :, inv_r], (0, 1, 4, 3, 2))
+                ug = np.reshape(ug, (W, N, 4 * K))
+                Zg = rc * ug if N == 1 else np.matmul(rc, ug)              # [g, (t h k)]
+                X = np.matmul(RF_r, np.reshape(Zg, (W, G, 2, 2 * K)))      # [g, c, (h k)]
+                Yp = np.matmul(Lu, phF_hk)
+                v = (channel_sums(recv_terms, np.reshape(X, (W, G, 2, 2, K)))
+                     + channel_sums(emit_terms, np.reshape(Yp, (W, G, 2, 2, K))))
             out.append(v if i == 5 or onp.iscomplexobj(args[i]) else np.real(v))
         return tuple(out)
 
