@@ -18,6 +18,9 @@ length 1 as well (a no-op sum, ~10 us each: the forward model keeps a wavelength
 length 1 in a single-wavelength goal, so nearly every rule paid it). The replacement sums
 all removed axes in one call and only the axes that were really broadcast: the same sum
 up to the order of floating-point additions (round-off).
+Plain copies: ``untraced`` gives a record (dataclass, dict, list) with every traced value
+replaced by its plain value, so that quantities no derivative is asked of are computed
+without recording operations on the tape.
 Jacobian rows: ``value_and_jacobian`` is autograd's reverse mode for a vector function,
 one reverse pass per output row as ``make_vjp`` makes them, with the tape's topological
 order computed once for all rows instead of once per pass.
@@ -35,6 +38,7 @@ NumPy manual, "Indexing on ndarrays" (basic versus advanced indexing).
 
 from __future__ import annotations
 
+import dataclasses
 import threading
 
 import numpy as onp
@@ -44,7 +48,7 @@ from autograd.numpy.numpy_boxes import ArrayBox
 import autograd.numpy as anp
 import autograd.numpy.numpy_vjps as _numpy_vjps
 from autograd.numpy.numpy_vjps import untake
-from autograd.tracer import getval, toposort, trace
+from autograd.tracer import getval, isbox, toposort, trace
 
 
 _BASIC = (slice, int, type(None), type(Ellipsis))
@@ -166,4 +170,22 @@ def value_and_jacobian(fun, x):
                 outgrads[parent] = add_outgrads(outgrads.get(parent), ingrad)
         J[r] = onp.reshape(onp.asarray(g, float), -1)
     return value.reshape(-1), J
+
+
+def untraced(obj):
+    """``obj`` with every autograd box replaced by its plain value, recursively through
+    dataclass fields, dicts, lists and tuples (a new record; arrays are not copied, and
+    values a record caches outside its fields are left behind)."""
+    if isbox(obj):
+        return getval(obj)
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        new = object.__new__(type(obj))
+        for f in dataclasses.fields(obj):
+            object.__setattr__(new, f.name, untraced(getattr(obj, f.name)))
+        return new
+    if isinstance(obj, dict):
+        return {k: untraced(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return type(obj)(untraced(v) for v in obj)
+    return obj
 

@@ -35,6 +35,7 @@ import numpy as onp
 from autograd.extend import defvjp, defvjp_argnums, primitive
 from autograd.tracer import getval
 
+from chiropt.autodiff import untraced
 from chiropt.capacity import capacity_metrics
 from chiropt.errors import InputError
 from chiropt.fields import (
@@ -378,7 +379,8 @@ def _truncation(per: dict, content: OrderContent):
 
 
 def region_metrics(solution: Solution, region, *, tol: float | None = None,
-                   area_grid: int = 48, area_planes: int = 4) -> dict:
+                   area_grid: int = 48, area_planes: int = 4,
+                   plain_capacity: bool = False) -> dict:
     """Metrics of docs/theory.md §12 averaged over a plane or slab above the particles.
 
     Parameters
@@ -392,6 +394,8 @@ def region_metrics(solution: Solution, region, *, tol: float | None = None,
         ``structure.tolerance``)
     area_grid : int — grid points per lattice vector for the area fraction; 0 skips it
     area_planes : int — z planes (midpoints) sampled in a slab for the area fraction
+    plain_capacity : bool — compute the capacity metrics from plain values (no derivatives
+        through them; the same numbers)
 
     Returns
     -------
@@ -422,8 +426,10 @@ def region_metrics(solution: Solution, region, *, tol: float | None = None,
     out = _metrics_from(avg, ref)
     out["truncation"] = _truncation(avg["orders"], avg["content"])
     out["n_orders"] = int(len(avg["content"].mn))
-    out.update(capacity_metrics(avg["orders"], avg["content"].K, cd_bound(avg["content"].K),
-                                ref["s3"]))
+    inputs = (avg["orders"], avg["content"].K, ref["s3"])
+    if plain_capacity:
+        inputs = untraced(inputs)
+    out.update(capacity_metrics(inputs[0], inputs[1], cd_bound(inputs[1]), inputs[2]))
     if area_grid:
         frac = handedness_fraction(avg["content"], avg["thickness"], st, n=area_grid,
                                    planes=area_planes)

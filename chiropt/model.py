@@ -17,6 +17,7 @@ from typing import Any
 import numpy as onp
 from autograd.tracer import getval
 
+from chiropt.autodiff import untraced
 from chiropt.design import Design
 from chiropt.farfield import power_fractions
 from chiropt.solution import Solution
@@ -99,9 +100,15 @@ def resolve_lmax(design: Design, structure: Structure, values=None, particles=No
     return choose_lmax(particles, structure.k, tol=design.lmax_tolerance, lmax_cap=LMAX_CAP)
 
 
+#: groups of quantities that can be computed from plain values when no derivative is asked
+#: of them (``run_model(..., plain=...)``): the far-field fractions R, T, A and the capacity
+#: quantities of a region above the particles
+PLAIN_GROUPS = ("far_field", "capacity")
+
+
 def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int | None = None,
               harmonics: int | None = None, area_grid: int = 0, warn: bool = False,
-              maps: bool = False) -> ModelOutput:
+              maps: bool = False, plain: tuple[str, ...] = ()) -> ModelOutput:
     """Solve ``design`` (with optional traced replacements ``values``).
 
     Parameters
@@ -114,14 +121,20 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
     warn : bool — let solver warnings (Rayleigh anomaly) through
     maps : bool — keep the orders that point values of the fields need
         (:func:`maps_tolerance`), not only those of the region averages
+    plain : groups of :data:`PLAIN_GROUPS` computed from plain values: the same numbers
+        with no derivative through them (a goal whose rows do not read them records no
+        operations for them on the tape)
 
     Returns
     -------
     ModelOutput
     """
+    unknown = set(plain) - set(PLAIN_GROUPS)
+    if unknown:
+        raise ValueError(f"plain groups must be among {PLAIN_GROUPS}; got {sorted(unknown)}")
     if design.solver == "fourier":
         return _run_fourier(design, values, harmonics=harmonics, area_grid=area_grid,
-                            warn=warn)
+                            warn=warn, plain=plain)
     with warnings.catch_warnings():
         if not warn:
             warnings.simplefilter("ignore")
@@ -150,17 +163,24 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
                                      tol=maps_tolerance(design) if maps else tol)
             T = stack_tmatrices(particles, st.k, degree)
             sol = solve_multipole(st, T, degree, warn=warn, g_max=g_max)
-        frac = power_fractions(sol)
-        metrics = _region_metrics(sol, region, tol, area_grid)
+        frac = _fractions(sol, plain)
+        metrics = _region_metrics(sol, region, tol, area_grid, plain)
     return ModelOutput(structure=st, solution=sol, fractions=frac, metrics=metrics, lmax=degree)
 
 
-def _region_metrics(sol, region, tol, area_grid):
+def _fractions(sol, plain):
+    return power_fractions(untraced(sol) if "far_field" in plain else sol)
+
+
+def _region_metrics(sol, region, tol, area_grid, plain=()):
     if region is None:
         return None
     from chiropt.metrics import region_metrics
 
-    return region_metrics(sol, region, tol=tol, area_grid=area_grid)
+    if getattr(region, "inside_layer", False):
+        return region_metrics(sol, region, tol=tol, area_grid=area_grid)
+    return region_metrics(sol, region, tol=tol, area_grid=area_grid,
+                          plain_capacity="capacity" in plain)
 
 
 #: Harmonic counts tried by ``harmonics: auto`` (whole shells are kept, so the counts
@@ -168,7 +188,7 @@ def _region_metrics(sol, region, tol, area_grid):
 HARMONIC_STEPS = (25, 49, 97, 197, 301, 441, 625, 841, 1201, 1601, 2000)
 
 
-def _fourier_once(design, values, count, area_grid, warn):
+def _fourier_once(design, values, count, area_grid, warn, plain=()):
     from chiropt.fourier.solve import solve_fourier
 
     st = build_structure(design, values)
@@ -176,13 +196,13 @@ def _fourier_once(design, values, count, area_grid, warn):
     sol = solve_fourier(design, st, values, harmonics=count, factorization=design.factorization,
                         slices=design.slices, warn=warn,
                         interior=region is not None and region.inside_layer)
-    frac = power_fractions(sol)
-    metrics = _region_metrics(sol, region, metrics_tolerance(design), area_grid)
+    frac = _fractions(sol, plain)
+    metrics = _region_metrics(sol, region, metrics_tolerance(design), area_grid, plain)
     return ModelOutput(structure=st, solution=sol, fractions=frac, metrics=metrics, lmax=None,
                        harmonics=sol.harmonics)
 
 
-def _run_fourier(design, values, *, harmonics, area_grid, warn):
+def _run_fourier(design, values, *, harmonics, area_grid, warn, plain=()):
     """The Fourier modal solver at a fixed count, or ``auto``: the count is raised along
     :data:`HARMONIC_STEPS` (on plain values, up to ``model.harmonics_max``) until R, T and
     the region metrics change by less than ``model.harmonics_tolerance`` from one step to
@@ -193,11 +213,11 @@ def _run_fourier(design, values, *, harmonics, area_grid, warn):
             warnings.simplefilter("ignore")
         count = harmonics if harmonics is not None else design.harmonics
         if count != "auto":
-            return _fourier_once(design, values, int(count), area_grid, warn)
-        plain = None if values is None else {k: getval(v) for k, v in values.items()}
+            return _fourier_once(design, values, int(count), area_grid, warn, plain)
+        plain_values = None if values is None else {k: getval(v) for k, v in values.items()}
         previous, change, changes = None, None, None
         for step in [s for s in HARMONIC_STEPS if s <= design.harmonics_max]:
-            out = _fourier_once(design, plain, step, 0, False)
+            out = _fourier_once(design, plain_values, step, 0, False)
             here = {k: onp.asarray(getval(v))
                     for k, v in quantities_of(out, capacity=False).items()}
             if previous is not None:
@@ -209,7 +229,7 @@ def _run_fourier(design, values, *, harmonics, area_grid, warn):
         chosen = out.harmonics
         traced = any(v is not getval(v) for v in (values or {}).values())
         if traced or area_grid or warn:
-            out = _fourier_once(design, values, chosen, area_grid, warn)
+            out = _fourier_once(design, values, chosen, area_grid, warn, plain)
         out.harmonics_change = change
         out.harmonics_changes = changes
         if change is None or change >= design.harmonics_tolerance:

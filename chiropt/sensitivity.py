@@ -32,7 +32,7 @@ from chiropt.design import Design
 from chiropt.errors import InputError
 from chiropt.model import CAPACITY_QUANTITIES, metrics_tolerance, quantities_of, run_model
 
-__all__ = ["compute_quantities", "metrics_tolerance", "quantity_names",
+__all__ = ["compute_quantities", "metrics_tolerance", "plain_groups", "quantity_names",
            "spectrum_sensitivities", "value_and_gradient", "Sensitivity"]
 from chiropt.solution import RAYLEIGH_WARN
 
@@ -49,8 +49,26 @@ def quantity_names(design: Design) -> tuple[str, ...]:
     return FAR_FIELD + NEAR_FIELD + (() if design.region.inside_layer else CAPACITY)
 
 
+def plain_groups(metrics) -> tuple[str, ...]:
+    """The groups of ``chiropt.model.PLAIN_GROUPS`` that none of the metric names
+    ``metrics`` reads (each name is a quantity, or a quantity of both helicities averaged:
+    ``docp`` reads ``docp+1`` and ``docp-1``): what a goal's rows need no derivative of."""
+    def base(name):
+        return name[:-2] if name.endswith(("+1", "-1")) else name
+
+    names = {base(m) for m in metrics}
+    out = []
+    far = {base(n) for n in FAR_FIELD} | {"A_particles", "A_dipoles"}
+    if not names & far:
+        out.append("far_field")
+    if not (names & {base(n) for n in CAPACITY} or any(n.startswith("ev_share") for n in names)):
+        out.append("capacity")
+    return tuple(out)
+
+
 def compute_quantities(design: Design, values: dict[str, Any] | None = None,
-                       *, with_flags: bool = False, k_min: tuple[float, ...] = ()):
+                       *, with_flags: bool = False, k_min: tuple[float, ...] = (),
+                       plain: tuple[str, ...] = ()):
     """Spectra (W,) of every reported quantity; differentiable in ``values``.
 
     Parameters
@@ -59,12 +77,14 @@ def compute_quantities(design: Design, values: dict[str, Any] | None = None,
     values : dict, optional — replacements for named design quantities (may be traced)
     with_flags : bool — also return the (W,) Rayleigh proximity (plain floats)
     k_min : thresholds of the ``ev_share_k<k>`` quantities to add [-]
+    plain : groups of quantities computed from plain values, without derivatives
+        (``chiropt.model.PLAIN_GROUPS``: ``far_field``, ``capacity``)
 
     Returns
     -------
     dict name -> (W,) array [, rayleigh (W,)]
     """
-    output = run_model(design, values)
+    output = run_model(design, values, plain=tuple(plain))
     out = quantities_of(output, k_min=tuple(k_min))
     sol = output.solution
     if with_flags:

@@ -271,3 +271,44 @@ def test_jacobian_rows_equal_autograds_reverse_passes():
     for r, seed in enumerate(onp.eye(value.size)):
         onp.testing.assert_array_equal(J[r], onp.asarray(vjp(seed), float))
     assert J.shape == (value.size, x.size) and onp.all(onp.abs(J).sum(axis=1) > 0)
+
+
+def test_quantities_no_row_reads_are_the_same_numbers_without_derivatives():
+    # common practice, no source: a goal whose rows read neither R, T, A nor the capacity
+    # quantities computes those from plain values; every recorded number is the same as
+    # with derivatives through everything, the rows' Jacobian is unchanged, and asking for
+    # the derivative of such a quantity through the plain path gives none
+    from autograd import grad
+
+    from chiropt.goals import GoalProblem, load_goal
+    from chiropt.sensitivity import plain_groups
+
+    goal = load_goal(str(Path(__file__).resolve().parent.parent / "configs"
+                         / "quickstart.yaml"))[0]
+    P = GoalProblem(goal)
+    assert P.plain_groups == ("far_field", "capacity")
+    assert plain_groups(["g", "R"]) == ("capacity",)
+    assert plain_groups(["docp_efficiency", "u"]) == ("far_field",)
+    assert plain_groups(["ev_share_k1.5"]) == ("far_field",)
+    x = 0.4 * P.lower + 0.6 * P.upper
+    ev = P.evaluate(x, True)
+    traced = compute_quantities(P.eval_design, P.values(x), k_min=P.k_min)
+    for key, v in traced.items():
+        assert ev.metrics["quantities"][key] == onp.real(onp.asarray(v)).tolist(), key
+    every = GoalProblem(goal)
+    every.plain_groups = ()
+    ev_all = every.evaluate(x, True)
+    onp.testing.assert_array_equal(ev.df, ev_all.df)
+    onp.testing.assert_array_equal(ev.dg, ev_all.dg)
+    path = "lattice.period_nm"
+
+    def R_of(period, plain, weight=1.0):
+        values = dict(P.values(x), **{path: period})
+        q = compute_quantities(P.eval_design, values, plain=plain)
+        return weight * anp.real(q["R+1"][0]) + anp.real(q["g"][0])
+
+    p0 = P.values(x)[path]
+    with_R = grad(lambda p: R_of(p, ()))(p0)
+    without_R = grad(lambda p: R_of(p, ("far_field",)))(p0)
+    g_only = grad(lambda p: R_of(p, (), 0.0))(p0)
+    assert without_R == g_only and abs(with_R - g_only) > 1e-6 * abs(g_only)

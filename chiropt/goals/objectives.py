@@ -54,7 +54,7 @@ from chiropt.goals.schema import (
 from chiropt.problem import VectorEvaluation
 from chiropt.robust.average import metric_value, sample_quantities, summarize
 from chiropt.robust.sampling import SamplePlan, make_plan
-from chiropt.sensitivity import compute_quantities
+from chiropt.sensitivity import compute_quantities, plain_groups
 from chiropt.solution import RAYLEIGH_WARN
 
 __all__ = ["DeadlineReached", "GoalProblem", "check_goal", "metric_spectrum"]
@@ -211,6 +211,8 @@ class GoalProblem:
         names += [c.metric for c in goal.metric_constraints]
         #: thresholds of the goal's ev_share_k metrics (quantities ev_share_k<k>)
         self.k_min = tuple(sorted({k for k in map(parse_ev_share_name, names) if k is not None}))
+        #: quantity groups the rows do not read: computed without derivatives
+        self.plain_groups = plain_groups(names)
         self.model_note = ""
         if self.eval_design.solver == "fourier" and self.eval_design.harmonics == "auto":
             # one convergence scan at the base design fixes the count for the whole search
@@ -356,7 +358,7 @@ class GoalProblem:
 
     def _physics_vector(self, x, keep: dict):
         q, ray = compute_quantities(self.eval_design, self.values(x), with_flags=True,
-                                    k_min=self.k_min)
+                                    k_min=self.k_min, plain=self.plain_groups)
         keep["q"], keep["ray"] = q, ray
         robust = self._robust_samples(x) if self.robust_plans else None
         return np.stack([*self.objective_values(q, robust), *self._metric_rows(q, robust)])
