@@ -48,7 +48,6 @@ from chiropt.fields import (
     region_g_max,
     region_span,
 )
-from chiropt.planewaves import cross
 from chiropt.solution import Solution
 from chiropt.structure import Structure
 
@@ -258,6 +257,119 @@ def _single_waves_vjp(argnums, ans, args, kwargs):
 defvjp_argnums(_single_waves, _single_waves_vjp)
 
 
+def _wave_vectors(up0, down, s, pu, pd, ku, kd):
+    """E (W, T, a, 3) and the unit wavevectors (W, a, 3) of the (0,0) order's waves a
+    (up, then down when ``down`` is given) from their (s, p) amplitudes, plain."""
+    E = [up0[..., 0, None] * s[:, None] + up0[..., 1, None] * pu[:, None]]
+    kv = [ku]
+    if down is not None:
+        E.append(down[..., 0, None] * s[:, None] + down[..., 1, None] * pd[:, None])
+        kv.append(kd)
+    return onp.stack(E, axis=2), onp.stack(kv, axis=1)
+
+
+def _interference_factors(kz0, L, waves: int):
+    """beta (W, a) = (+kz, -kz) and the slab means m = phi1(i (beta_b - conj beta_a) L)
+    (W, a, b) with their slopes, plain."""
+    beta = onp.stack([kz0, -kz0][:waves], axis=-1)
+    expo = 1j * (beta[:, None, :] - onp.conj(beta)[:, :, None]) * L
+    m, small, xs = _phi1_values(expo)
+    return beta, expo, m, small, xs
+
+
+@primitive
+def _zero_order_forms(up0, down, s, pu, pd, ku, kd, kz0, L):
+    """Slab means of |E|^2, C_hat, S0, S3 of the (0,0) order, (4, W, T): the up wave and,
+    for host-side light, the incident down wave with their interference (module
+    ``order_averages``). up0, down (W, T, 2) amplitudes on (s, p); s, pu, pd, ku, kd
+    (W, 3) its unit vectors; kz0 (W,) [1/m]; L the slab thickness [m]."""
+    E, kv = _wave_vectors(up0, down, s, pu, pd, ku, kd)
+    m = _interference_factors(kz0, L, E.shape[2])[2]
+    H = onp.cross(kv[:, None], E)
+    cE = onp.conj(E)
+    return onp.stack([
+        onp.real(onp.einsum("wtai,wtbi,wab->wt", cE, E, m)),
+        -onp.imag(onp.einsum("wtai,wtbi,wab->wt", cE, H, m)),
+        onp.real(onp.einsum("wtai,wtbi,wab->wt", cE[..., :2], E[..., :2], m)),
+        2.0 * onp.imag(onp.einsum("wta,wtb,wab->wt", cE[..., 0], E[..., 1], m))])
+
+
+def _zero_order_forms_vjp(argnums, ans, args, kwargs):
+    """Each form is Re(kappa sum_ab m_ab conj(X_a) . Y_b) (kappa = 1, i, 1, -2i): with its
+    cotangent g, X_bar_a = g conj(kappa sum_b m_ab Y_b), Y_bar_b = g kappa sum_a m_ab
+    conj(X_a), m_bar_ab = g kappa conj(X_a) . Y_b (autograd's convention); H = k x E
+    passes H_bar x k to E and E x H_bar to k; m = phi1(x), x = i (beta_b - conj beta_a) L."""
+    up0, down, s, pu, pd, ku, kd, kz0, L = args
+    E, kv = _wave_vectors(up0, down, s, pu, pd, ku, kd)
+    a = E.shape[2]
+    beta, expo, m, small, xs = _interference_factors(kz0, L, a)
+    H = onp.cross(kv[:, None], E)
+    cE = onp.conj(E)
+    mE = onp.einsum("wab,wtbi->wtai", m, E)            # sum_b m_ab E_b
+    mH = onp.einsum("wab,wtbi->wtai", m, H)
+    Em = onp.einsum("wab,wtai->wtbi", m, cE)           # sum_a m_ab conj(E_a)
+    EE_ab = onp.einsum("wtai,wtbi->wtab", cE, E)       # conj(E_a) . E_b
+    EH_ab = onp.einsum("wtai,wtbi->wtab", cE, H)
+    E2_ab = onp.einsum("wtai,wtbi->wtab", cE[..., :2], E[..., :2])
+    E3_ab = onp.einsum("wta,wtb->wtab", cE[..., 0], E[..., 1])
+    two = onp.array([1.0, 1.0, 0.0])
+    series = 1 / 2 + expo * (1 / 3 + expo * (1 / 8 + expo * (1 / 30 + expo * (
+        1 / 144 + expo * (1 / 840 + expo / 5760)))))
+    slope = onp.where(small, series, (onp.exp(xs) - m) / xs)
+    e0, e1 = onp.eye(3)[0], onp.eye(3)[1]
+    real_in = [not onp.iscomplexobj(v) for v in args]
+
+    def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
+        gE, gC, gS, g3 = (g[i][..., None, None] for i in range(4))   # (W, T, 1, 1)
+        Ebar = (gE * (np.conj(mE) + Em) + gS * (np.conj(mE) + Em) * two
+                + gC * np.conj(1j * mH)
+                + g3 * (np.conj(-2j * mE[..., 1:2]) * e0 + (-2j) * Em[..., 0:1] * e1))
+        Hbar = gC * 1j * Em
+        Ebar = Ebar + np.cross(Hbar, kv[:, None] * np.ones(Hbar.shape))
+        gm = g[:, :, :, None, None]
+        mbar = np.sum(gm[0] * EE_ab + gm[1] * 1j * EH_ab + gm[2] * E2_ab
+                      + gm[3] * (-2j) * E3_ab, axis=1)               # (W, a, b)
+        xbar = mbar * slope
+        out = {}
+        # E_a = A_s s + A_p p_a
+        if 0 in argnums:
+            out[0] = np.stack([np.sum(Ebar[:, :, 0] * s[:, None], axis=-1),
+                               np.sum(Ebar[:, :, 0] * pu[:, None], axis=-1)], axis=-1)
+        if 1 in argnums:
+            out[1] = np.stack([np.sum(Ebar[:, :, 1] * s[:, None], axis=-1),
+                               np.sum(Ebar[:, :, 1] * pd[:, None], axis=-1)], axis=-1)
+        if 2 in argnums:
+            v = np.sum(up0[..., 0, None] * Ebar[:, :, 0], axis=1)
+            if a > 1:
+                v = v + np.sum(down[..., 0, None] * Ebar[:, :, 1], axis=1)
+            out[2] = v
+        if 3 in argnums:
+            out[3] = np.sum(up0[..., 1, None] * Ebar[:, :, 0], axis=1)
+        if 4 in argnums:   # p_down and k_down: only the down wave (host-side light)
+            out[4] = (np.sum(down[..., 1, None] * Ebar[:, :, 1], axis=1) if a > 1
+                      else onp.zeros(onp.shape(pd), complex))
+        if {5, 6} & set(argnums):
+            kbar = np.sum(np.cross(E, Hbar), axis=1)                  # (W, a, 3)
+            if 5 in argnums:
+                out[5] = kbar[:, 0]
+            if 6 in argnums:
+                out[6] = kbar[:, 1] if a > 1 else onp.zeros(onp.shape(kd), complex)
+        if 7 in argnums or 8 in argnums:
+            beta_bar = (np.sum(xbar * 1j * L, axis=1)
+                        + np.conj(np.sum(xbar * (-1j * L), axis=2)))  # (W, a)
+            if 7 in argnums:
+                out[7] = beta_bar[:, 0] - beta_bar[:, 1] if a > 1 else beta_bar[:, 0]
+            if 8 in argnums:
+                out[8] = np.real(np.sum(xbar * 1j * (beta[:, None, :]
+                                                      - onp.conj(beta)[:, :, None])))
+        return tuple(np.real(out[i]) if real_in[i] else out[i] for i in argnums)
+
+    return vjp
+
+
+defvjp_argnums(_zero_order_forms, _zero_order_forms_vjp)
+
+
 def order_averages(content: OrderContent, thickness, *, side: str = "host") -> dict:
     """Cell- and slab-averaged |E|^2, C_hat, S0, S3 of every order, (W, 2, G) each.
 
@@ -288,34 +400,16 @@ def order_averages(content: OrderContent, thickness, *, side: str = "host") -> d
     decay = np.real(_phi1(-2.0 * np.imag(content.kz) * thickness))[:, None]   # (W, 1, G)
     forms = _single_wave_forms(up, content.kz_over_k, content.K, decay)   # (4, W, 2, G)
 
-    # (0,0): up and down waves with interference, explicit vectors
+    # (0,0): up and down waves with interference, one primitive
     o0 = OrderContent(content.mn[:1], content.g_norm[:1], content.q[:, :1], content.kz[:, :1],
                       content.k, content.up[..., :1], content.down, content.z,
                       content.azimuth, content.n_host)
-    s, pu, pd, ku, kd = o0.basis()
-    Eu = up[:, :, 0, 0, None] * s[:, None, 0] + up[:, :, 1, 0, None] * pu[:, None, 0]  # (W,2,3)
-    Hu = cross(ku[:, None, 0] * np.ones(Eu.shape), Eu)
-    kz0 = content.kz[:, 0]
-    if side == "host":
-        d = content.down
-        Ed = d[..., 0:1] * s[:, None, 0] + d[..., 1:2] * pd[:, None, 0]
-        Hd = cross(kd[:, None, 0] * np.ones(Ed.shape), Ed)
-        Ew, Hw = np.stack([Eu, Ed], axis=2), np.stack([Hu, Hd], axis=2)   # (W, 2, 2, 3)
-        beta = np.stack([kz0, -kz0], axis=-1)                              # (W, 2)
-    else:
-        Ew, Hw = Eu[:, :, None], Hu[:, :, None]
-        beta = kz0[:, None]
-    expo = 1j * (beta[:, None, :] - np.conj(beta)[:, :, None]) * thickness  # (W, a, b)
-    m = _phi1(expo)
-    cE = np.conj(Ew)
-    r0 = {"EE": np.real(np.einsum("wtai,wtbi,wab->wt", cE, Ew, m)),
-          "C": -np.imag(np.einsum("wtai,wtbi,wab->wt", cE, Hw, m)),
-          "S0": np.real(np.einsum("wtai,wtbi,wab->wt", cE[..., :2], Ew[..., :2], m)),
-          "S3": 2.0 * np.imag(np.einsum("wta,wtb,wab->wt", cE[..., 0], Ew[..., 1], m))}
+    s, pu, pd, ku, kd = (v[:, 0] for v in o0.basis())
+    r0 = _zero_order_forms(up[:, :, :, 0], content.down if side == "host" else None,
+                           s, pu, pd, ku, kd, content.kz[:, 0], thickness)
     keys = ("EE", "C", "S0", "S3")
     # the (0,0) order's interference forms replace its single-wave ones
-    both = np.concatenate([np.stack([r0[key] for key in keys])[..., None], forms[..., 1:]],
-                          axis=-1)
+    both = np.concatenate([r0[..., None], forms[..., 1:]], axis=-1)
     return {key: both[i] for i, key in enumerate(keys)}
 
 

@@ -312,3 +312,27 @@ def test_quantities_no_row_reads_are_the_same_numbers_without_derivatives():
     without_R = grad(lambda p: R_of(p, ("far_field",)))(p0)
     g_only = grad(lambda p: R_of(p, (), 0.0))(p0)
     assert without_R == g_only and abs(with_R - g_only) > 1e-6 * abs(g_only)
+
+
+@pytest.mark.parametrize("side", ["host", "substrate"])
+@pytest.mark.parametrize("thickness", [0.0, 0.37])
+def test_zero_order_forms_primitive_against_finite_differences(side, thickness):
+    # central finite differences (check_grads, common practice, no source) of the (0,0)
+    # order's slab means with the incident down wave's interference (host side) or the up
+    # wave alone (substrate side), on a plane and a slab; complex unit vectors stand for
+    # the analytic continuation the region averages are differentiated along
+    from autograd.test_util import check_grads
+
+    from chiropt.metrics import _zero_order_forms
+    rng = onp.random.default_rng(5)
+    W, T = 2, 2
+    args = [_c(rng, W, T, 2), _c(rng, W, T, 2) if side == "host" else None]
+    args += [_c(rng, W, 3) for _ in range(5)] + [onp.abs(_c(rng, W)) + 0.3j]
+    if side == "host":
+        check_grads(lambda *a: _zero_order_forms(*a, thickness), modes=["rev"], order=1)(
+            *args)
+    else:
+        check_grads(lambda u, s, pu, pd, ku, kd, kz: _zero_order_forms(
+            u, None, s, pu, pd, ku, kd, kz, thickness), modes=["rev"], order=1)(
+            args[0], *args[2:])
+    check_grads(lambda L: _zero_order_forms(*args, L), modes=["rev"], order=1)(0.2)

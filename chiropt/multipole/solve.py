@@ -33,7 +33,7 @@ from chiropt.errors import InputError
 from chiropt.multipole.coupled import coupled_solve
 from chiropt.multipole.emission import radiated_orders
 from chiropt.multipole.latticesums import lattice_sums
-from chiropt.multipole.translation import translation_table
+from chiropt.multipole.translation import translation_columns
 from chiropt.sphericalwaves import (
     channel_modes,
     dipole_fields,
@@ -180,9 +180,12 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     d = (onp.zeros((1, 3)) if N == 1 else
          np.reshape(centres[:, None, :] - centres[None, :, :], (N * N, 3)))
     D = lattice_sums(k, st.k_par, st.lattice, d, 2 * lmax, tol=min(st.tolerance, 1e-10))
-    A = np.einsum("abj,wpj->wpab", translation_table(lmax), D)
-    A = np.reshape(A, (W, N, N, K2, K2))
-    Wmat = np.reshape(np.transpose(A, (0, 1, 3, 2, 4)), (W, N * K2, N * K2))
+    A = np.matmul(D, translation_columns(lmax))                        # (W, N N, 2K 2K)
+    if N == 1:
+        Wmat = np.reshape(A, (W, K2, K2))
+    else:
+        A = np.reshape(A, (W, N, N, K2, K2))
+        Wmat = np.reshape(np.transpose(A, (0, 1, 3, 2, 4)), (W, N * K2, N * K2))
 
     # -- plane-wave channels of every order ------------------------------------------------
     # P: [X.s, X.p] of every upward order (W, G, 2, K); the downward one is P * down_parity

@@ -137,6 +137,17 @@ def _product_with_y1(q, M, sigma):
 
 
 @cache
+def translation_columns(lmax: int):
+    """The table of :func:`translation_table` as a (J, 2K 2K) matrix, contiguous:
+    A = D @ translation_columns(lmax) gives the flattened (2K, 2K) translation matrices of
+    the lattice sums D (..., J) in one matrix product."""
+    C = translation_table(lmax)
+    out = onp.ascontiguousarray(onp.reshape(C, (-1, C.shape[-1])).T)
+    out.setflags(write=False)
+    return out
+
+
+@cache
 def translation_table(lmax: int):
     """Constant table C (2K, 2K, (2 lmax + 1)^2) of the VSWF translation (module docstring).
 
