@@ -146,47 +146,29 @@ _numpy_vjps.unbroadcast = unbroadcast
 _numpy_vjps.unbroadcast_f = unbroadcast_f
 
 
-def rows_vjp(vjp):
-    """Mark a primitive's VJP as taking the cotangents of R rows at once: called with the
-    output cotangent stacked on a new leading axis, it returns each input's cotangent with
-    that axis. ``value_and_jacobian`` then calls it once for all rows (the coarse
-    primitives' products share their large operands across the rows)."""
-    vjp.rows = True
-    return vjp
-
-
-def _stacked(gs):
-    return onp.stack([onp.asarray(g) for g in gs])
-
-
 def value_and_jacobian(fun, x):
     """Value (R,) and Jacobian (R, n) of a real vector function ``fun`` at ``x`` (n,).
 
     autograd's reverse mode: one traced forward pass, then for each output row the
     reverse pass of ``autograd.make_vjp`` with the unit cotangent of that row (the same
-    rules, the same order of accumulation), all rows walking the tape together in one
-    topological order. A node whose VJP takes all rows at once (:func:`rows_vjp`) is
-    called once with the rows' cotangents stacked; the others once per row.
+    rules, the same order of accumulation, so the same numbers), walking the tape in one
+    topological order made once for all rows.
     """
     x = onp.asarray(x, float)
     end_value, end_node = trace(VJPNode.new_root(), fun, x)
     value = onp.asarray(end_value, float)
-    R = value.size
-    seeds = onp.eye(R).reshape((R,) + value.shape)
+    rows = onp.eye(value.size).reshape((value.size,) + value.shape)
     if end_node is None:
-        return value.reshape(-1), onp.zeros((R, x.size))
-    outgrads = [{end_node: (seed, False)} for seed in seeds]
-    for node in toposort(end_node):
-        gs = [og.pop(node)[0] for og in outgrads]
-        if getattr(node.vjp, "rows", False) and R > 1:
-            together = node.vjp(_stacked(gs))
-            ingrads = [[v[r] for v in together] for r in range(R)]
-        else:
-            ingrads = [node.vjp(g) for g in gs]
-        for og, ins in zip(outgrads, ingrads, strict=True):
-            for parent, ingrad in zip(node.parents, ins, strict=True):
-                og[parent] = add_outgrads(og.get(parent), ingrad)
-    J = onp.stack([onp.reshape(onp.asarray(g, float), -1) for g in gs])
+        return value.reshape(-1), onp.zeros((value.size, x.size))
+    order = list(toposort(end_node))
+    J = onp.empty((value.size, x.size))
+    for r, seed in enumerate(rows):
+        outgrads = {end_node: (seed, False)}
+        for node in order:
+            g = outgrads.pop(node)[0]
+            for parent, ingrad in zip(node.parents, node.vjp(g), strict=True):
+                outgrads[parent] = add_outgrads(outgrads.get(parent), ingrad)
+        J[r] = onp.reshape(onp.asarray(g, float), -1)
     return value.reshape(-1), J
 
 

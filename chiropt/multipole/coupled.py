@@ -35,7 +35,7 @@ import autograd.numpy as np
 import numpy as onp
 from autograd.extend import defvjp_argnums, primitive
 
-from chiropt.autodiff import ForwardStash, rows_vjp
+from chiropt.autodiff import ForwardStash
 from chiropt.multipole.reflected import low_rank_cotangents, reflected_matrix_from_projections
 from chiropt.sphericalwaves import channel_modes
 
@@ -102,33 +102,23 @@ def _coupled_vjp(argnums, ans, args, kwargs):
     Ft = onp.transpose(F, (0, 2, 1))
     refl, contract = _reflected_cotangents(args, argnums, F)
 
-    W, M = onp.shape(F)[:2]
-    Et = onp.transpose(E, (0, 2, 1))
-
     def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
-        # g (2, W, 2, M), or (R, 2, W, 2, M) for R rows at once (rows_vjp): the rows ride
-        # along as extra right-hand sides of the one adjoint solve
-        rows = onp.ndim(g) == 5
-        Gr = g if rows else g[None]
-        R = onp.shape(Gr)[0]
-        gf = np.reshape(np.transpose(Gr[:, 0], (1, 3, 0, 2)), (W, M, 2 * R))
-        ge = np.reshape(np.transpose(Gr[:, 1], (1, 3, 0, 2)), (W, M, 2 * R))
+        gf, ge = np.transpose(g[0], (0, 2, 1)), np.transpose(g[1], (0, 2, 1))   # (W, M, 2)
         lam = np.linalg.solve(At, gf + np.matmul(Wt, ge))
-        u = ge + np.matmul(Tt, lam)                                    # (W, M, (r t))
-        u4 = np.reshape(u, (W, M, R, 2))
+        u = ge + np.matmul(Tt, lam)
         out = {}
         if 0 in argnums:
-            out[0] = np.matmul(np.transpose(np.reshape(lam, (W, M, R, 2)), (2, 0, 1, 3)), Et)
+            out[0] = np.matmul(lam, np.transpose(E, (0, 2, 1)))
         if 1 in argnums:
-            out[1] = np.matmul(np.transpose(u4, (2, 0, 1, 3)), Ft)
+            out[1] = np.matmul(u, Ft)
         if 2 in argnums:
-            out[2] = np.transpose(u4, (2, 0, 3, 1))
+            out[2] = np.transpose(u, (0, 2, 1))
         if refl:
-            out.update(contract(u4))
-        res = [out[i] if onp.iscomplexobj(args[i]) else np.real(out[i]) for i in argnums]
-        return tuple(res) if rows else tuple(v[0] for v in res)
+            out.update(contract(u))
+        return tuple(out[i] if onp.iscomplexobj(args[i]) else np.real(out[i])
+                     for i in argnums)
 
-    return rows_vjp(vjp)
+    return vjp
 
 
 def _reflected_cotangents(args, argnums, F):
@@ -147,7 +137,7 @@ def _reflected_cotangents(args, argnums, F):
     inner = {3: 0, 4: 1, 5: 5, 6: 3}          # positions of low_rank_cotangents (5: P)
     low = low_rank_cotangents((rc, r, recv, ph, emit), [inner[i] for i in wanted], F, lmax)
 
-    def contract(u):   # u (W, M, R, 2): R rows of cotangents at once
+    def contract(u):
         return dict(zip(wanted, low(u), strict=True))
 
     return wanted, contract

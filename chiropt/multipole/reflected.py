@@ -101,9 +101,8 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
 
     Returns
     -------
-    ``contract(u) -> tuple`` over ``argnums``, u (W, N 2K, R, 2) for R rows of cotangents
-    at once (R = 1 for one reverse pass), each result with the leading row axis; linear in
-    u with autograd operations (reverse mode applied twice works).
+    ``contract(u) -> tuple`` over ``argnums``, u (W, N 2K, 2); linear in u with autograd
+    operations (reverse mode applied twice works).
     """
     rc, r, recv, ph, emit = args
     W, G, N = onp.shape(rc)
@@ -132,50 +131,42 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
                              (W, G, 2, 2 * K))                             # [g, t, (h k)]
 
     def channel_sums(terms, X):
-        """out[c'] = sum over the terms of c' of factor * X[c, h], X (W, G, R, 2, 2, K)."""
-        return np.stack([sum(coef * X[:, :, :, c_in, h]
+        """out[c'] = sum over the terms of c' of factor * X[c, h], X (W, G, 2, 2, K)."""
+        return np.stack([sum(coef * X[:, :, c_in, h]
                              for c_out, c_in, h, coef in terms if c_out == c)
-                         for c in (0, 1)], axis=3)
+                         for c in (0, 1)], axis=2)
 
     def contract(u):
-        """Cotangents (R, ...) of the wanted inputs for u (W, N 2K, R, 2): R rows at once."""
-        R = onp.shape(u)[2]
-        u5 = np.reshape(u, (W, N, K2, R, 2))
-        u_cols = np.reshape(np.transpose(u5, (0, 2, 1, 3, 4)), (W, K2, N * R * 2))
-        Y = np.reshape(np.matmul(recv2, u_cols), (W, G, 2, N, R, 2))  # [g, c, n, r, t]
-        S = np.sum(rc[:, :, None, :, None, None] * Y, axis=3)          # (W, G, 2, R, 2)
-        Lu = r[:, :, :, None, None] * S
-        Lu_r = np.transpose(Lu, (0, 1, 3, 2, 4))                       # [g, r, c, t]
+        u4 = np.reshape(u, (W, N, K2, 2))
+        u_cols = np.reshape(np.transpose(u4, (0, 2, 1, 3)), (W, K2, 2 * N))
+        Y = np.reshape(np.matmul(recv2, u_cols), (W, G, 2, N, 2))      # [g, c, n, t]
+        S = np.sum(rc[:, :, None, :, None] * Y, axis=3)                # (W, G, 2, 2)
+        Lu = r[..., None] * S
         Z = None
         if 2 in wanted:
-            Z = np.reshape(np.matmul(rc, np.reshape(np.transpose(u5, (0, 1, 3, 4, 2)),
-                                                    (W, N, R * 2 * K2))), (W, G, R, 2, K2))
+            Z = np.reshape(np.matmul(rc, np.reshape(np.transpose(u4, (0, 1, 3, 2)),
+                                                    (W, N, 2 * K2))), (W, G, 2, K2))
         out = []
         for i in argnums:
             if i == 0:
-                v = np.transpose(np.sum(RF_r[:, :, :, None, None, :] * Y, axis=(2, 5)),
-                                 (3, 0, 1, 2))
+                v = np.sum(RF_r[:, :, :, None, :] * Y, axis=(2, 4))
             elif i == 1:
-                v = np.transpose(np.sum(RF[:, :, :, None, :] * S, axis=-1), (3, 0, 1, 2))
-            elif i == 2:                                               # [c, t] @ [t, a]
-                v = np.transpose(r[:, :, None, :, None] * np.matmul(RF[:, :, None], Z),
-                                 (2, 0, 1, 3, 4))
+                v = np.sum(RF * S, axis=-1)
+            elif i == 2:
+                v = r[..., None] * np.matmul(RF, Z)                    # [c, t] @ [t, a]
             elif i == 3:
-                v = np.transpose(np.sum(Lu[:, :, :, None] * Q[:, :, :, :, None], axis=(2, 5)),
-                                 (3, 0, 1, 2))
-            elif i == 4:                                               # [c, t] @ [t, b]
-                v = np.transpose(np.matmul(Lu_r, phF[:, :, None]), (2, 0, 1, 3, 4))
+                v = np.sum(Lu[:, :, :, None, :] * Q, axis=(2, 4))
+            elif i == 4:
+                v = np.matmul(Lu, phF)                                 # [c, t] @ [t, b]
             else:
                 # Z with the modes gathered m -> -m and the N/M index ahead of them
-                ug = np.transpose(np.reshape(u5, (W, N, K, 2, R, 2))[:, :, inv_r],
-                                  (0, 1, 4, 5, 3, 2))                  # [n, r, t, h, k]
-                ug = np.reshape(ug, (W, N, R * 4 * K))
-                Zg = rc * ug if N == 1 else np.matmul(rc, ug)
-                X = np.matmul(RF_r[:, :, None], np.reshape(Zg, (W, G, R, 2, 2 * K)))
-                Yp = np.matmul(Lu_r, phF_hk[:, :, None])               # [g, r, c, (h k)]
-                v = (channel_sums(recv_terms, np.reshape(X, (W, G, R, 2, 2, K)))
-                     + channel_sums(emit_terms, np.reshape(Yp, (W, G, R, 2, 2, K))))
-                v = np.transpose(v, (2, 0, 1, 3, 4))
+                ug = np.transpose(np.reshape(u4, (W, N, K, 2, 2))[:, :, inv_r], (0, 1, 4, 3, 2))
+                ug = np.reshape(ug, (W, N, 4 * K))
+                Zg = rc * ug if N == 1 else np.matmul(rc, ug)              # [g, (t h k)]
+                X = np.matmul(RF_r, np.reshape(Zg, (W, G, 2, 2 * K)))      # [g, c, (h k)]
+                Yp = np.matmul(Lu, phF_hk)
+                v = (channel_sums(recv_terms, np.reshape(X, (W, G, 2, 2, K)))
+                     + channel_sums(emit_terms, np.reshape(Yp, (W, G, 2, 2, K))))
             out.append(v if i == 5 or onp.iscomplexobj(args[i]) else np.real(v))
         return tuple(out)
 
