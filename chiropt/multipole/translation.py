@@ -46,6 +46,7 @@ from __future__ import annotations
 
 import math
 from functools import cache
+from types import MappingProxyType
 
 import numpy as onp
 import scipy.special as sps
@@ -78,6 +79,7 @@ def wigner3j(j1: int, j2: int, j3: int, m1: int, m2: int, m3: int) -> float:
     return (-1.0) ** (j1 - j2 - m3) * pre * s
 
 
+@cache
 def gaunt(l1: int, m1: int, l2: int, m2: int, l3: int, m3: int) -> float:
     """int Y_l1m1 Y_l2m2 Y_l3m3 dOmega (Condon-Shortley harmonics).
 
@@ -94,6 +96,7 @@ def _conj_gaunt(l, m, nu, mu, q):
     return (-1.0) ** m * gaunt(l, m, nu, -mu, q, mu - m)
 
 
+@cache
 def scalar_addition(l, m, nu, mu):
     """Coefficients s_q with S_{lm;nu mu}(b) = sum_q s_q h_q(kb) Y_{q,m-mu}(b_hat), dict q -> s_q.
 
@@ -111,7 +114,7 @@ def scalar_addition(l, m, nu, mu):
         g = _conj_gaunt(l, m, nu, mu, q)
         if g != 0.0:
             out[q] = 4 * math.pi * (1j) ** (nu - l + q) * g
-    return out
+    return MappingProxyType(out)   # cached: read-only
 
 
 def _cpm(l, m, sign):
@@ -123,6 +126,7 @@ _BHAT = {+1: (1, -math.sqrt(8 * math.pi / 3)), -1: (-1, math.sqrt(8 * math.pi / 
          0: (0, math.sqrt(4 * math.pi / 3))}
 
 
+@cache
 def _product_with_y1(q, M, sigma):
     """b_hat_sigma Y_qM = sum_p g_p Y_{p, M + s}: dict p -> g_p (p = q -+ 1)."""
     s, c = _BHAT[sigma]
@@ -133,7 +137,7 @@ def _product_with_y1(q, M, sigma):
         g = (-1.0) ** (M + s) * gaunt(1, s, q, M, p, -(M + s))
         if g != 0.0:
             out[p] = c * g
-    return out
+    return MappingProxyType(out)   # cached: read-only
 
 
 @cache
@@ -157,7 +161,9 @@ def translation_table(lmax: int):
     n = len(tau)
     J = (2 * lmax + 1) ** 2
     C = onp.zeros((n, n, J), dtype=complex)
-    for a in range(n):       # receiving (regular) mode u' = (tau', nu, mu)
+    # the entries depend on the modes' types only through tau = tau': the rows of
+    # tau' = 1 repeat those of tau' = 0 with the column types swapped (filled below)
+    for a in range(0, n, 2):  # receiving (regular) mode u' = (tau', nu, mu), tau' = 0
         t2, nu, mu = int(tau[a]), int(ls[a]), int(ms[a])
         for b in range(n):   # source (outgoing) mode u = (tau, l, m)
             t1, l, m = int(tau[b]), int(ls[b]), int(ms[b])
@@ -192,6 +198,8 @@ def translation_table(lmax: int):
                                            f"(l, m, nu, mu, p) = {(l, m, nu, mu, p)}")
                     if abs(hi) > 1e-14 * scale:
                         C[a, b, lm_index(p, m - mu)] += (2 * p + 1) * hi
+    C[1::2, 1::2] = C[0::2, 0::2]
+    C[1::2, 0::2] = C[0::2, 1::2]
     C.setflags(write=False)
     return C
 
