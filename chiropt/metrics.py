@@ -85,7 +85,12 @@ def incident_reference(structure: Structure) -> dict:
     k = st.k
     kpar2 = np.sum(st.k_par ** 2, axis=-1)
     arg = k ** 2 - kpar2
-    if st.side == "host":
+    normal = type(st.k_par) is onp.ndarray and not onp.any(st.k_par)
+    if st.side == "host" and normal and not onp.iscomplexobj(getval(k)):
+        # a fixed normal incidence: the reference wave runs along z, cos t = 1 for every
+        # design (sqrt(k^2)/k is exactly 1), a constant with no derivative
+        cos, sigma = onp.ones(onp.shape(getval(k))), -1.0
+    elif st.side == "host":
         cos, sigma = np.sqrt(arg) / k, -1.0
     else:
         ok = getval(arg) > 0
@@ -119,6 +124,11 @@ def _metrics_from(q: dict, ref: dict) -> dict:
     ``q[...]`` has shape (W, 2, ...); the result has shape (W, ...).
     """
     EE, C, S0, S3 = q["EE"], q["C"], q["S0"], q["S3"]
+    if onp.ndim(EE) == 2:   # region averages (W, 2): one primitive
+        v = _metric_values(EE, C, S0, S3, ref["s0"], ref["docp"])
+        return {"u": v[0], "c": v[1], "g": v[2], "background": v[3],
+                "s0": {HELICITY_KEYS[0]: v[4], HELICITY_KEYS[1]: v[5]},
+                "docp": {HELICITY_KEYS[0]: v[6], HELICITY_KEYS[1]: v[7]}}
     extra = (1,) * (EE.ndim - 2)
     u = (EE[:, 0] + EE[:, 1]) / 2.0
     c = (C[:, 0] - C[:, 1]) / 2.0
@@ -131,6 +141,46 @@ def _metrics_from(q: dict, ref: dict) -> dict:
         out["s0"][key] = S0[:, i] / s0inc
         out["docp"][key] = S3[:, i] / S0[:, i] / dinc
     return out
+
+
+@primitive
+def _metric_values(EE, C, S0, S3, s0inc, dinc):
+    """(8, W): u, c, g, background, s0 (+1, -1), DOCP (+1, -1) of :func:`_metrics_from`
+    from helicity-resolved averages (W, 2) and the incident reference s0 (W,), DOCP
+    (W, 2)."""
+    EE, C, S0, S3 = (onp.asarray(a, float) for a in (EE, C, S0, S3))
+    u = (EE[:, 0] + EE[:, 1]) / 2.0
+    c = (C[:, 0] - C[:, 1]) / 2.0
+    s0 = S0 / onp.asarray(s0inc)[:, None]
+    docp = S3 / S0 / onp.asarray(dinc)
+    return onp.stack([u, c, c / u, (EE[:, 0] - EE[:, 1]) / (EE[:, 0] + EE[:, 1]),
+                      s0[:, 0], s0[:, 1], docp[:, 0], docp[:, 1]])
+
+
+def _metric_values_vjp(argnums, ans, args, kwargs):
+    """Derivatives of the quotients (elementary calculus)."""
+    EE, C, S0, S3, s0inc, dinc = (onp.asarray(a, float) for a in args)
+    u, c = ans[0], ans[1]
+    tot = EE[:, 0] + EE[:, 1]
+    sq = tot ** 2
+
+    def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
+        gu = g[0] - g[2] * c / u ** 2
+        gc = g[1] + g[2] / u
+        gs, gd = np.stack([g[4], g[5]], axis=-1), np.stack([g[6], g[7]], axis=-1)
+        out = {0: np.stack([gu / 2 + g[3] * 2 * EE[:, 1] / sq,
+                            gu / 2 - g[3] * 2 * EE[:, 0] / sq], axis=-1),
+               1: np.stack([gc / 2, -gc / 2], axis=-1),
+               2: gs / s0inc[:, None] - gd * S3 / (S0 ** 2 * dinc),
+               3: gd / (S0 * dinc),
+               4: -np.sum(gs * S0, axis=-1) / s0inc ** 2,
+               5: -gd * S3 / (S0 * dinc ** 2)}
+        return tuple(out[i] for i in argnums)
+
+    return vjp
+
+
+defvjp_argnums(_metric_values, _metric_values_vjp)
 
 
 def local_metrics(E, ZH, structure: Structure) -> dict:

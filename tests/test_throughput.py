@@ -336,3 +336,18 @@ def test_zero_order_forms_primitive_against_finite_differences(side, thickness):
             u, None, s, pu, pd, ku, kd, kz, thickness), modes=["rev"], order=1)(
             args[0], *args[2:])
     check_grads(lambda L: _zero_order_forms(*args, L), modes=["rev"], order=1)(0.2)
+
+
+def test_metric_values_primitive_against_finite_differences():
+    # central finite differences (check_grads, common practice, no source) of u, c, g,
+    # background, s0 and DOCP per helicity from region averages and the incident reference
+    from autograd.test_util import check_grads
+
+    from chiropt.metrics import _metric_values
+    rng = onp.random.default_rng(9)
+    W = 3
+    EE = onp.abs(rng.normal(size=(W, 2))) + 0.5
+    S0 = onp.abs(rng.normal(size=(W, 2))) + 0.5
+    check_grads(_metric_values, modes=["rev"], order=1)(
+        EE, rng.normal(size=(W, 2)), S0, rng.normal(size=(W, 2)),
+        onp.abs(rng.normal(size=W)) + 0.5, rng.normal(size=(W, 2)) + 2.0)
