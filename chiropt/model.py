@@ -162,7 +162,9 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
                 g_max = region_g_max(st, region_span(st, region)[0],
                                      tol=maps_tolerance(design) if maps else tol)
             T = stack_tmatrices(particles, st.k, degree)
-            sol = solve_multipole(st, T, degree, warn=warn, g_max=g_max)
+            # the region's averages and the far field need only the orders the region
+            # and the far field keep; point fields (maps) keep every order of the solve
+            sol = solve_multipole(st, T, degree, warn=warn, g_max=g_max, trim=not maps)
         frac = _fractions(sol, plain)
         metrics = _region_metrics(sol, region, tol, area_grid, plain)
     return ModelOutput(structure=st, solution=sol, fractions=frac, metrics=metrics, lmax=degree)

@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import autograd.numpy as np
@@ -43,6 +43,7 @@ from chiropt.sphericalwaves import (
 )
 from chiropt.solution import (
     Solution,
+    _slice_orders,
     background_components,
     combine_orders,
     emission_phases,
@@ -51,6 +52,7 @@ from chiropt.solution import (
     stack_for_orders,
     orders_radius,
 )
+from chiropt.lattice.orders import order_indices
 from chiropt.structure import Structure
 
 #: Cap on the number of orders kept for the reflected interaction.
@@ -137,7 +139,7 @@ def _check(structure, tmatrices, lmax):
 
 
 def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = True,
-                    g_max: float | None = None) -> MultipoleSolution:
+                    g_max: float | None = None, trim: bool = False) -> MultipoleSolution:
     """Solve the coupled multipole equations for both incident helicities.
 
     Parameters
@@ -149,6 +151,10 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     lmax : int — multipole degree of the basis, 1 <= lmax <= 8
     warn : bool — emit :class:`chiropt.solve.RayleighAnomalyWarning` near a grazing order
     g_max : float, optional — keep at least the orders with |G| <= g_max [1/m]
+    trim : bool — keep in the solution only the orders with |G| <= max(g_max,
+        :func:`chiropt.solution.orders_radius`): the further evanescent orders that the
+        stack-reflected coupling needs are used inside the solve only, and their emitted
+        amplitudes are not made (the same numbers for every order kept)
 
     Returns
     -------
@@ -219,10 +225,18 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     f, e = coupled_solve(_block_diag(tmatrices), Wmat, b, reflected)   # (W, 2, N 2K) each
 
     # -- outgoing orders, components on (s, p) --------------------------------------------
+    n_far, rayleigh = far_orders_and_anomalies(st, orders, warn=warn)
+    if trim:
+        keep = len(order_indices(st.lattice, max(orders_radius(st), float(g_max or 0.0))))
+        if keep < len(orders.mn):
+            orders = _slice_orders(orders, keep)
+            P, ph_up, ph_dn = P[:, :keep], ph_up[:, :keep], ph_dn[:, :keep]
+            coef = None if coef is None else replace(
+                coef, r_s=coef.r_s[:, :keep], r_p=coef.r_p[:, :keep],
+                t_s=coef.t_s[:, :keep], t_p=coef.t_p[:, :keep])
     up_c, down_c = radiated_orders(f, P, ph_up, ph_dn, lmax)           # (W, 2, G, 2) each
     f4 = np.reshape(f, (W, 2, N, K2))
     up_c, exit_c, eps_exit = combine_orders(st, coef, up_c, down_c, U0, X0)
-    n_far, rayleigh = far_orders_and_anomalies(st, orders, warn=warn)
 
     e4 = np.reshape(e, (W, 2, N, K2))
     moments = dipole_moments(f4, k[:, None, None])
