@@ -108,7 +108,8 @@ PLAIN_GROUPS = ("far_field", "capacity")
 
 def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int | None = None,
               harmonics: int | None = None, area_grid: int = 0, warn: bool = False,
-              maps: bool = False, plain: tuple[str, ...] = ()) -> ModelOutput:
+              maps: bool = False, plain: tuple[str, ...] = (),
+              trim: bool = False) -> ModelOutput:
     """Solve ``design`` (with optional traced replacements ``values``).
 
     Parameters
@@ -124,6 +125,9 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
     plain : groups of :data:`PLAIN_GROUPS` computed from plain values: the same numbers
         with no derivative through them (a goal whose rows do not read them records no
         operations for them on the tape)
+    trim : bool — the solution is used for the returned fractions and region metrics
+        only: the multipole solution keeps only the orders they need (no point fields at
+        other heights can be taken from it afterwards)
 
     Returns
     -------
@@ -162,9 +166,8 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
                 g_max = region_g_max(st, region_span(st, region)[0],
                                      tol=maps_tolerance(design) if maps else tol)
             T = stack_tmatrices(particles, st.k, degree)
-            # the region's averages and the far field need only the orders the region
-            # and the far field keep; point fields (maps) keep every order of the solve
-            sol = solve_multipole(st, T, degree, warn=warn, g_max=g_max, trim=not maps)
+            sol = solve_multipole(st, T, degree, warn=warn, g_max=g_max,
+                                  trim=trim and not maps)
         frac = _fractions(sol, plain)
         metrics = _region_metrics(sol, region, tol, area_grid, plain)
     return ModelOutput(structure=st, solution=sol, fractions=frac, metrics=metrics, lmax=degree)

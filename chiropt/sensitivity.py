@@ -84,7 +84,8 @@ def compute_quantities(design: Design, values: dict[str, Any] | None = None,
     -------
     dict name -> (W,) array [, rayleigh (W,)]
     """
-    output = run_model(design, values, plain=tuple(plain))
+    # only the quantities leave this function: the solution keeps only the orders they need
+    output = run_model(design, values, plain=tuple(plain), trim=True)
     out = quantities_of(output, k_min=tuple(k_min))
     sol = output.solution
     if with_flags:

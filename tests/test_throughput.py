@@ -351,3 +351,23 @@ def test_metric_values_primitive_against_finite_differences():
     check_grads(_metric_values, modes=["rev"], order=1)(
         EE, rng.normal(size=(W, 2)), S0, rng.normal(size=(W, 2)),
         onp.abs(rng.normal(size=W)) + 0.5, rng.normal(size=(W, 2)) + 2.0)
+
+
+def test_quantities_with_the_trimmed_order_set_equal_the_full_solution():
+    # common practice, no source: compute_quantities keeps only the orders the region and
+    # the far field need (the reflected coupling's further orders stay inside the solve);
+    # the quantities equal those of the full solution, and the full solution still gives
+    # fields at a lower plane
+    from chiropt.metrics import plane_maps
+    from chiropt.model import quantities_of, run_model
+
+    design = design_from_dict(REFERENCE["multipole-square-substrate-normal"]["design"])
+    trimmed = run_model(design, trim=True)
+    full = run_model(design)
+    assert len(trimmed.solution.orders.mn) < len(full.solution.orders.mn)
+    q, ref = compute_quantities(design), quantities_of(full)
+    for key, v in ref.items():
+        onp.testing.assert_allclose(q[key], v, rtol=1e-13, atol=1e-15, err_msg=key)
+    from chiropt.fields import particle_top
+    low = float(particle_top(full.structure)) * 1e9 + 1.0    # 1 nm above the tops [nm]
+    assert onp.all(onp.isfinite(plane_maps(full.solution, low, 8)["u"]))
