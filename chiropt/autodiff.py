@@ -174,18 +174,20 @@ def value_and_jacobian(fun, x):
 
 def untraced(obj):
     """``obj`` with every autograd box replaced by its plain value, recursively through
-    dataclass fields, dicts, lists and tuples (a new record; arrays are not copied, and
-    values a record caches outside its fields are left behind)."""
+    dataclass fields (and the values a record caches beside them, such as
+    ``functools.cached_property`` results), dicts, lists and tuples: a new record; arrays
+    are not copied."""
     if isbox(obj):
         return getval(obj)
     if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
         new = object.__new__(type(obj))
-        for f in dataclasses.fields(obj):
-            object.__setattr__(new, f.name, untraced(getattr(obj, f.name)))
+        names = [f.name for f in dataclasses.fields(obj)]
+        names += [k for k in getattr(obj, "__dict__", {}) if k not in names]
+        for name in names:
+            object.__setattr__(new, name, untraced(getattr(obj, name)))
         return new
     if isinstance(obj, dict):
         return {k: untraced(v) for k, v in obj.items()}
     if isinstance(obj, list | tuple):
         return type(obj)(untraced(v) for v in obj)
     return obj
-

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as onp
-from autograd.tracer import getval
+from autograd.tracer import getval, isbox
 
 from chiropt.autodiff import untraced
 from chiropt.design import Design
@@ -174,7 +174,8 @@ def run_model(design: Design, values: dict[str, Any] | None = None, *, lmax: int
 
 
 def _fractions(sol, plain):
-    return power_fractions(untraced(sol) if "far_field" in plain else sol)
+    traced = isbox(sol.up_sp)
+    return power_fractions(untraced(sol) if traced and "far_field" in plain else sol)
 
 
 def _region_metrics(sol, region, tol, area_grid, plain=()):
