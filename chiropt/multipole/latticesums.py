@@ -216,14 +216,17 @@ def _spatial(k, kpar, a1, a2, d, E, nm, pmax, self_tol2):
     u0 = 2.0 * X * T.real(wb)
     u1 = 2.0 * kc * X * T.imag(wb) - (4.0 / _SQRT_PI) * Ec * X
     r2c = r2s[None]
-    ints = [_SQRT_PI * u0 / (4 * rc), -(_SQRT_PI / (8 * r2c)) * (u1 - u0 / rc)]
+    inv_r, inv_r2 = 1.0 / rc, 1.0 / r2c
+    ints = [(_SQRT_PI / 4) * u0 * inv_r, -(_SQRT_PI / 8) * (u1 - u0 * inv_r) * inv_r2]
+    if pmax >= 2:
+        half_k2, inv_2r2 = 0.5 * kc * kc, 0.5 * inv_r2
     for p in range(2, pmax + 1):
-        ints.append(((2 * p - 1) * ints[p - 1] - 0.5 * kc * kc * ints[p - 2]
-                     + Ec ** (2 * p - 1) * X) / (2 * r2c))
+        ints.append(((2 * p - 1) * ints[p - 1] - half_k2 * ints[p - 2]
+                     + Ec ** (2 * p - 1) * X) * inv_2r2)
     ps = onp.array([p for p in range(pmax + 1) for _ in range(-p, p + 1)])
     # solid harmonic r^p Y times (r^-1 d/dr)^p f = (-2)^p I_p / (2 pi^1.5)
-    per_p = T.stack([ints[p] * (rc ** p) * ((-2.0) ** p / (2 * math.pi ** 1.5))
-                     for p in range(pmax + 1)], axis=-1)              # (W, P, N, p)
+    scale = (-2.0) ** onp.arange(pmax + 1) / (2 * math.pi ** 1.5)
+    per_p = T.stack(ints[:pmax + 1], axis=-1) * T.powers(rc, pmax) * scale   # (W, P, N, p)
     radial = per_p[..., ps]                                            # (W, P, N, J)
     phase = T.exp(1j * (kpar[0][:, None] * Rx[None, :] + kpar[1][:, None] * Ry[None, :]))
     keep = (~is_self).astype(float)
