@@ -371,8 +371,12 @@ class GoalProblem:
 
     @staticmethod
     def _jacobian(fun, x):
-        """Value and Jacobian: one forward pass, one reverse pass per output row."""
-        out, J = value_and_jacobian(fun, x)
+        """Value and Jacobian: one forward pass, one reverse pass per output row.
+
+        Derivatives at a Rayleigh anomaly are not finite (kz = 0); numpy's warnings about
+        them are silenced here because ``evaluate`` reports such a point as failed."""
+        with onp.errstate(invalid="ignore", divide="ignore"):
+            out, J = value_and_jacobian(fun, x)
         return out, J.reshape(out.size, onp.size(x))
 
     def quantities(self, x) -> dict[str, list[float]]:
