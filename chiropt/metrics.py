@@ -35,7 +35,7 @@ import numpy as onp
 from autograd.extend import defvjp, defvjp_argnums, primitive
 from autograd.tracer import getval
 
-from chiropt.autodiff import untraced
+from chiropt.autodiff import ForwardStash, untraced
 from chiropt.capacity import capacity_metrics
 from chiropt.errors import InputError
 from chiropt.fields import (
@@ -123,58 +123,57 @@ def _metrics_from(q: dict, ref: dict) -> dict:
 
     ``q[...]`` has shape (W, 2, ...); the result has shape (W, ...).
     """
-    EE, C, S0, S3 = q["EE"], q["C"], q["S0"], q["S3"]
-    if onp.ndim(EE) == 2:   # region averages (W, 2): one primitive
-        v = _metric_values(EE, C, S0, S3, ref["s0"], ref["docp"])
-        return {"u": v[0], "c": v[1], "g": v[2], "background": v[3],
-                "s0": {HELICITY_KEYS[0]: v[4], HELICITY_KEYS[1]: v[5]},
-                "docp": {HELICITY_KEYS[0]: v[6], HELICITY_KEYS[1]: v[7]}}
-    extra = (1,) * (EE.ndim - 2)
-    u = (EE[:, 0] + EE[:, 1]) / 2.0
-    c = (C[:, 0] - C[:, 1]) / 2.0
-    s0inc = ref["s0"].reshape((-1,) + extra)
-    out: dict[str, Any] = {"u": u, "c": c, "g": c / u,
-                           "background": (EE[:, 0] - EE[:, 1]) / (EE[:, 0] + EE[:, 1]),
-                           "s0": {}, "docp": {}}
-    for i, key in enumerate(HELICITY_KEYS):
-        dinc = ref["docp"][:, i].reshape((-1,) + extra)
-        out["s0"][key] = S0[:, i] / s0inc
-        out["docp"][key] = S3[:, i] / S0[:, i] / dinc
-    return out
+    v = _metric_values(q["EE"], q["C"], q["S0"], q["S3"], ref["s0"], ref["docp"])
+    return {"u": v[0], "c": v[1], "g": v[2], "background": v[3],
+            "s0": {HELICITY_KEYS[0]: v[4], HELICITY_KEYS[1]: v[5]},
+            "docp": {HELICITY_KEYS[0]: v[6], HELICITY_KEYS[1]: v[7]}}
 
 
 @primitive
 def _metric_values(EE, C, S0, S3, s0inc, dinc):
-    """(8, W): u, c, g, background, s0 (+1, -1), DOCP (+1, -1) of :func:`_metrics_from`
-    from helicity-resolved averages (W, 2) and the incident reference s0 (W,), DOCP
-    (W, 2)."""
+    """(8, W, ...): u, c, g, background, s0 (+1, -1), DOCP (+1, -1) of :func:`_metrics_from`
+    from helicity-resolved quantities (W, 2, ...) and the incident reference s0 (W,),
+    DOCP (W, 2)."""
     EE, C, S0, S3 = (onp.asarray(a, float) for a in (EE, C, S0, S3))
+    s0inc, dinc = _reference_axes(EE, s0inc, dinc)
     u = (EE[:, 0] + EE[:, 1]) / 2.0
     c = (C[:, 0] - C[:, 1]) / 2.0
-    s0 = S0 / onp.asarray(s0inc)[:, None]
-    docp = S3 / S0 / onp.asarray(dinc)
+    s0 = S0 / s0inc
+    docp = S3 / S0 / dinc
     return onp.stack([u, c, c / u, (EE[:, 0] - EE[:, 1]) / (EE[:, 0] + EE[:, 1]),
                       s0[:, 0], s0[:, 1], docp[:, 0], docp[:, 1]])
 
 
+def _reference_axes(EE, s0inc, dinc):
+    """The incident reference (W,) and (W, 2) with unit axes to broadcast on (W, 2, ...)."""
+    extra = (1,) * (onp.ndim(EE) - 2)
+    return (onp.reshape(onp.asarray(s0inc, float), (-1, 1) + extra),
+            onp.reshape(onp.asarray(dinc, float), (-1, 2) + extra))
+
+
 def _metric_values_vjp(argnums, ans, args, kwargs):
     """Derivatives of the quotients (elementary calculus)."""
-    EE, C, S0, S3, s0inc, dinc = (onp.asarray(a, float) for a in args)
+    EE, C, S0, S3 = (onp.asarray(a, float) for a in args[:4])
+    s0inc, dinc = _reference_axes(EE, args[4], args[5])
     u, c = ans[0], ans[1]
     tot = EE[:, 0] + EE[:, 1]
     sq = tot ** 2
+    sum_extra = tuple(range(2, onp.ndim(EE)))     # the axes beyond (W, helicity)
 
     def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
         gu = g[0] - g[2] * c / u ** 2
         gc = g[1] + g[2] / u
-        gs, gd = np.stack([g[4], g[5]], axis=-1), np.stack([g[6], g[7]], axis=-1)
+        gs, gd = np.stack([g[4], g[5]], axis=1), np.stack([g[6], g[7]], axis=1)
         out = {0: np.stack([gu / 2 + g[3] * 2 * EE[:, 1] / sq,
-                            gu / 2 - g[3] * 2 * EE[:, 0] / sq], axis=-1),
-               1: np.stack([gc / 2, -gc / 2], axis=-1),
-               2: gs / s0inc[:, None] - gd * S3 / (S0 ** 2 * dinc),
-               3: gd / (S0 * dinc),
-               4: -np.sum(gs * S0, axis=-1) / s0inc ** 2,
-               5: -gd * S3 / (S0 * dinc ** 2)}
+                            gu / 2 - g[3] * 2 * EE[:, 0] / sq], axis=1),
+               1: np.stack([gc / 2, -gc / 2], axis=1),
+               2: gs / s0inc - gd * S3 / (S0 ** 2 * dinc),
+               3: gd / (S0 * dinc)}
+        if 4 in argnums:
+            out[4] = -np.sum(gs * S0 / s0inc ** 2, axis=(1,) + sum_extra)
+        if 5 in argnums:
+            out[5] = -np.sum(gd * S3 / (S0 * dinc ** 2), axis=sum_extra) if sum_extra \
+                else -gd * S3 / (S0 * dinc ** 2)
         return tuple(out[i] for i in argnums)
 
     return vjp
@@ -231,12 +230,17 @@ def _phi1_primitive(x):
     return _phi1_values(x)[0]
 
 
+def _phi1_slope(x, value, small, xs):
+    """phi1'(x) = (exp(x) - phi1(x))/x, by its Taylor series where |x| is small."""
+    series = 1 / 2 + x * (1 / 3 + x * (1 / 8 + x * (1 / 30 + x * (1 / 144 + x * (
+        1 / 840 + x / 5760)))))
+    return onp.where(small, series, (onp.exp(xs) - value) / xs)
+
+
 def _phi1_vjp(ans, x):
     value, small, xs = _phi1_values(x)
     x = onp.asarray(x)
-    series = 1 / 2 + x * (1 / 3 + x * (1 / 8 + x * (1 / 30 + x * (1 / 144 + x * (
-        1 / 840 + x / 5760)))))
-    slope = onp.where(small, series, (onp.exp(xs) - value) / xs)
+    slope = _phi1_slope(x, value, small, xs)
     real = not onp.iscomplexobj(x)
     return lambda g: np.real(g * slope) if real else g * slope
 
@@ -318,13 +322,18 @@ def _wave_vectors(up0, down, s, pu, pd, ku, kd):
     return onp.stack(E, axis=2), onp.stack(kv, axis=1)
 
 
-def _interference_factors(kz0, L, waves: int):
-    """beta (W, a) = (+kz, -kz) and the slab means m = phi1(i (beta_b - conj beta_a) L)
-    (W, a, b) with their slopes, plain."""
-    beta = onp.stack([kz0, -kz0][:waves], axis=-1)
+def _zero_order_parts(up0, down, s, pu, pd, ku, kd, kz0, L):
+    """What the (0,0) forms and their VJP share, plain: E (W, T, a, 3), the unit
+    wavevectors kv (W, a, 3), H = kv x E, beta (W, a) = (+kz, -kz), the slab means
+    m = phi1(i (beta_b - conj beta_a) L) (W, a, b) and their slopes phi1'."""
+    E, kv = _wave_vectors(up0, down, s, pu, pd, ku, kd)
+    beta = onp.stack([kz0, -kz0][:E.shape[2]], axis=-1)
     expo = 1j * (beta[:, None, :] - onp.conj(beta)[:, :, None]) * L
     m, small, xs = _phi1_values(expo)
-    return beta, expo, m, small, xs
+    return E, kv, onp.cross(kv[:, None], E), beta, m, _phi1_slope(expo, m, small, xs)
+
+
+_ZERO_ORDER_STASH = ForwardStash()
 
 
 @primitive
@@ -333,15 +342,16 @@ def _zero_order_forms(up0, down, s, pu, pd, ku, kd, kz0, L):
     for host-side light, the incident down wave with their interference (module
     ``order_averages``). up0, down (W, T, 2) amplitudes on (s, p); s, pu, pd, ku, kd
     (W, 3) its unit vectors; kz0 (W,) [1/m]; L the slab thickness [m]."""
-    E, kv = _wave_vectors(up0, down, s, pu, pd, ku, kd)
-    m = _interference_factors(kz0, L, E.shape[2])[2]
-    H = onp.cross(kv[:, None], E)
+    parts = _zero_order_parts(up0, down, s, pu, pd, ku, kd, kz0, L)
+    E, _, H, _, m, _ = parts
     cE = onp.conj(E)
-    return onp.stack([
+    out = onp.stack([
         onp.real(onp.einsum("wtai,wtbi,wab->wt", cE, E, m)),
         -onp.imag(onp.einsum("wtai,wtbi,wab->wt", cE, H, m)),
         onp.real(onp.einsum("wtai,wtbi,wab->wt", cE[..., :2], E[..., :2], m)),
         2.0 * onp.imag(onp.einsum("wta,wtb,wab->wt", cE[..., 0], E[..., 1], m))])
+    _ZERO_ORDER_STASH.put(out, None, parts)
+    return out
 
 
 def _zero_order_forms_vjp(argnums, ans, args, kwargs):
@@ -350,10 +360,11 @@ def _zero_order_forms_vjp(argnums, ans, args, kwargs):
     conj(X_a), m_bar_ab = g kappa conj(X_a) . Y_b (autograd's convention); H = k x E
     passes H_bar x k to E and E x H_bar to k; m = phi1(x), x = i (beta_b - conj beta_a) L."""
     up0, down, s, pu, pd, ku, kd, kz0, L = args
-    E, kv = _wave_vectors(up0, down, s, pu, pd, ku, kd)
+    parts = _ZERO_ORDER_STASH.take(ans, None)
+    if parts is None:
+        parts = _zero_order_parts(*args)
+    E, kv, H, beta, m, slope = parts
     a = E.shape[2]
-    beta, expo, m, small, xs = _interference_factors(kz0, L, a)
-    H = onp.cross(kv[:, None], E)
     cE = onp.conj(E)
     mE = onp.einsum("wab,wtbi->wtai", m, E)            # sum_b m_ab E_b
     mH = onp.einsum("wab,wtbi->wtai", m, H)
@@ -363,9 +374,6 @@ def _zero_order_forms_vjp(argnums, ans, args, kwargs):
     E2_ab = onp.einsum("wtai,wtbi->wtab", cE[..., :2], E[..., :2])
     E3_ab = onp.einsum("wta,wtb->wtab", cE[..., 0], E[..., 1])
     two = onp.array([1.0, 1.0, 0.0])
-    series = 1 / 2 + expo * (1 / 3 + expo * (1 / 8 + expo * (1 / 30 + expo * (
-        1 / 144 + expo * (1 / 840 + expo / 5760)))))
-    slope = onp.where(small, series, (onp.exp(xs) - m) / xs)
     e0, e1 = onp.eye(3)[0], onp.eye(3)[1]
     real_in = [not onp.iscomplexobj(v) for v in args]
 

@@ -183,8 +183,6 @@ def _region_metrics(sol, region, tol, area_grid, plain=()):
         return None
     from chiropt.metrics import region_metrics
 
-    if getattr(region, "inside_layer", False):
-        return region_metrics(sol, region, tol=tol, area_grid=area_grid)
     return region_metrics(sol, region, tol=tol, area_grid=area_grid,
                           plain_capacity="capacity" in plain)
 

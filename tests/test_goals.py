@@ -11,20 +11,10 @@ import pytest
 from chiropt.errors import InputError
 from chiropt.goals import EXPLAIN, GoalProblem, check_goal, load_goal
 from chiropt.goals.schema import parse_wall_time
+from scenarios import RADIUS_AND_PERIOD, SPHERE_ON_GLASS
 
-DESIGN = """\
-design:
-  lattice: {kind: square, period_nm: 420}
-  particles:
-    - {radius_nm: 75, material: Si}
-  substrate: {material: SiO2}
-  illumination: {wavelength_nm: 700}
-"""
-VARIABLES = """\
-variables:
-  particles[0].radius_nm: {min: 50, max: 110}
-  lattice.period_nm: {min: 300, max: 520}
-"""
+DESIGN = SPHERE_ON_GLASS.replace("  region: {kind: plane, height_nm: 10}\n", "")
+VARIABLES = RADIUS_AND_PERIOD
 OBJECTIVES = """\
 objectives:
   - {maximize: A, at_nm: 700}

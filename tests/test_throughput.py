@@ -371,3 +371,18 @@ def test_quantities_with_the_trimmed_order_set_equal_the_full_solution():
     from chiropt.fields import particle_top
     low = float(particle_top(full.structure)) * 1e9 + 1.0    # 1 nm above the tops [nm]
     assert onp.all(onp.isfinite(plane_maps(full.solution, low, 8)["u"]))
+
+
+def test_metric_values_primitive_on_maps_against_finite_differences():
+    # central finite differences (check_grads, common practice, no source): the same
+    # metrics of helicity-resolved maps (W, 2, n, n), the reference broadcast over the grid
+    from autograd.test_util import check_grads
+
+    from chiropt.metrics import _metric_values
+    rng = onp.random.default_rng(10)
+    W, n = 2, 3
+    EE = onp.abs(rng.normal(size=(W, 2, n, n))) + 0.5
+    S0 = onp.abs(rng.normal(size=(W, 2, n, n))) + 0.5
+    check_grads(_metric_values, modes=["rev"], order=1)(
+        EE, rng.normal(size=(W, 2, n, n)), S0, rng.normal(size=(W, 2, n, n)),
+        onp.abs(rng.normal(size=W)) + 0.5, rng.normal(size=(W, 2)) + 2.0)
