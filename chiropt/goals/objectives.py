@@ -15,8 +15,9 @@ Conventions
   upper bound ``(v - HIGH) / max(|HIGH|, 1) <= 0``; a fabrication limit ``q >= V`` is
   ``(V - q) / V <= 0`` and ``q <= V`` is ``(q - V) / V <= 0``.
 - One forward pass computes every objective and constraint; the Jacobian takes one reverse
-  pass per row (``chiropt.autodiff.value_and_jacobian``), so a gradient evaluation costs about
-  ``1 + (M + m) * (reverse / forward)`` forward solves instead of ``M + m`` full gradients.
+  walk of the tape with the rows' cotangents stacked (``chiropt.stacked_reverse``): the
+  bookkeeping of every small operation is paid once, and only the coarse primitives run once
+  per row, instead of ``M + m`` full gradients.
 - A robust objective or constraint (``robust:``, docs/robustness.md) is the statistic of
   its per-sample values over its own sample plan (``chiropt.robust``: fabrication errors,
   cone directions, band nodes), drawn once from the goal's seed and the term's position
@@ -42,7 +43,6 @@ import numpy as onp
 from autograd.tracer import getval
 from scipy.stats import qmc
 
-from chiropt.autodiff import value_and_jacobian  # (its import registers the fast rules)
 from chiropt.capacity import parse_ev_share_name
 from chiropt.errors import ComputationError, InputError, MaterialRangeError
 from chiropt.goals.schema import (
@@ -56,6 +56,7 @@ from chiropt.robust.average import metric_value, sample_quantities, summarize
 from chiropt.robust.sampling import SamplePlan, make_plan
 from chiropt.sensitivity import compute_quantities, plain_groups
 from chiropt.solution import RAYLEIGH_WARN
+from chiropt.stacked_reverse import stacked_jacobian
 
 __all__ = ["DeadlineReached", "GoalProblem", "check_goal", "metric_spectrum"]
 
@@ -371,12 +372,12 @@ class GoalProblem:
 
     @staticmethod
     def _jacobian(fun, x):
-        """Value and Jacobian: one forward pass, one reverse pass per output row.
+        """Value and Jacobian: one forward pass, one reverse walk with the rows stacked.
 
         Derivatives at a Rayleigh anomaly are not finite (kz = 0); numpy's warnings about
         them are silenced here because ``evaluate`` reports such a point as failed."""
         with onp.errstate(invalid="ignore", divide="ignore"):
-            out, J = value_and_jacobian(fun, x)
+            out, J = stacked_jacobian(fun, x)
         return out, J.reshape(out.size, onp.size(x))
 
     def quantities(self, x) -> dict[str, list[float]]:
