@@ -10,9 +10,11 @@ modules frozen for the garbage collector):
 
 1. forward evaluation (objectives and constraints, no derivatives);
 2. packed value + exact Jacobian of every row, as the gradient algorithms call it (one
-   forward pass with the tape, one reverse pass per physics row), and its ratio to 1;
+   forward pass with the tape, then the reverse walk for the physics rows), and its ratio
+   to 1;
 3. the number of primitive operations on the tape of one evaluation (autograd nodes) and
-   the number of reverse passes;
+   the number of physics rows (one stacked reverse walk since chiropt.stacked_reverse;
+   one reverse pass each before);
 4. with the first goal only (unless ``--no-run``): its first material run in this process
    on one core into a temporary folder, store and report included: evaluations per hour
    per core.
@@ -74,7 +76,7 @@ def per_evaluation(path: Path) -> None:
     print(f"  forward evaluation:              {1e3 * t_fwd:8.1f} ms")
     print(f"  value + Jacobian (packed):       {1e3 * t_jac:8.1f} ms "
           f"({t_jac / t_fwd:.1f} x forward)")
-    print(f"  tape: {nodes} primitive operations, {passes} reverse passes")
+    print(f"  tape: {nodes} primitive operations, {passes} physics rows")
     print(f"  per core, gradient evaluations only: {3600 / t_jac:,.0f} per hour")
 
 

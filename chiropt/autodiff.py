@@ -23,7 +23,8 @@ replaced by its plain value, so that quantities no derivative is asked of are co
 without recording operations on the tape.
 Jacobian rows: ``value_and_jacobian`` is autograd's reverse mode for a vector function,
 one reverse pass per output row as ``make_vjp`` makes them, with the tape's topological
-order computed once for all rows instead of once per pass.
+order computed once for all rows instead of once per pass (the reference for
+``chiropt.stacked_reverse``, which walks once with the rows stacked).
 Forward stash: ``ForwardStash`` hands what a coarse primitive's forward pass made (factors,
 directional derivatives) to its vector-Jacobian-product maker, which autograd calls right
 after the forward pass with the same arguments, so nothing is computed twice.

@@ -400,7 +400,7 @@ class GoalProblem:
         keep: dict = {}
         try:
             # physics rows and the cheap geometric rows are differentiated separately, so
-            # the reverse passes through the solver are only as many as the physics rows
+            # the reverse walk through the solver carries only the physics rows
             if need_grad:
                 out_p, J_p = self._jacobian(lambda xv: self._physics_vector(xv, keep), x)
                 out_f, J_f = (self._jacobian(self._fab_vector, x) if self._fab
