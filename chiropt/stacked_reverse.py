@@ -55,16 +55,17 @@ class _RecordingNode(VJPNode):
         self.parents = parents
         self.fun, self.args, self.kwargs = fun, args, kwargs
         self.argnums, self.value = parent_argnums, value
-        if fun in _RULES:
-            self.vjp = None
-        else:
-            try:
-                vjpmaker = primitive_vjps[fun]
-            except KeyError:
-                raise NotImplementedError(
-                    f"VJP of {getattr(fun, '__name__', fun)} wrt argnums {parent_argnums} "
-                    "not defined") from None
-            self.vjp = vjpmaker(parent_argnums, value, args, kwargs)
+        self.vjp = None if fun in _RULES else self.autograd_vjp()
+
+    def autograd_vjp(self):
+        """autograd's VJP closure of this node's operation (its error if there is none)."""
+        try:
+            vjpmaker = primitive_vjps[self.fun]
+        except KeyError:
+            raise NotImplementedError(
+                f"VJP of {getattr(self.fun, '__name__', self.fun)} wrt argnums "
+                f"{self.argnums} not defined") from None
+        return vjpmaker(self.argnums, self.value, self.args, self.kwargs)
 
     def initialize_root(self):
         self.parents = []
@@ -269,7 +270,7 @@ def _parent_cotangents(node, G):
         if all(o is not NotImplemented for o in out):
             return out
     if node.vjp is None:
-        node.vjp = primitive_vjps[node.fun](node.argnums, node.value, node.args, node.kwargs)
+        node.vjp = node.autograd_vjp()
     rows = [tuple(node.vjp(g)) for g in G]
     return [_stacked([row[p] for row in rows]) for p in range(len(node.parents))]
 
@@ -294,5 +295,4 @@ def stacked_jacobian(fun, x):
         G = outgrads.pop(node)
         for parent, B in zip(node.parents, _parent_cotangents(node, G), strict=True):
             outgrads[parent] = _accumulate(outgrads.get(parent), B)
-    return value.reshape(-1), onp.reshape(onp.real(G) if not onp.iscomplexobj(x) else G,
-                                          (R, x.size))
+    return value.reshape(-1), onp.reshape(onp.real(G), (R, x.size))
