@@ -273,7 +273,7 @@ def _explore(task: ExploreTask) -> TaskOutcome:
             scan = store.get_scan(g)
             if scan is None:
                 problem.check_stop()
-                out = scan_wavelengths(problem, x, grid, e.lmax)
+                out = scan_wavelengths(problem, x, grid, e.lmax, e.tolerance)
                 picks = pick_along_axis(out["F"], out["G"], out["ok"], problem.senses, e.keep,
                                         FEASIBILITY_TOL)
                 viol = onp.max(onp.maximum(out["G"], 0.0), axis=1) if out["G"].shape[1] \
@@ -1212,7 +1212,9 @@ def coverage(goal: Goal, uniq, X, F, feas, chosen, scans: dict) -> dict:
     divided by the front's span; ``explored_beyond``: stored explored feasible designs that
     no front row weakly dominates and that do not coincide with a front row (merge
     tolerance): zero when the front holds every stored evaluation;
-    ``scan_beyond``: the same for the scanned points (at the scan's model); ``extremes``:
+    ``scan_beyond``: the same for the scanned points (at the scan's model, beyond the front by
+    more than ten times the scan's ``tolerance`` of the span: a screen's values are only
+    that accurate); ``extremes``:
     per objective the best front value and the searches that reached it (within
     ``REACH_FRACTION`` of the span); ``warnings``: extremes reached by a single search.
     """
@@ -1228,7 +1230,7 @@ def coverage(goal: Goal, uniq, X, F, feas, chosen, scans: dict) -> dict:
     scale = onp.where(span > 0, span, onp.abs(Zf).max(axis=0) + 1.0)
     tol = 1e-9 * scale
 
-    def beyond(Z) -> onp.ndarray:
+    def beyond(Z, tol=tol) -> onp.ndarray:
         Z = onp.asarray(Z, float).reshape(-1, len(senses))
         if len(Z) == 0:
             return onp.zeros(0, bool)
@@ -1240,7 +1242,8 @@ def coverage(goal: Goal, uniq, X, F, feas, chosen, scans: dict) -> dict:
         if b and merge_coinciding(goal, X, [*chosen, i])[-1] == i)
     scanned = [f for sc in scans.values() for f in sc.get("F", []) if f is not None]
     if scanned:
-        out["scan_beyond"] = int(beyond(onp.asarray(scanned, float) * sign).sum())
+        scan_tol = max(1e-9, 10.0 * goal.search.explore.tolerance) * scale
+        out["scan_beyond"] = int(beyond(onp.asarray(scanned, float) * sign, scan_tol).sum())
     if len(senses) == 2 and len(chosen) > 1:
         order = onp.argsort(Zf[:, 0])
         Zn = Zf[order] / scale

@@ -198,6 +198,7 @@ def test_explore_settings_are_validated(tmp_path):
     for bad, key in (("samples: -1", "search.explore.samples"),
                      ("samples: 8, keep: 0", "search.explore.keep"),
                      ("samples: 8, share: 2", "search.explore.share"),
+                     ("samples: 8, tolerance: 0.5", "search.explore.tolerance"),
                      ("samples: 8, colour: 3", "search.explore")):
         text = GOAL.replace("samples: 64, wavelength_points: 17, batch: 8", bad)
         with pytest.raises(InputError) as exc:
@@ -207,6 +208,28 @@ def test_explore_settings_are_validated(tmp_path):
     with pytest.raises(InputError) as exc:
         load_goal(_write(tmp_path, text))
     assert exc.value.key == "search.front.reference"
+
+
+def test_the_scan_tolerance_loosens_the_screen_only(tmp_path):
+    """The scan's own accuracy target (search.explore.tolerance) changes the screened values
+    by about that much and no more, and the stored evaluations keep the model's tolerance.
+    Reference: the same scan at the model's tolerance 1e-8 (common practice, no source)."""
+    from chiropt.goals import GoalProblem
+    from chiropt.goals.scan import scan_wavelengths
+
+    (goal,) = load_goal(_write(tmp_path))
+    assert goal.search.explore.tolerance == 1e-5     # the documented default
+    problem = GoalProblem(goal)
+    x = (problem.lower + problem.upper) / 2
+    grid = onp.linspace(620.0, 780.0, 9)
+    exact = scan_wavelengths(problem, x, grid, 2)
+    loose = scan_wavelengths(problem, x, grid, 2, 1e-3)
+    tight = scan_wavelengths(problem, x, grid, 2, 1e-12)   # never tighter than the model
+    assert exact["ok"].all() and loose["ok"].all()
+    onp.testing.assert_array_equal(tight["F"], exact["F"])
+    change = onp.max(onp.abs(loose["F"] - exact["F"]) / onp.maximum(onp.abs(exact["F"]), 1e-3))
+    assert 0 < change < 1e-2, change
+    assert problem.eval_design.tolerance == 1e-8
 
 
 @linux

@@ -45,7 +45,8 @@ def explore_grid(problem: GoalProblem, points: int) -> onp.ndarray:
     return onp.linspace(lo, hi, points)
 
 
-def scan_wavelengths(problem: GoalProblem, x, grid, lmax: int | None = None) -> dict:
+def scan_wavelengths(problem: GoalProblem, x, grid, lmax: int | None = None,
+                     tolerance: float | None = None) -> dict:
     """Objectives and constraints of geometry ``x`` at every value of ``grid``.
 
     Parameters
@@ -55,6 +56,8 @@ def scan_wavelengths(problem: GoalProblem, x, grid, lmax: int | None = None) -> 
     grid : array_like (S,) — values of the wavelength variable [nm]; empty when the goal
         has none (then one point, ``x`` itself)
     lmax : int, optional — multipole order of the scan (default: the goal's model)
+    tolerance : float, optional — accuracy target of the scan's lattice sums and order cuts,
+        used where it is looser than the model's ``tolerance`` (default: the model's)
 
     Returns
     -------
@@ -79,6 +82,8 @@ def scan_wavelengths(problem: GoalProblem, x, grid, lmax: int | None = None) -> 
     design = problem.eval_design
     if lmax is not None:
         design = replace(design, lmax=int(lmax))
+    if tolerance is not None and tolerance > design.tolerance:
+        design = replace(design, tolerance=float(tolerance))
     try:
         q, ray = compute_quantities(design, values, with_flags=True, k_min=problem.k_min)
     except (ComputationError, onp.linalg.LinAlgError, MaterialRangeError, FloatingPointError,

@@ -349,7 +349,9 @@ class ExploreSettings:
     ``samples`` geometries (None: ``share`` of the evaluation budget, ``keep`` evaluations
     per geometry); ``wavelength_points`` grid points scanned along a wavelength variable in
     one solve; ``keep`` points kept per geometry; ``batch`` geometries per task; ``lmax`` the
-    multipole order of the scan (None: the goal's model).
+    multipole order of the scan (None: the goal's model); ``tolerance`` the scan's accuracy
+    target for lattice sums and order cuts (the looser of it and ``model.tolerance``): a
+    screen that only ranks points along the scan needs no more than a few digits.
     """
 
     samples: int | None = None
@@ -358,10 +360,12 @@ class ExploreSettings:
     keep: int = 3
     batch: int = 16
     lmax: int | None = None
+    tolerance: float = 1e-5
 
     def to_dict(self) -> dict:
         out: dict[str, Any] = {"share": self.share, "wavelength_points": self.wavelength_points,
-                               "keep": self.keep, "batch": self.batch}
+                               "keep": self.keep, "batch": self.batch,
+                               "tolerance": self.tolerance}
         if self.samples is not None:
             out["samples"] = self.samples
         if self.lmax is not None:
@@ -1027,7 +1031,8 @@ def _reference(ctx: _Ctx, raw: Any, objectives) -> tuple[tuple[str, float], ...]
 
 def _explore(ctx: _Ctx, raw: Any) -> ExploreSettings:
     key = "search.explore"
-    ctx.keys(raw, {"samples", "share", "wavelength_points", "keep", "batch", "lmax"}, key)
+    ctx.keys(raw, {"samples", "share", "wavelength_points", "keep", "batch", "lmax", "tolerance"},
+             key)
     e = ExploreSettings()
     samples = None
     if "samples" in raw:
@@ -1040,8 +1045,10 @@ def _explore(ctx: _Ctx, raw: Any) -> ExploreSettings:
     lmax = None
     if "lmax" in raw:
         lmax = ctx.integer(raw["lmax"], f"{key}.lmax", low=1, high=8)
+    tol = ctx.number(raw.get("tolerance", e.tolerance), f"{key}.tolerance", low=1e-14,
+                     high=1e-2)
     return ExploreSettings(samples=samples, share=share, wavelength_points=points, keep=keep,
-                           batch=batch, lmax=lmax)
+                           batch=batch, lmax=lmax, tolerance=tol)
 
 
 def _budget(ctx: _Ctx, raw: Any) -> Budget:

@@ -13,7 +13,7 @@ b_i . a_j = 2 pi delta_ij; cell area A = |a1 x a2|.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import cached_property
+from functools import cached_property, lru_cache
 
 import autograd.numpy as np
 import numpy as onp
@@ -201,14 +201,28 @@ def integer_pairs_within(basis1, basis2, dual1, dual2, radius):
     """All integer pairs (m, n) with |m basis1 + n basis2| <= radius (plain values).
 
     ``dual_i`` must satisfy dual_i . basis_j = 2 pi delta_ij; then |m| <= radius |dual1| / 2 pi
-    bounds the search exactly. Returns an int array (N, 2), unsorted.
+    bounds the search exactly. Returns a read-only int array (N, 2), unsorted.
+
+    The result is a pure function of the seven numbers, so it is memoised on their exact
+    values (a search evaluates the same lattice several times per design; a changed
+    design changes a key and is computed afresh).
     """
-    basis1, basis2 = np.asarray(basis1, float), np.asarray(basis2, float)
-    m_max = int(np.floor(radius * np.linalg.norm(dual1) / (2 * np.pi) + 1e-9))
-    n_max = int(np.floor(radius * np.linalg.norm(dual2) / (2 * np.pi) + 1e-9))
-    m, n = np.meshgrid(np.arange(-m_max, m_max + 1), np.arange(-n_max, n_max + 1),
-                       indexing="ij")
-    mn = np.stack([m.ravel(), n.ravel()], axis=1)
+    parts = [onp.ravel(onp.asarray(getval(v), float)) for v in (basis1, basis2, dual1, dual2)]
+    key = tuple(float(v) for v in onp.concatenate([*parts, [float(getval(radius))]]))
+    return _pairs_within(key)
+
+
+@lru_cache(maxsize=256)
+def _pairs_within(key: tuple[float, ...]) -> onp.ndarray:
+    basis1, basis2 = onp.array(key[0:2]), onp.array(key[2:4])
+    dual1, dual2, radius = onp.array(key[4:6]), onp.array(key[6:8]), key[8]
+    m_max = int(onp.floor(radius * onp.linalg.norm(dual1) / (2 * onp.pi) + 1e-9))
+    n_max = int(onp.floor(radius * onp.linalg.norm(dual2) / (2 * onp.pi) + 1e-9))
+    m, n = onp.meshgrid(onp.arange(-m_max, m_max + 1), onp.arange(-n_max, n_max + 1),
+                        indexing="ij")
+    mn = onp.stack([m.ravel(), n.ravel()], axis=1)
     vec = mn[:, 0:1] * basis1[None, :] + mn[:, 1:2] * basis2[None, :]
-    keep = np.sqrt(np.sum(vec**2, axis=1)) <= radius * (1 + 1e-12)
-    return mn[keep]
+    keep = onp.sqrt(onp.sum(vec**2, axis=1)) <= radius * (1 + 1e-12)
+    out = mn[keep]
+    out.setflags(write=False)
+    return out

@@ -11,7 +11,10 @@ Im kz >= 0, and kz > 0 when real. Array axes: W (wavelengths) first, then N (ord
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 import autograd.numpy as np
+import numpy as onp
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
@@ -38,17 +41,27 @@ def order_indices(lattice: Lattice, g_max):
     -----
     The selection uses plain (untraced) values, so it is constant under differentiation.
     """
-    g = float(np.asarray(getval(g_max)))
-    if not np.isfinite(g) or g < 0:
+    g = float(onp.asarray(getval(g_max)))
+    if not onp.isfinite(g) or g < 0:
         raise InputError("g_max", f"must be a finite non-negative wavenumber [1/m]; got {g!r}")
     plain = lattice.plain()
-    b1, b2 = plain.reciprocal()
+    return _sorted_orders(tuple(float(v) for v in onp.concatenate([plain.a1, plain.a2])), g)
+
+
+@lru_cache(maxsize=256)
+def _sorted_orders(a12: tuple[float, ...], g: float) -> onp.ndarray:
+    """The sorted pairs of :func:`order_indices` for lattice vectors a1 = a12[:2],
+    a2 = a12[2:] [m], memoised on the exact values (read-only result)."""
+    plain = Lattice(onp.array(a12[:2]), onp.array(a12[2:]))
+    b1, b2 = (onp.asarray(b, float) for b in plain.reciprocal())
     mn = integer_pairs_within(b1, b2, plain.a1, plain.a2, g)
     vec = mn[:, 0:1] * b1[None, :] + mn[:, 1:2] * b2[None, :]
-    unit = min(np.linalg.norm(b1), np.linalg.norm(b2))
-    length = np.round(np.sqrt(np.sum(vec**2, axis=1)) / unit, 9)
-    order = np.lexsort((mn[:, 1], mn[:, 0], length))
-    return mn[order].astype(int)
+    unit = min(onp.linalg.norm(b1), onp.linalg.norm(b2))
+    length = onp.round(onp.sqrt(onp.sum(vec**2, axis=1)) / unit, 9)
+    order = onp.lexsort((mn[:, 1], mn[:, 0], length))
+    out = mn[order].astype(int)
+    out.setflags(write=False)
+    return out
 
 
 def order_wavevectors(lattice: Lattice, k_par, mn):
