@@ -206,6 +206,35 @@ def test_designs_evaluated_in_turn_never_share_values():
     assert not onp.allclose(qa["g"], qb["g"])
 
 
+def test_memoised_order_tables_follow_the_lattice_and_cannot_be_altered():
+    # common practice, no source: the order and lattice-pair tables are memoised on the
+    # exact lattice vectors and cut; lattices asked for in turn get their own tables, equal
+    # to a direct count of |m b1 + n b2| <= g_max, and a table cannot be written to
+    from chiropt.lattice.bravais import Lattice
+    from chiropt.lattice.orders import order_indices
+
+    def direct(lat, g):
+        b1, b2 = (onp.asarray(b, float) for b in lat.reciprocal())
+        m, n = onp.meshgrid(onp.arange(-30, 31), onp.arange(-30, 31), indexing="ij")
+        mn = onp.stack([m.ravel(), n.ravel()], axis=1)
+        keep = onp.hypot(*(mn @ onp.stack([b1, b2])).T) <= g * (1 + 1e-12)
+        return {tuple(p) for p in mn[keep]}
+
+    square = Lattice.square(420e-9)
+    hexagonal = Lattice.hexagonal(420e-9)
+    g = 6 * 2 * onp.pi / 420e-9
+    tables = [order_indices(lat, g) for lat in (square, hexagonal, square, hexagonal)]
+    for lat, t in zip((square, hexagonal), tables[:2], strict=True):
+        assert {tuple(p) for p in t} == direct(lat, g)
+        assert tuple(t[0]) == (0, 0)
+    assert len(tables[0]) != len(tables[1])
+    onp.testing.assert_array_equal(tables[2], tables[0])
+    onp.testing.assert_array_equal(tables[3], tables[1])
+    with pytest.raises(ValueError):
+        tables[0][0, 0] = 5
+    assert {tuple(p) for p in order_indices(square, 0.5 * g)} == direct(square, 0.5 * g)
+
+
 def test_a_stash_entry_is_used_only_by_the_call_that_made_it():
     # common practice, no source: a VJP maker that meets another call's stash entry
     # recomputes instead of using it
