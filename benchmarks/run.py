@@ -17,7 +17,8 @@ modules frozen for the garbage collector):
    one reverse pass each before);
 4. with the first goal only (unless ``--no-run``): its first material run in this process
    on one core into a temporary folder, store and report included: evaluations per hour
-   per core.
+   per core, and where that run's CPU time went (the exploration's scans, forward and
+   gradient evaluations, the report, the rest).
 
 The script runs against any checkout (``PYTHONPATH=/path/to/other/checkout``), so the
 figures before and after a change come from the same script.
@@ -80,15 +81,66 @@ def per_evaluation(path: Path) -> None:
     print(f"  per core, gradient evaluations only: {3600 / t_jac:,.0f} per hour")
 
 
+class _StageClock:
+    """CPU seconds and calls of a few functions of a run in this process (patched in turn,
+    restored on exit); nested calls are counted once, in the outermost."""
+
+    def __init__(self, targets: dict[str, tuple[object, str, object]]):
+        self.targets, self.seconds, self.calls, self._saved = targets, {}, {}, []
+
+    def __enter__(self):
+        depth = [0]
+        for label, (owner, name, split) in self.targets.items():
+            original = getattr(owner, name)
+            self._saved.append((owner, name, original))
+
+            def timed(*args, _f=original, _label=label, _split=split, **kwargs):
+                key = _split(args, kwargs) if _split else _label
+                if depth[0]:
+                    return _f(*args, **kwargs)
+                depth[0] += 1
+                c0 = time.process_time()
+                try:
+                    return _f(*args, **kwargs)
+                finally:
+                    depth[0] -= 1
+                    self.seconds[key] = self.seconds.get(key, 0.0) + time.process_time() - c0
+                    self.calls[key] = self.calls.get(key, 0) + 1
+
+            setattr(owner, name, timed)
+        return self
+
+    def __exit__(self, *exc):
+        for owner, name, original in reversed(self._saved):
+            setattr(owner, name, original)
+
+
 def whole_run(path: Path) -> None:
+    import chiropt.run as run_module
+
     goal = load_goal(str(path))[0]   # the first material's goal
-    with tempfile.TemporaryDirectory() as tmp:
+
+    def kind(args, kwargs):
+        grad = args[2] if len(args) > 2 else kwargs.get("need_grad")
+        return "value + Jacobian evaluations" if grad else "forward evaluations"
+
+    targets = {"exploration scans": (run_module, "scan_wavelengths", None),
+               "evaluations": (GoalProblem, "evaluate", kind),
+               "report": (run_module, "write_report", None)}
+    with tempfile.TemporaryDirectory() as tmp, _StageClock(targets) as clock:
         t0, c0 = time.perf_counter(), time.process_time()
         s = run_goal(replace(goal, located=None), out=tmp, workers=0, progress=False)
         wall, cpu = time.perf_counter() - t0, time.process_time() - c0
     print(f"run {goal.run_name} on 1 core: {s.n_evaluations} "
           f"evaluations in {wall:.1f} s wall, {cpu:.1f} s CPU (explore, searches, store, "
           f"report) -> {3600 * s.n_evaluations / cpu:,.0f} evaluations per hour per core")
+    for key, sec in clock.seconds.items():
+        n = clock.calls[key]
+        print(f"  {key:30s} {n:5d} x {1e3 * sec / n:7.1f} ms = {sec:5.2f} s "
+              f"({100 * sec / cpu:4.1f}% of the run)")
+    rest = cpu - sum(clock.seconds.values())
+    print(f"  {'the rest (store, searches, setup)':30s}                     {rest:5.2f} s "
+          f"({100 * rest / cpu:4.1f}% of the run)")
 
 
 def main(argv: list[str]) -> None:
