@@ -103,13 +103,15 @@ Metrics
     ``reference`` is the hypervolume reference point, one value per objective keyed by its
     metric or its label such as ``g@700nm``; default: the incident plane wave's value of
     each metric, g, c, u, s0 = 1, docp = 0). ``explore: {samples: N, share: F,
-    wavelength_points: P, keep: K, batch: B, lmax: L}``: the global exploration that runs
-    before the local searches: N scrambled-Sobol geometries (default: the share F, 0.25, of
+    wavelength_points: P, keep: K, batch: B, lmax: L, tolerance: E}``: the global
+    exploration that runs before the local searches: N scrambled-Sobol geometries
+    (default: the share F, 0.25, of
     the evaluation budget, divided by K; ``samples: 0`` switches it off), each solved over
     P values of a wavelength variable (default 21) in one vectorized solve, its K best
     points (default 3; two objectives: spread along the scan's own front) evaluated and
     stored; B geometries per task (default 16); L the multipole order of the scan (default
-    the goal's model; the kept points are always evaluated at the goal's model). The local
+    the goal's model) and E its accuracy target (default 1e-5, or model.tolerance where that
+    is looser); the kept points are always evaluated at the goal's model. The local
     searches start from the best explored feasible designs: ``max(2, starts)`` searches per
     anchor and ``starts`` per epsilon-constraint level, the levels spread along the
     explored front. The reported front is the non-dominated set of every feasible
