@@ -105,8 +105,8 @@ Metrics
     each metric, g, c, u, s0 = 1, docp = 0). ``explore: {samples: N, share: F,
     wavelength_points: P, keep: K, batch: B, lmax: L, tolerance: E}``: the global
     exploration that runs before the local searches: N scrambled-Sobol geometries
-    (default: the share F, 0.25, of
-    the evaluation budget, divided by K; ``samples: 0`` switches it off), each solved over
+    (default: the share F, 0.25, of the evaluation budget, divided by K; ``samples: 0``
+    switches it off), each solved over
     P values of a wavelength variable (default 21) in one vectorized solve, its K best
     points (default 3; two objectives: spread along the scan's own front) evaluated and
     stored; B geometries per task (default 16); L the multipole order of the scan (default

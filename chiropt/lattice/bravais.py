@@ -212,7 +212,7 @@ def integer_pairs_within(basis1, basis2, dual1, dual2, radius):
     return _pairs_within(key)
 
 
-@lru_cache(maxsize=256)
+@lru_cache(maxsize=64)
 def _pairs_within(key: tuple[float, ...]) -> onp.ndarray:
     basis1, basis2 = onp.array(key[0:2]), onp.array(key[2:4])
     dual1, dual2, radius = onp.array(key[4:6]), onp.array(key[6:8]), key[8]

@@ -48,7 +48,7 @@ def order_indices(lattice: Lattice, g_max):
     return _sorted_orders(tuple(float(v) for v in onp.concatenate([plain.a1, plain.a2])), g)
 
 
-@lru_cache(maxsize=256)
+@lru_cache(maxsize=64)
 def _sorted_orders(a12: tuple[float, ...], g: float) -> onp.ndarray:
     """The sorted pairs of :func:`order_indices` for lattice vectors a1 = a12[:2],
     a2 = a12[2:] [m], memoised on the exact values (read-only result)."""
