@@ -141,6 +141,9 @@ def whole_run(path: Path) -> None:
     rest = cpu - sum(clock.seconds.values())
     print(f"  {'the rest (store, searches, setup)':30s}                     {rest:5.2f} s "
           f"({100 * rest / cpu:4.1f}% of the run)")
+    steady = cpu - clock.seconds.get("report", 0.0)
+    print(f"  without the report (written once per run): "
+          f"{3600 * s.n_evaluations / steady:,.0f} evaluations per hour per core")
 
 
 def main(argv: list[str]) -> None:

@@ -56,8 +56,8 @@ def scan_wavelengths(problem: GoalProblem, x, grid, lmax: int | None = None,
     grid : array_like (S,) — values of the wavelength variable [nm]; empty when the goal
         has none (then one point, ``x`` itself)
     lmax : int, optional — multipole order of the scan (default: the goal's model)
-    tolerance : float, optional — accuracy target of the scan's lattice sums and order cuts,
-        used where it is looser than the model's ``tolerance`` (default: the model's)
+    tolerance : float, optional — the scan's ``model.tolerance`` (order cuts, the dipole
+        model's lattice sums), used where it is looser than the model's (default: the model's)
 
     Returns
     -------

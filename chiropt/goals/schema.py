@@ -352,8 +352,9 @@ class ExploreSettings:
     per geometry); ``wavelength_points`` grid points scanned along a wavelength variable in
     one solve; ``keep`` points kept per geometry; ``batch`` geometries per task; ``lmax`` the
     multipole order of the scan (None: the goal's model); ``tolerance`` the scan's accuracy
-    target for lattice sums and order cuts (the looser of it and ``model.tolerance``): a
-    screen that only ranks points along the scan needs no more than a few digits.
+    target (``model.tolerance`` of the scan: the cuts of the diffraction orders and of the
+    stack-reflected coupling, the dipole model's lattice sums; the looser of it and
+    ``model.tolerance``): a screen that only ranks points along the scan needs a few digits.
     """
 
     samples: int | None = None
