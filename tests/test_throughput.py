@@ -25,6 +25,15 @@ from chiropt.sensitivity import compute_quantities, value_and_gradient
 REFERENCE = json.loads((Path(__file__).parent / "data" / "solver_reference.json").read_text())
 
 
+def _check_every_argument(fun, *args):
+    """Central finite differences against reverse mode (autograd.test_util.check_grads,
+    first order) in every positional argument at once: check_grads varies only the first
+    argument unless told otherwise."""
+    from autograd.test_util import check_grads
+
+    check_grads(fun, argnum=tuple(range(len(args))), modes=["rev"], order=1)(*args)
+
+
 def _close(ours, ref, what):
     ours, ref = onp.asarray(ours, float), onp.asarray(ref, float)
     scale = max(1.0, float(onp.max(onp.abs(ref))))
@@ -91,7 +100,6 @@ def _directions(W, G, at):
 def test_order_basis_primitive_against_finite_differences(at):
     # central finite differences (autograd.test_util.check_grads, common practice, no
     # source) of s, p_up, p_down, k_up, k_down; q = 0 only where the azimuth fixes q_hat
-    from autograd.test_util import check_grads
 
     from chiropt.planewaves import kz_branch, order_basis
     q = _directions(2, 6, at)
@@ -103,8 +111,38 @@ def test_order_basis_primitive_against_finite_differences(at):
         q_full = anp.where(nonzero[..., None], qv, 0.0)
         return anp.stack(order_basis(q_full, kzv, kv, az))
 
-    check_grads(stacked, modes=["rev"], order=1)(onp.where(nonzero[..., None], q, 0.3), kz,
-                                               k * (1 + 0.02j), 0.4)
+    _check_every_argument(stacked, onp.where(nonzero[..., None], q, 0.3), kz,
+                          k * (1 + 0.02j), 0.4)
+
+
+@pytest.mark.parametrize("N", [1, 2])
+def test_coupled_solve_with_the_reflected_coupling_against_finite_differences(N):
+    # central finite differences (check_grads, common practice, no source) of the coupled
+    # solve in every input, the stack-reflected factors included (one particle per cell
+    # takes the factored order-independent path for the projections' cotangent); reverse
+    # mode applied twice is checked by the per-wavelength sensitivities above
+
+    from chiropt.multipole.coupled import coupled_solve
+    from chiropt.sphericalwaves import n_modes
+
+    lmax, W, G = 2, 2, 5
+    K2 = n_modes(lmax)
+    rng = onp.random.default_rng(7 + N)
+
+    def c(*shape, scale=1.0):
+        return scale * (rng.normal(size=shape) + 1j * rng.normal(size=shape))
+
+    Tb, W_lat, b = c(W, N * K2, N * K2, scale=0.05), c(W, N * K2, N * K2, scale=0.05), \
+        c(W, 2, N * K2)
+    rc, r, P, ph = c(W, G, N, scale=0.3), c(W, G, 2, scale=0.3), c(W, G, 2, K2 // 2), \
+        c(W, G, N, scale=0.3)
+    weights = c(2, W, 2, N * K2)
+
+    def scalar(Tb, W_lat, b, rc, r, P, ph):
+        f, e = coupled_solve(Tb, W_lat, b, (rc, r, P, ph, lmax))
+        return anp.real(anp.sum(weights[0] * f + weights[1] * e * anp.conj(f)))
+
+    _check_every_argument(scalar, Tb, W_lat, b, rc, r, P, ph)
 
 
 @pytest.mark.parametrize("at", ["ordinary", "normal", "grazing"])
@@ -120,8 +158,7 @@ def test_projection_and_channel_primitives_against_finite_differences(at, lmax):
     q = _directions(1, 6, at)
     kz = kz_branch(1.0, onp.sum(q ** 2, axis=-1))
     s, pu, _, ku, _ = order_basis(q, kz, 1.0, 0.2)
-    check_grads(lambda a, b, c: order_projections(a, b, c, lmax), modes=["rev"],
-                order=1)(ku, s, pu)
+    _check_every_argument(lambda a, b, c: order_projections(a, b, c, lmax), ku, s, pu)
     P = order_projections(ku, s, pu, lmax)
     for kind in ("emit", "receive"):
         for down in (False, True):
@@ -141,9 +178,9 @@ def test_region_average_primitives_against_finite_differences():
     from chiropt.metrics import _phi1, _single_wave_forms
     rng = onp.random.default_rng(3)
     W, G = 2, 5
-    check_grads(_single_wave_forms, modes=["rev"], order=1)(
-        _c(rng, W, 2, 2, G), _c(rng, W, G), onp.abs(rng.normal(size=(W, G))),
-        onp.abs(rng.normal(size=(W, 1, G))))
+    _check_every_argument(
+        _single_wave_forms, _c(rng, W, 2, 2, G), _c(rng, W, G),
+        onp.abs(rng.normal(size=(W, G))), onp.abs(rng.normal(size=(W, 1, G))))
     for x in (onp.array([0.0, 1e-3, -9e-3, 1.1e-2, 0.5, -3.0]),
               onp.array([1e-3 + 2e-3j, 0.4 - 0.2j, 2j])):
         check_grads(_phi1, modes=["rev"], order=1)(x)
@@ -253,7 +290,6 @@ def test_a_stash_entry_is_used_only_by_the_call_that_made_it():
 def test_radiated_orders_primitive_against_finite_differences_and_the_taped_sum():
     # central finite differences (check_grads, common practice, no source), and the values
     # of the operation-by-operation sum of the emission identities it replaces
-    from autograd.test_util import check_grads
 
     from chiropt.multipole.emission import radiated_orders
     from chiropt.sphericalwaves import down_parity
@@ -262,8 +298,7 @@ def test_radiated_orders_primitive_against_finite_differences_and_the_taped_sum(
     K = lmax * (lmax + 2)
     f, P = _c(rng, W, 2, N * 2 * K), _c(rng, W, G, 2, K)
     ph_up, ph_dn = _c(rng, W, G, N), _c(rng, W, G, N)
-    check_grads(lambda *a: anp.stack(radiated_orders(*a, lmax)), modes=["rev"],
-                order=1)(f, P, ph_up, ph_dn)
+    _check_every_argument(lambda *a: anp.stack(radiated_orders(*a, lmax)), f, P, ph_up, ph_dn)
     e_l = (-1j) ** onp.array([l for l in range(1, lmax + 1) for _ in range(2 * l + 1)])
     f5 = f.reshape(W, 2, N, K, 2)
     fN, fM = f5[..., 0] * e_l, f5[..., 1] * e_l                     # (W, t, N, K)
@@ -358,27 +393,24 @@ def test_zero_order_forms_primitive_against_finite_differences(side, thickness):
     args = [_c(rng, W, T, 2), _c(rng, W, T, 2) if side == "host" else None]
     args += [_c(rng, W, 3) for _ in range(5)] + [onp.abs(_c(rng, W)) + 0.3j]
     if side == "host":
-        check_grads(lambda *a: _zero_order_forms(*a, thickness), modes=["rev"], order=1)(
-            *args)
+        _check_every_argument(lambda *a: _zero_order_forms(*a, thickness), *args)
     else:
-        check_grads(lambda u, s, pu, pd, ku, kd, kz: _zero_order_forms(
-            u, None, s, pu, pd, ku, kd, kz, thickness), modes=["rev"], order=1)(
-            args[0], *args[2:])
+        _check_every_argument(lambda u, s, pu, pd, ku, kd, kz: _zero_order_forms(
+            u, None, s, pu, pd, ku, kd, kz, thickness), args[0], *args[2:])
     check_grads(lambda L: _zero_order_forms(*args, L), modes=["rev"], order=1)(0.2)
 
 
 def test_metric_values_primitive_against_finite_differences():
     # central finite differences (check_grads, common practice, no source) of u, c, g,
     # background, s0 and DOCP per helicity from region averages and the incident reference
-    from autograd.test_util import check_grads
 
     from chiropt.metrics import _metric_values
     rng = onp.random.default_rng(9)
     W = 3
     EE = onp.abs(rng.normal(size=(W, 2))) + 0.5
     S0 = onp.abs(rng.normal(size=(W, 2))) + 0.5
-    check_grads(_metric_values, modes=["rev"], order=1)(
-        EE, rng.normal(size=(W, 2)), S0, rng.normal(size=(W, 2)),
+    _check_every_argument(
+        _metric_values, EE, rng.normal(size=(W, 2)), S0, rng.normal(size=(W, 2)),
         onp.abs(rng.normal(size=W)) + 0.5, rng.normal(size=(W, 2)) + 2.0)
 
 
@@ -405,13 +437,12 @@ def test_quantities_with_the_trimmed_order_set_equal_the_full_solution():
 def test_metric_values_primitive_on_maps_against_finite_differences():
     # central finite differences (check_grads, common practice, no source): the same
     # metrics of helicity-resolved maps (W, 2, n, n), the reference broadcast over the grid
-    from autograd.test_util import check_grads
 
     from chiropt.metrics import _metric_values
     rng = onp.random.default_rng(10)
     W, n = 2, 3
     EE = onp.abs(rng.normal(size=(W, 2, n, n))) + 0.5
     S0 = onp.abs(rng.normal(size=(W, 2, n, n))) + 0.5
-    check_grads(_metric_values, modes=["rev"], order=1)(
-        EE, rng.normal(size=(W, 2, n, n)), S0, rng.normal(size=(W, 2, n, n)),
+    _check_every_argument(
+        _metric_values, EE, rng.normal(size=(W, 2, n, n)), S0, rng.normal(size=(W, 2, n, n)),
         onp.abs(rng.normal(size=W)) + 0.5, rng.normal(size=(W, 2)) + 2.0)

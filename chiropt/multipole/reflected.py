@@ -30,7 +30,11 @@ helicities): with F and u as (N, 2K) blocks per helicity,
 
 Q, R F and sum_j ph F depend on the forward solution only and are made once; each reverse
 pass costs a few products of the size of the channel vectors, where a dense Wbar cost two
-matrix products 2K N wide over hundreds of orders.
+matrix products 2K N wide over hundreds of orders. With one particle per cell (N = 1) rc
+and ph are one number per order, so the cotangent of the projections P is
+P_bar[g] = sum_(c,t) (rc r R F)[g,c,t] Ur[c,t] + (ph L u)[g,c,t] Ue[c,t] with rows Ur
+(from u) and Ue (from F) that do not depend on the order: two products (G, 4) x (4, 2K)
+per reverse pass instead of elementwise channel sums over every order.
 """
 
 from __future__ import annotations
@@ -83,6 +87,17 @@ def _channel_terms(a0, a1, b):
     return ((0, 0, 1, b[0]), (0, 1, 0, a1), (1, 1, 1, b[1]), (1, 0, 0, a0))
 
 
+def _channel_blocks(terms):
+    """The terms of :func:`_channel_terms` as tables over (input channel c, output channel
+    c'): the N/M index h (2, 2) and the factor (2, 2, K) with out[c'] = sum over c of
+    factor[c, c'] x[c, h[c, c']] (each pair (c, c') has exactly one term)."""
+    h = onp.zeros((2, 2), dtype=int)
+    coef = [[None, None], [None, None]]
+    for c_out, c_in, hh, factor in terms:
+        h[c_in, c_out], coef[c_in][c_out] = hh, onp.asarray(factor)
+    return h, onp.array(coef)
+
+
 def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
     """Cotangents of (rc, r, recv, ph, emit) for a cotangent u F^T of W (module docstring).
 
@@ -129,6 +144,17 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
         emit_terms = _channel_terms(a0e, a1e, be)
         phF_hk = onp.reshape(onp.transpose(onp.reshape(phF, (W, G, 2, K, 2)), (0, 1, 2, 4, 3)),
                              (W, G, 2, 2 * K))                             # [g, t, (h k)]
+        if N == 1:
+            # one particle per cell: rc and ph are one number per order, so the channel
+            # sums below collapse to P_bar[g] = sum_(c, t) (rc r RF)[g, c, t] Ur[c, t] +
+            # (ph L u)[g, c, t] Ue[c, t], with rows Ur (from u) and Ue (from F) that do not
+            # depend on the order: two products (G, 4) x (4, 2K) per wavelength
+            h_r, coef_r = _channel_blocks(recv_terms)
+            h_e, coef_e = _channel_blocks(emit_terms)
+            F_hk = onp.transpose(onp.reshape(F, (W, K, 2, 2)), (0, 3, 2, 1))    # [t, h, k]
+            Ue = onp.reshape(onp.transpose(F_hk[:, :, h_e, :], (0, 2, 1, 3, 4)) * coef_e[:, None],
+                             (W, 4, 2 * K))                                # [(c t), (c' k)]
+            A_r = onp.reshape(rc[:, :, 0, None, None] * RF_r, (W, G, 4))    # [g, (c t)]
 
     def channel_sums(terms, X):
         """out[c'] = sum over the terms of c' of factor * X[c, h], X (W, G, 2, 2, K)."""
@@ -161,8 +187,15 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
             else:
                 # Z with the modes gathered m -> -m and the N/M index ahead of them
                 ug = np.transpose(np.reshape(u4, (W, N, K, 2, 2))[:, :, inv_r], (0, 1, 4, 3, 2))
+                if N == 1:                                                 # [t, h, k]
+                    Ur = np.reshape(np.transpose(ug[:, 0][:, :, h_r, :], (0, 2, 1, 3, 4))
+                                    * coef_r[:, None], (W, 4, 2 * K))      # [(c t), (c' k)]
+                    A_e = np.reshape(ph[:, :, 0, None, None] * Lu, (W, G, 4))
+                    v = np.reshape(np.matmul(A_r, Ur) + np.matmul(A_e, Ue), (W, G, 2, K))
+                    out.append(v)
+                    continue
                 ug = np.reshape(ug, (W, N, 4 * K))
-                Zg = rc * ug if N == 1 else np.matmul(rc, ug)              # [g, (t h k)]
+                Zg = np.matmul(rc, ug)                                     # [g, (t h k)]
                 X = np.matmul(RF_r, np.reshape(Zg, (W, G, 2, 2 * K)))      # [g, c, (h k)]
                 Yp = np.matmul(Lu, phF_hk)
                 v = (channel_sums(recv_terms, np.reshape(X, (W, G, 2, 2, K)))
