@@ -318,10 +318,11 @@ class GoalProblem:
 
     # -- the functions -----------------------------------------------------------------------
     def _spec_value(self, q: dict, name: str, spec: WavelengthSpec):
-        return np.mean(metric_spectrum(q, name)[self._index[id(spec)]])
+        return np.mean(metric_spectrum(q, name)[..., self._index[id(spec)]], axis=-1)
 
     def objective_values(self, q: dict, robust: dict | None = None):
-        """Objective values (M,) from the quantities [metric units]; a robust objective
+        """Objective values (M,) from the quantities [metric units] (quantity arrays
+        (..., W) without ``robust`` give (M, ...): one row per objective); a robust objective
         takes its statistic over ``robust[key]`` (its per-sample quantity sets over its own
         wavelengths) when given, else its nominal value from ``q``."""
         out = []

@@ -95,12 +95,12 @@ def scan_wavelengths(problem: GoalProblem, x, grid, lmax: int | None = None,
     p = dict(problem._params)
     p.update(values)
     fab = onp.asarray([float(r) for r in problem._fab_rows(p)], float)
-    for s in range(S):
-        qs = {k: v[s] for k, v in q.items()}
-        f = onp.asarray(problem.objective_values(qs), float).reshape(-1)
-        rows = [float(v) for v in problem._metric_rows(qs)]
-        g = onp.concatenate([onp.asarray(rows, float), fab])
-        if onp.all(ray[s] >= RAYLEIGH_WARN) and onp.all(onp.isfinite(f)) \
-                and onp.all(onp.isfinite(g)):
-            out["F"][s], out["G"][s], out["ok"][s] = f, g, True
+    # every scan point's rows at once: the quantities are (S, W) arrays
+    F = onp.asarray(problem.objective_values(q), float).reshape(M, S).T
+    rows = [onp.broadcast_to(onp.asarray(v, float), (S,)) for v in problem._metric_rows(q)]
+    G = onp.concatenate([onp.stack(rows, axis=1) if rows else onp.zeros((S, 0)),
+                         onp.broadcast_to(fab, (S, fab.size))], axis=1)
+    ok = onp.all(ray >= RAYLEIGH_WARN, axis=1) & onp.all(onp.isfinite(F), axis=1) \
+        & onp.all(onp.isfinite(G), axis=1)
+    out["F"][ok], out["G"][ok], out["ok"] = F[ok], G[ok], ok
     return out
