@@ -91,7 +91,7 @@ import yaml
 from chiropt.errors import InputError
 from chiropt.goals.objectives import DeadlineReached, GoalProblem, check_goal
 from chiropt.goals.schema import WAVELENGTH_PATH, ExecutorSettings, Goal, load_goal
-from chiropt.model import LMAX_CAP, quantities_of, run_model, validity
+from chiropt.model import LMAX_CAP, validity
 from chiropt.response import VALIDITY_TOLERANCE
 from chiropt.search.driver import minimize
 from chiropt.search.executor import ProcessExecutor, SerialExecutor
@@ -102,6 +102,7 @@ from chiropt.search.fronts import (Scalarized, anchor_second_stage, epsilon_cons
                                    weighted_sum)
 from chiropt.search.multistart import sobol_starts, start_seed
 from chiropt.search.pareto import hypervolume, non_dominated
+from chiropt.sensitivity import solved_quantities
 from chiropt.report.labels import objective_label, spec_label
 from chiropt.store.evaluations import (CachedProblem, CachingWrap, EvaluationStore, close_all,
                                        open_store)
@@ -1418,10 +1419,10 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
         # validity: the same design with one more multipole order (both values kept)
         if hi_problem is not None:
             row += [float(v) for v in hi_problem.evaluate(r.x, False).f]
-        # one fresh solve from a newly built design serves the re-evaluation below (the
-        # path of compute_quantities) and the validity check's base values
+        # one fresh solve from a newly built design serves the re-evaluation below and the
+        # validity check's base values
         design = problem.design_at(r.x)
-        output = run_model(design, trim=True)
+        output, fresh = solved_quantities(design, k_min=problem.k_min)
         check = validity(design, output)
         worst_change = max(worst_change, check["worst"])
         row += [check["lmax"] if check["lmax"] is not None else check.get("label"),
@@ -1429,8 +1430,7 @@ def write_report(run_dir: str | Path, goal: Goal, *, store: EvaluationStore | No
                 "passed" if check["worst"] <= VALIDITY_TOLERANCE else "failed"]
         rows.append(row)
         front_rows.append(dict(zip(columns, row, strict=True)))
-        # fresh re-evaluation from a newly built design
-        fresh = quantities_of(output, k_min=problem.k_min)
+        # fresh re-evaluation from a newly built design (``fresh`` above)
         for k, v in q.items():
             a = onp.real(onp.asarray(fresh[k], float))
             b = onp.asarray(v, float)

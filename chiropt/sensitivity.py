@@ -66,6 +66,15 @@ def plain_groups(metrics) -> tuple[str, ...]:
     return tuple(out)
 
 
+def solved_quantities(design: Design, values: dict[str, Any] | None = None,
+                      *, k_min: tuple[float, ...] = (), plain: tuple[str, ...] = ()):
+    """The model output (its solution keeping only the orders the quantities need) and the
+    quantities of :func:`compute_quantities` from it: ``(output, quantities)``, for callers
+    that also check the output (``chiropt.model.validity``)."""
+    output = run_model(design, values, plain=tuple(plain), trim=True)
+    return output, quantities_of(output, k_min=tuple(k_min))
+
+
 def compute_quantities(design: Design, values: dict[str, Any] | None = None,
                        *, with_flags: bool = False, k_min: tuple[float, ...] = (),
                        plain: tuple[str, ...] = ()):
@@ -85,8 +94,7 @@ def compute_quantities(design: Design, values: dict[str, Any] | None = None,
     dict name -> (W,) array [, rayleigh (W,)]
     """
     # only the quantities leave this function: the solution keeps only the orders they need
-    output = run_model(design, values, plain=tuple(plain), trim=True)
-    out = quantities_of(output, k_min=tuple(k_min))
+    output, out = solved_quantities(design, values, k_min=k_min, plain=plain)
     sol = output.solution
     if with_flags:
         return out, onp.asarray(getval(sol.rayleigh))

@@ -214,8 +214,15 @@ def integer_pairs_within(basis1, basis2, dual1, dual2, radius):
 
 @lru_cache(maxsize=64)
 def _pairs_within(key: tuple[float, ...]) -> onp.ndarray:
-    basis1, basis2 = onp.array(key[0:2]), onp.array(key[2:4])
-    dual1, dual2, radius = onp.array(key[4:6]), onp.array(key[6:8]), key[8]
+    out = pairs_within_plain(onp.array(key[0:2]), onp.array(key[2:4]), onp.array(key[4:6]),
+                             onp.array(key[6:8]), key[8])
+    out.setflags(write=False)
+    return out
+
+
+def pairs_within_plain(basis1, basis2, dual1, dual2, radius: float) -> onp.ndarray:
+    """:func:`integer_pairs_within` on plain float arrays, not memoised (for callers that
+    memoise their own result)."""
     m_max = int(onp.floor(radius * onp.linalg.norm(dual1) / (2 * onp.pi) + 1e-9))
     n_max = int(onp.floor(radius * onp.linalg.norm(dual2) / (2 * onp.pi) + 1e-9))
     m, n = onp.meshgrid(onp.arange(-m_max, m_max + 1), onp.arange(-n_max, n_max + 1),
@@ -223,6 +230,4 @@ def _pairs_within(key: tuple[float, ...]) -> onp.ndarray:
     mn = onp.stack([m.ravel(), n.ravel()], axis=1)
     vec = mn[:, 0:1] * basis1[None, :] + mn[:, 1:2] * basis2[None, :]
     keep = onp.sqrt(onp.sum(vec**2, axis=1)) <= radius * (1 + 1e-12)
-    out = mn[keep]
-    out.setflags(write=False)
-    return out
+    return mn[keep]

@@ -18,7 +18,7 @@ import numpy as onp
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
-from chiropt.lattice.bravais import Lattice, integer_pairs_within
+from chiropt.lattice.bravais import Lattice, pairs_within_plain
 
 # |kz| is never smaller than this fraction of |k|: exactly on a Rayleigh anomaly kz = 0
 # would give 1/kz = inf; the floor is at the round-off level of k^2 - |q|^2.
@@ -54,7 +54,7 @@ def _sorted_orders(a12: tuple[float, ...], g: float) -> onp.ndarray:
     a2 = a12[2:] [m], memoised on the exact values (read-only result)."""
     plain = Lattice(onp.array(a12[:2]), onp.array(a12[2:]))
     b1, b2 = (onp.asarray(b, float) for b in plain.reciprocal())
-    mn = integer_pairs_within(b1, b2, plain.a1, plain.a2, g)
+    mn = pairs_within_plain(b1, b2, plain.a1, plain.a2, g)
     vec = mn[:, 0:1] * b1[None, :] + mn[:, 1:2] * b2[None, :]
     unit = min(onp.linalg.norm(b1), onp.linalg.norm(b2))
     length = onp.round(onp.sqrt(onp.sum(vec**2, axis=1)) / unit, 9)

@@ -142,9 +142,10 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
         recv_terms = [(c_out, c_in, h, coef[inv_r])
                       for c_out, c_in, h, coef in _channel_terms(a0r, a1r, br)]
         emit_terms = _channel_terms(a0e, a1e, be)
-        phF_hk = onp.reshape(onp.transpose(onp.reshape(phF, (W, G, 2, K, 2)), (0, 1, 2, 4, 3)),
-                             (W, G, 2, 2 * K))                             # [g, t, (h k)]
-        if N == 1:
+        if N > 1:
+            phF_hk = onp.reshape(onp.transpose(onp.reshape(phF, (W, G, 2, K, 2)),
+                                               (0, 1, 2, 4, 3)), (W, G, 2, 2 * K))  # [g, t, (h k)]
+        else:
             # one particle per cell: rc and ph are one number per order, so the channel
             # sums below collapse to P_bar[g] = sum_(c, t) (rc r RF)[g, c, t] Ur[c, t] +
             # (ph L u)[g, c, t] Ue[c, t], with rows Ur (from u) and Ue (from F) that do not
