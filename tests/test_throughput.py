@@ -244,8 +244,8 @@ def test_designs_evaluated_in_turn_never_share_values():
 
 
 def test_memoised_order_tables_follow_the_lattice_and_cannot_be_altered():
-    # common practice, no source: the order and lattice-pair tables are memoised on the
-    # exact lattice vectors and cut; lattices asked for in turn get their own tables, equal
+    # common practice, no source: the order and lattice-pair tables are memoised (on the
+    # lattice shape, and on the exact lattice vectors and cut); lattices asked for in turn get their own tables, equal
     # to a direct count of |m b1 + n b2| <= g_max, and a table cannot be written to
     from chiropt.lattice.bravais import Lattice
     from chiropt.lattice.orders import order_indices
@@ -270,6 +270,35 @@ def test_memoised_order_tables_follow_the_lattice_and_cannot_be_altered():
     with pytest.raises(ValueError):
         tables[0][0, 0] = 5
     assert {tuple(p) for p in order_indices(square, 0.5 * g)} == direct(square, 0.5 * g)
+
+
+@pytest.mark.parametrize("kind", ["square", "hexagonal", "oblique"])
+def test_order_tables_of_one_shape_serve_every_period_exactly(kind):
+    # common practice, no source: one table per lattice shape serves every period and cut;
+    # each answer is the direct count |m b1 + n b2| <= g_max (same set), sorted by |G|
+    # with (0, 0) first, also at cuts just above and below a ring of orders
+    from chiropt.lattice.bravais import Lattice
+    from chiropt.lattice.orders import order_indices
+
+    def make(a):
+        if kind == "oblique":
+            return Lattice(onp.array([a, 0.0]), onp.array([0.31 * a, 0.87 * a]))
+        return getattr(Lattice, kind)(a)
+
+    rng = onp.random.default_rng(5)
+    for a in 1e-9 * (280 + 240 * rng.random(12)):
+        lat = make(a)
+        b1, b2 = (onp.asarray(b, float) for b in lat.reciprocal())
+        ring = onp.hypot(*(onp.array([3, 2]) @ onp.stack([b1, b2])))
+        for g in (ring * (1 - 1e-9), ring * (1 + 1e-9), (2 + 28 * rng.random()) * ring / 3):
+            mn = order_indices(lat, g)
+            m, n = onp.meshgrid(onp.arange(-40, 41), onp.arange(-40, 41), indexing="ij")
+            all_mn = onp.stack([m.ravel(), n.ravel()], axis=1)
+            keep = onp.hypot(*(all_mn @ onp.stack([b1, b2])).T) <= g
+            assert {tuple(p) for p in mn} == {tuple(p) for p in all_mn[keep]}
+            length = onp.hypot(*(mn @ onp.stack([b1, b2])).T)
+            assert tuple(mn[0]) == (0, 0)
+            assert onp.all(onp.diff(length) >= -1e-9 * length[1:])
 
 
 def test_a_stash_entry_is_used_only_by_the_call_that_made_it():

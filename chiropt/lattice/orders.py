@@ -40,27 +40,64 @@ def order_indices(lattice: Lattice, g_max):
     Notes
     -----
     The selection uses plain (untraced) values, so it is constant under differentiation.
+    The sorted pairs come from a memoised table of the lattice's shape (its reciprocal
+    vectors in units of |b1|) up to a power-of-two radius, so a search that moves the
+    period or the wavelength only measures the table's lengths again (a changed shape
+    gets a table of its own); the result is read-only.
     """
     g = float(onp.asarray(getval(g_max)))
     if not onp.isfinite(g) or g < 0:
         raise InputError("g_max", f"must be a finite non-negative wavenumber [1/m]; got {g!r}")
     plain = lattice.plain()
-    return _sorted_orders(tuple(float(v) for v in onp.concatenate([plain.a1, plain.a2])), g)
+    b1, b2 = (onp.asarray(b, float) for b in plain.reciprocal())
+    scale = float(onp.linalg.norm(b1))
+    # the shape rounded to 12 digits: a hexagonal lattice's vectors change in their last
+    # bits with the period; the table's radius margin (>= 1e-9) covers the rounding
+    shape = tuple(round(float(v), 12) for v in onp.concatenate([b1, b2]) / scale)
+    mn, mm, mn2, nn = _shape_orders(shape, _radius_bucket(g / scale))
+    # |m b1 + n b2|^2 <= g^2 on the actual reciprocal vectors (the criterion of
+    # ``pairs_within_plain``); the table is sorted by length, so the kept orders are (but
+    # for ties at the cut) a prefix
+    length2 = mm * float(b1 @ b1) + mn2 * float(b1 @ b2) + nn * float(b2 @ b2)
+    keep = length2 <= (g * (1 + 1e-12)) ** 2
+    count = int(onp.count_nonzero(keep))
+    if keep[:count].all():
+        return mn[:count]
+    out = mn[keep]
+    out.setflags(write=False)
+    return out
+
+
+def _radius_bucket(r: float) -> float:
+    """The table radius serving a cut r (in units of |b1|): the next power of 2 above r
+    (at least 4), so that a search whose period or wavelength moves reads one table."""
+    return float(2.0 ** max(2, int(onp.ceil(onp.log2(max(r, 1e-300) * (1 + 1e-9))))))
 
 
 @lru_cache(maxsize=64)
-def _sorted_orders(a12: tuple[float, ...], g: float) -> onp.ndarray:
-    """The sorted pairs of :func:`order_indices` for lattice vectors a1 = a12[:2],
-    a2 = a12[2:] [m], memoised on the exact values (read-only result)."""
-    plain = Lattice(onp.array(a12[:2]), onp.array(a12[2:]))
-    b1, b2 = (onp.asarray(b, float) for b in plain.reciprocal())
-    mn = pairs_within_plain(b1, b2, plain.a1, plain.a2, g)
+def _shape_orders(b12: tuple[float, ...], radius: float):
+    """Every pair (m, n) with |m b1 + n b2| <= radius for reciprocal vectors b1 = b12[:2],
+    b2 = b12[2:] in units of |b1| (a scale-free lattice shape), sorted by |G| (rounded to 9
+    digits of the shorter vector's length) then m then n; memoised on the shape, so every
+    period of one lattice kind reads the same table.
+
+    Returns (mn (N, 2) int, m^2, 2 m n, n^2 (N,) float), all read-only: the floats give
+    |G|^2 = m^2 |b1|^2 + 2 m n b1.b2 + n^2 |b2|^2 for any scale of the shape.
+    """
+    b1, b2 = onp.array(b12[:2]), onp.array(b12[2:])
+    det = b1[0] * b2[1] - b1[1] * b2[0]
+    # duals a_i with a_i . b_j = 2 pi delta_ij bound the search exactly
+    a1 = 2 * onp.pi * onp.array([b2[1], -b2[0]]) / det
+    a2 = 2 * onp.pi * onp.array([-b1[1], b1[0]]) / det
+    mn = pairs_within_plain(b1, b2, a1, a2, radius)
     vec = mn[:, 0:1] * b1[None, :] + mn[:, 1:2] * b2[None, :]
     unit = min(onp.linalg.norm(b1), onp.linalg.norm(b2))
     length = onp.round(onp.sqrt(onp.sum(vec**2, axis=1)) / unit, 9)
-    order = onp.lexsort((mn[:, 1], mn[:, 0], length))
-    out = mn[order].astype(int)
-    out.setflags(write=False)
+    mn = mn[onp.lexsort((mn[:, 1], mn[:, 0], length))].astype(int)
+    m, n = mn[:, 0].astype(float), mn[:, 1].astype(float)
+    out = (mn, m * m, 2.0 * m * n, n * n)
+    for a in out:
+        a.setflags(write=False)
     return out
 
 
