@@ -245,8 +245,9 @@ def test_designs_evaluated_in_turn_never_share_values():
 
 def test_memoised_order_tables_follow_the_lattice_and_cannot_be_altered():
     # common practice, no source: the order and lattice-pair tables are memoised (on the
-    # lattice shape, and on the exact lattice vectors and cut); lattices asked for in turn get their own tables, equal
-    # to a direct count of |m b1 + n b2| <= g_max, and a table cannot be written to
+    # lattice shape, and on the exact lattice vectors and cut); lattices asked for in turn
+    # get their own tables, equal to a direct count of |m b1 + n b2| <= g_max, and a table
+    # cannot be written to
     from chiropt.lattice.bravais import Lattice
     from chiropt.lattice.orders import order_indices
 
