@@ -14,10 +14,11 @@ import numpy as onp
 from autograd.extend import defvjp, primitive
 
 
-def _recurrence(z_sq, n_hi: int, n_start: int):
-    """Values g_n and derivatives dg_n/d(z^2), each (n_hi, *shape), plain arrays."""
+def _recurrence(z_sq, n_hi: int, n_start: int, derivative: bool = True):
+    """Values g_n and (with ``derivative``, else None) derivatives dg_n/d(z^2), each
+    (n_hi, *shape), plain arrays."""
     g = -z_sq / (2.0 * n_start + 3.0)
-    t = -1.0 / (2.0 * n_start + 3.0) * onp.ones_like(z_sq)
+    t = -1.0 / (2.0 * n_start + 3.0) * onp.ones_like(z_sq) if derivative else None
     vals = [None] * (n_hi + 1)
     ders = [None] * (n_hi + 1)
     if n_start <= n_hi:
@@ -25,10 +26,17 @@ def _recurrence(z_sq, n_hi: int, n_start: int):
     for n in range(n_start, 1, -1):
         den = 2.0 * n + 1.0 + g
         g = -z_sq / den
-        t = -(1.0 + g * t) / den
+        if derivative:
+            t = -(1.0 + g * t) / den
         if n - 1 <= n_hi:
             vals[n - 1], ders[n - 1] = g, t
-    return onp.stack(vals[1:]), onp.stack(ders[1:])
+    return onp.stack(vals[1:]), (onp.stack(ders[1:]) if derivative else None)
+
+
+def ratio_g_plain(z_sq, n_hi: int, n_start: int):
+    """The values of :func:`ratio_g_stacked` (n_hi, ...) from plain arrays, no derivative
+    (the same recurrence and arithmetic)."""
+    return _recurrence(onp.asarray(z_sq), n_hi, n_start, derivative=False)[0]
 
 
 @primitive
@@ -54,7 +62,7 @@ def ratio_g_stacked(z_sq, n_hi: int, n_start: int):
     Bohren & Huffman, *Absorption and Scattering of Light by Small Particles* (1983),
     eq. 4.89 (downward recurrence); chain rule applied to the recurrence.
     """
-    return _recurrence(z_sq, n_hi, n_start)[0]
+    return _recurrence(z_sq, n_hi, n_start, derivative=False)[0]
 
 
 def _vjp(ans, z_sq, n_hi, n_start):

@@ -34,6 +34,7 @@ from autograd.extend import defvjp, primitive
 from autograd.tracer import getval
 
 from chiropt.errors import InputError
+from chiropt.particles._ratio_primitive import ratio_g_plain
 from chiropt.particles._riccati import downward_start, ratio_g, riccati_psi_chi, riccati_xi
 
 __all__ = [
@@ -249,48 +250,43 @@ def _sphere_ab_values(x, m, n_max: int, derivative: bool = False):
     x = onp.asarray(x, float)
     m = onp.asarray(m, complex)
     z = m * x
-    big_g = ratio_g(z * z, n_max, downward_start(n_max, float(onp.max(onp.abs(z)))))
-    big_g = [onp.asarray(g) for g in big_g]
-    g_x = ratio_g(x * x, n_max + 1, downward_start(n_max + 1, float(onp.max(x))))
-    psi, chi = riccati_psi_chi(x, g_x, n_max + 1)
-    psi = [onp.asarray(v) for v in psi]
-    chi = [onp.asarray(v) for v in chi]
+    big_g = ratio_g_plain(z * z, n_max, downward_start(n_max, float(onp.max(onp.abs(z)))))
+    g_x = ratio_g_plain(x * x, n_max + 1, downward_start(n_max + 1, float(onp.max(x))))
+    psi, chi = riccati_psi_chi(x, list(g_x), n_max + 1)
+    psi = onp.stack([onp.asarray(v) for v in psi])       # (n_max + 3, ...): orders -1..
+    chi = onp.stack([onp.asarray(v) for v in chi])
+    # every order n = 1..n_max at once, n on the leading axis (the same operations per
+    # element as one order at a time)
+    n = onp.arange(1, n_max + 1, dtype=float).reshape((n_max,) + (1,) * x.ndim)
+    p0, p1, pm = psi[2:n_max + 2], psi[3:n_max + 3], psi[1:n_max + 1]  # psi_n, _n+1, _n-1
+    c0, cm = chi[2:n_max + 2], chi[1:n_max + 1]                          # chi_n, chi_n-1
+    G = big_g[:n_max]
     m2 = m * m
-    a, b = [], []
-    dax, dam, dbx, dbm = [], [], [], []
-    for n in range(1, n_max + 1):
-        p0, p1, pm = psi[n + 1], psi[n + 2], psi[n]          # psi_n, psi_{n+1}, psi_{n-1}
-        c0, cm = chi[n + 1], chi[n]                          # chi_n, chi_{n-1}
-        G = big_g[n - 1]
-        Na, Pa, Nb, Pb = _numerators(n, x, m2, G, G, p0, p1, c0, cm)
-        a.append(Na / (Na - 1j * Pa))
-        b.append(Nb / (Nb - 1j * Pb))
-        if not derivative:
-            continue
-        D = (G + n + 1.0) / z
-        dG = D + z * (n * (n + 1.0) / (z * z) - 1.0 - D * D)    # dG/dz
-        dp0 = pm - n * p0 / x
-        dp1 = p0 - (n + 1.0) * p1 / x
-        dc0 = cm - n * c0 / x
-        dcm = -c0 + n * cm / x
-        dNa_x = dG * m * p0 + ((n + 1.0) * (1.0 - m2) + G) * dp0 + m2 * p1 + m2 * x * dp1
-        dNa_m = (-2.0 * m * (n + 1.0) + dG * x) * p0 + 2.0 * m * x * p1
-        dPa_x = dG * m * c0 + (n + 1.0 + G + n * m2) * dc0 - m2 * cm - m2 * x * dcm
-        dPa_m = (dG * x + 2.0 * n * m) * c0 - 2.0 * m * x * cm
-        dNb_x = dG * m * p0 + G * dp0 + p1 + x * dp1
-        dNb_m = dG * x * p0
-        dPb_x = dG * m * c0 + (2.0 * n + 1.0 + G) * dc0 - cm - x * dcm
-        dPb_m = dG * x * c0
-        qa, qb = (Na - 1j * Pa) ** 2, (Nb - 1j * Pb) ** 2
-        dax.append(1j * (Na * dPa_x - Pa * dNa_x) / qa)
-        dam.append(1j * (Na * dPa_m - Pa * dNa_m) / qa)
-        dbx.append(1j * (Nb * dPb_x - Pb * dNb_x) / qb)
-        dbm.append(1j * (Nb * dPb_m - Pb * dNb_m) / qb)
-    ab = onp.stack([onp.stack(a, axis=-1), onp.stack(b, axis=-1)])
+    Na, Pa, Nb, Pb = _numerators(n, x, m2, G, G, p0, p1, c0, cm)
+    last = lambda v: onp.moveaxis(v, 0, -1)  # noqa: E731   (n last)
+    ab = onp.stack([last(Na / (Na - 1j * Pa)), last(Nb / (Nb - 1j * Pb))])
     if not derivative:
         return ab, None
-    st = lambda v: onp.stack(v, axis=-1)  # noqa: E731
-    return ab, (onp.stack([st(dax), st(dbx)]), onp.stack([st(dam), st(dbm)]))
+    D = (G + n + 1.0) / z
+    dG = D + z * (n * (n + 1.0) / (z * z) - 1.0 - D * D)    # dG/dz
+    dp0 = pm - n * p0 / x
+    dp1 = p0 - (n + 1.0) * p1 / x
+    dc0 = cm - n * c0 / x
+    dcm = -c0 + n * cm / x
+    dNa_x = dG * m * p0 + ((n + 1.0) * (1.0 - m2) + G) * dp0 + m2 * p1 + m2 * x * dp1
+    dNa_m = (-2.0 * m * (n + 1.0) + dG * x) * p0 + 2.0 * m * x * p1
+    dPa_x = dG * m * c0 + (n + 1.0 + G + n * m2) * dc0 - m2 * cm - m2 * x * dcm
+    dPa_m = (dG * x + 2.0 * n * m) * c0 - 2.0 * m * x * cm
+    dNb_x = dG * m * p0 + G * dp0 + p1 + x * dp1
+    dNb_m = dG * x * p0
+    dPb_x = dG * m * c0 + (2.0 * n + 1.0 + G) * dc0 - cm - x * dcm
+    dPb_m = dG * x * c0
+    qa, qb = (Na - 1j * Pa) ** 2, (Nb - 1j * Pb) ** 2
+    dax = 1j * (Na * dPa_x - Pa * dNa_x) / qa
+    dam = 1j * (Na * dPa_m - Pa * dNa_m) / qa
+    dbx = 1j * (Nb * dPb_x - Pb * dNb_x) / qb
+    dbm = 1j * (Nb * dPb_m - Pb * dNb_m) / qb
+    return ab, (onp.stack([last(dax), last(dbx)]), onp.stack([last(dam), last(dbm)]))
 
 
 @primitive
