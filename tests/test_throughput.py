@@ -145,6 +145,32 @@ def test_coupled_solve_with_the_reflected_coupling_against_finite_differences(N)
     _check_every_argument(scalar, Tb, W_lat, b, rc, r, P, ph)
 
 
+@pytest.mark.parametrize("N", [1, 2])
+@pytest.mark.parametrize("lmax", [1, 3])
+def test_reflected_matrix_is_the_order_sum_of_its_channel_vectors(N, lmax):
+    # common practice, no source: the factored stack-reflected coupling (one particle per
+    # cell: three Gram products per channel; several: one product) equals its definition
+    # W[(i,a),(j,b)] = sum_(g,c) rc[g,i] r[g,c] recv[g,c,a] ph[g,j] emit[g,c,b] with the
+    # reception and downward emission vectors made from the projections
+    from chiropt.multipole.reflected import reflected_matrix_from_projections
+    from chiropt.sphericalwaves import channel_modes, n_modes
+
+    W, G = 2, 7
+    K = n_modes(lmax) // 2
+    rng = onp.random.default_rng(11 + N + lmax)
+
+    def c(*shape):
+        return rng.normal(size=shape) + 1j * rng.normal(size=shape)
+
+    rc, r, P, ph = c(W, G, N), c(W, G, 2), c(W, G, 2, K), c(W, G, N)
+    recv = channel_modes(P, "receive", lmax)
+    emit = channel_modes(P, "emit", lmax, down=True)
+    direct = onp.einsum("wgi,wgc,wgca,wgj,wgcb->wiajb", rc, r, recv, ph, emit)
+    ours = reflected_matrix_from_projections(rc, r, P, ph, lmax)
+    onp.testing.assert_allclose(ours, direct.reshape(W, N * 2 * K, N * 2 * K),
+                                rtol=1e-13, atol=1e-13 * onp.abs(direct).max())
+
+
 @pytest.mark.parametrize("at", ["ordinary", "normal", "grazing"])
 @pytest.mark.parametrize("lmax", [1, 3])
 def test_projection_and_channel_primitives_against_finite_differences(at, lmax):

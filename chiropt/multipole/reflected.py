@@ -59,12 +59,15 @@ def reflected_matrix_from_projections(rc, r, P, ph, lmax: int):
     _, _, a0e, a1e, be = channel_tables(False, lmax, True)      # emission, downward
     W, G, N = onp.shape(rc)
     K = onp.shape(P)[-1]
-    # A[w, g, (c, i, c1, j)] = rc[g, i] r[g, c] P[g, c1, j];  B[w, g, (i', c2, j')]; the
-    # reception's gather m -> -m is applied to the small product's rows afterwards
-    weight = onp.einsum("wgi,wgc->wgci", rc, r).reshape(W, G, 2 * N, 1)
-    A = (weight * P.reshape(W, G, 1, 2 * K)).reshape(W, G, 4 * N * K)
-    B = (ph[:, :, :, None, None] * P[:, :, None, :, :]).reshape(W, G, 2 * N * K)
-    Gm = onp.matmul(onp.transpose(A, (0, 2, 1)), B).reshape(W, 2, N, 2, K, N, 2, K)
+    if N == 1:
+        Gm = _one_particle_gram(rc, r, P, ph)
+    else:
+        # A[w, g, (c, i, c1, j)] = rc[g, i] r[g, c] P[g, c1, j];  B[w, g, (i', c2, j')]
+        weight = onp.einsum("wgi,wgc->wgci", rc, r).reshape(W, G, 2 * N, 1)
+        A = (weight * P.reshape(W, G, 1, 2 * K)).reshape(W, G, 4 * N * K)
+        B = (ph[:, :, :, None, None] * P[:, :, None, :, :]).reshape(W, G, 2 * N * K)
+        Gm = onp.matmul(onp.transpose(A, (0, 2, 1)), B).reshape(W, 2, N, 2, K, N, 2, K)
+    # the reception's gather m -> -m, applied to the small product's rows
     Gm = Gm[:, :, :, :, perm]
     out = onp.empty((W, N, K, 2, N, K, 2), dtype=complex)
     # [c, i, c1, j, i', c2, j'] blocks: NN, NM, MN, MM (docstring)
@@ -77,6 +80,29 @@ def reflected_matrix_from_projections(rc, r, P, ph, lmax: int):
     out[:, :, :, 1, :, :, 1] = (br[0][:, None, None] * be[0] * Gm[:, 0, :, 0, :, :, 0]
                                 + br[1][:, None, None] * be[1] * Gm[:, 1, :, 1, :, :, 1])
     return out.reshape(W, N * 2 * K, N * 2 * K)
+
+
+def _one_particle_gram(rc, r, P, ph):
+    """The weighted Gram blocks Gm (W, c, 1, c1, K, 1, c2, K) = sum_g w[g, c] P[g, c1]^T
+    P[g, c2] of one particle per cell, w = rc r ph (one phase per order and particle).
+
+    The blocks of one channel c are symmetric in (c1, c2) up to transposition, so three
+    products per channel (c1 = 0 with both c2, c1 = c2 = 1) give all four: 6 K x K blocks
+    instead of 8.
+    """
+    W, G, _, K = onp.shape(P)
+    w = (rc[:, :, 0] * ph[:, :, 0])[:, :, None] * r                   # (W, G, 2)
+    both = onp.reshape(P, (W, G, 2 * K))
+    Gm = onp.empty((W, 2, 1, 2, K, 1, 2, K), dtype=complex)
+    for c in (0, 1):
+        wc = w[:, :, c, None]
+        top = onp.matmul(onp.swapaxes(wc * P[:, :, 0], 1, 2), both)     # (W, K, 2K)
+        Gm[:, c, 0, 0, :, 0, 0] = top[:, :, :K]
+        Gm[:, c, 0, 0, :, 0, 1] = top[:, :, K:]
+        Gm[:, c, 0, 1, :, 0, 0] = onp.swapaxes(top[:, :, K:], 1, 2)
+        Gm[:, c, 0, 1, :, 0, 1] = onp.matmul(onp.swapaxes(wc * P[:, :, 1], 1, 2),
+                                             P[:, :, 1])
+    return Gm
 
 
 def _channel_terms(a0, a1, b):
