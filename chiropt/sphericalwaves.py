@@ -430,9 +430,10 @@ def _projections(k_up, V, lmax, traced=False):
     """[X . s, X . p_up] (..., 2, K) from unit wavevectors (..., 3) and V = [s; p] (..., 2, 3);
     with ``traced`` the harmonics' derivatives are made in the same pass, for the VJP."""
     Y, D = _harmonic_table(k_up, lmax, traced)
-    out = onp.matmul(V, _cartesian_x(Y, lmax))
+    X = _cartesian_x(Y, lmax)
+    out = onp.matmul(V, X)
     if traced:
-        _PROJECTION_STASH.put(out, None, (Y, D))
+        _PROJECTION_STASH.put(out, None, (X, D))
     return out
 
 
@@ -440,12 +441,12 @@ def _projections_vjp(argnums, ans, args, kwargs):
     k_up, V, lmax = args[:3]
     table = _PROJECTION_STASH.take(ans, None)
     if table is None or (0 in argnums and table[1] is None):
-        table = _harmonic_table(k_up, lmax, 0 in argnums)
-    Y, D = table
-    X = _cartesian_x(Y, lmax)                                        # (..., 3, K)
+        Y, D = _harmonic_table(k_up, lmax, 0 in argnums)
+        table = (_cartesian_x(Y, lmax), D)
+    X, D = table                                                     # (..., 3, K), dY/dk
     cat, _ = _projection_tables(lmax)
     J = (lmax + 1) ** 2
-    sh = onp.shape(Y)[:-1]
+    sh = onp.shape(X)[:-2]
     Vt = onp.swapaxes(V, -1, -2)
     Xt = onp.swapaxes(X, -1, -2)
 
