@@ -113,13 +113,27 @@ def _replace_zero(x, val):
     return onp.where(x, x, val)
 
 
+class _Scatter:
+    """The stacked cotangent of a basic slice: zero but for ``G`` at ``index`` of an array
+    (R, *shape); made dense only where it is accumulated (autograd's sparse cotangent of
+    ``getitem``, with the row axis kept)."""
+
+    __slots__ = ("shape", "dtype", "index", "G")
+
+    def __init__(self, shape, dtype, index, G):
+        self.shape, self.dtype, self.index, self.G = shape, dtype, index, G
+
+    def add_into(self, Z):
+        Z[self.index] += self.G
+        return Z
+
+
 def _getitem(G, node, i):
     A, idx = node.args[0], node.args[1]
     if not _autodiff._is_basic(idx):
         return NotImplemented                       # advanced: autograd's scatter per row
-    Z = onp.zeros((G.shape[0],) + onp.shape(A), complex if _iscomplex(A) else float)
-    Z[(slice(None),) + (idx if type(idx) is tuple else (idx,))] += G
-    return Z
+    return _Scatter((G.shape[0],) + onp.shape(A), complex if _iscomplex(A) else float,
+                    (slice(None),) + (idx if type(idx) is tuple else (idx,)), G)
 
 
 def _where(G, node, i):
@@ -255,11 +269,32 @@ def _stacked(rows):
 
 
 def _accumulate(prev, B):
+    """``(sum, mutable)`` of a parent's cotangent so far (None or such a pair) and a new
+    one, as autograd's ``add_outgrads``: a sum made here is owned by the walk (mutable) and
+    takes later cotangents in place; one handed over by a rule (which may share it with
+    other parents) is copied before anything is added to it. The same additions in the
+    same order as a new array each time."""
+    scatter = type(B) is _Scatter
     if prev is None:
-        return B
+        if scatter:
+            return B.add_into(onp.zeros(B.shape, B.dtype)), True
+        return B, False
+    prev, mutable = prev
     if type(prev) is _Rows or type(B) is _Rows:
-        return _Rows(vspace(a).add(a, b) for a, b in zip(prev, B, strict=True))
-    return prev + B
+        if scatter:
+            B = B.add_into(onp.zeros(B.shape, B.dtype))
+        if type(prev) is not _Rows and type(B) is not _Rows:
+            return prev + B, True
+        return _Rows(vspace(a).add(a, b) for a, b in zip(prev, B, strict=True)), False
+    dtype = onp.result_type(prev, B.dtype if scatter else B)
+    fits = type(prev) is onp.ndarray and prev.dtype == dtype and \
+        prev.shape == (B.shape if scatter else onp.shape(B))
+    if scatter:
+        return B.add_into(prev if mutable and fits else onp.array(prev, dtype=dtype)), True
+    if mutable and fits:
+        prev += B
+        return prev, True
+    return prev + B, True
 
 
 def _parent_cotangents(node, G):
@@ -289,10 +324,10 @@ def stacked_jacobian(fun, x):
     R = value.size
     if end_node is None:
         return value.reshape(-1), onp.zeros((R, x.size))
-    outgrads = {end_node: onp.eye(R).reshape((R,) + value.shape)}
+    outgrads = {end_node: (onp.eye(R).reshape((R,) + value.shape), False)}
     G = None
     for node in toposort(end_node):
-        G = outgrads.pop(node)
+        G = outgrads.pop(node)[0]
         for parent, B in zip(node.parents, _parent_cotangents(node, G), strict=True):
             outgrads[parent] = _accumulate(outgrads.get(parent), B)
     return value.reshape(-1), onp.reshape(onp.real(G), (R, x.size))

@@ -74,6 +74,32 @@ def test_a_tuple_argument_and_a_constant_output_row():
     assert J[2, 0] == pytest.approx(-onp.sin(0.8) * onp.sin(1.3), rel=1e-14)
 
 
+def test_summed_cotangents_never_write_into_a_shared_one():
+    # common practice, no source: a parent's cotangent sums are made in place only where
+    # the walk owns them; a cotangent a rule hands to two parents (x + x, a reshape's view,
+    # a slice of a slice) and overlapping slices of one array must still give autograd's
+    # jacobian, bit for bit, and central differences
+    def f(x):
+        a = x * anp.array([1.0, 2.0, 3.0, 4.0])
+        b = a + a                                   # add: one cotangent for both parents
+        c = anp.reshape(b, (2, 2))
+        d = c[0] * c[1] + c[:, 0] ** 2              # slices of a view, twice over
+        e = b[1:3] + b[0:2] * b[2:4] + b[1:3] ** 3  # overlapping slices of one array
+        g = anp.exp(1j * b)[::2] * (1.0 + e)        # complex cotangent into a real slice
+        p, q = anp.sin(x[:2]), anp.cos(x[2:])
+        t = p * 3.0 + q * 5.0                       # reached after s in the reverse walk:
+        s = p + q                                   # s hands one cotangent to p and q,
+        return anp.concatenate([anp.real(d) + anp.imag(g), anp.real(g) * e, e[::-1],
+                                t, s])              # then t adds to each of them
+
+    x = onp.array([0.3, -0.7, 0.45, 0.2])
+    value, J = stacked_jacobian(f, x)
+    onp.testing.assert_array_equal(J, jacobian(f)(x))
+    h = 1e-6
+    fd = onp.stack([(f(x + h * u) - f(x - h * u)) / (2 * h) for u in onp.eye(4)], axis=1)
+    onp.testing.assert_allclose(J, fd, rtol=1e-6, atol=1e-7)
+
+
 @pytest.mark.parametrize("name", ["quickstart.yaml", "silicon-disks-grid.yaml",
                                   "overnight-torque.yaml"])
 def test_goal_rows_equal_one_reverse_pass_per_row(name):
