@@ -163,7 +163,8 @@ class OrderContent:
     down : (W, 2, 2) — downward (incident) wave of the (0,0) order on (s, p_down) at z [V/m]
         (zero for substrate-side illumination)
     z : height [m]
-    azimuth : incidence azimuth [rad] (fixes s where q = 0)
+    azimuth : incidence azimuth [rad] (fixes s where q = 0): a number, or (W, 1) with one
+        direction per wavelength row (``Structure.basis_azimuth``)
     n_host : host refractive index [-]
     """
 
@@ -285,14 +286,14 @@ def order_content(solution: Solution, z, *, g_max: float | None = None,
     down0 = solution.incident_sp * np.exp(-1j * kz0 * dz_top)[:, None, None]
     if mn_e.shape[0] == 0:
         return OrderContent(mn, g_norm, q_all, kz_all, k, up0[..., None], down0, z,
-                            st.azimuth, st.n_host)
+                            st.basis_azimuth, st.n_host)
     if getattr(solution, "coefficients", None) is not None:
         return _multipole_content(solution, mn, g_norm, q_all, kz_all, k, down0, z)
 
     # -- other orders: emission from the moments ---------------------------------------------
     # (elementwise on contiguous (W, 2, G) arrays: stacking along short last axes and
     # reductions over them cost numpy an order of magnitude more)
-    qx, qy = _in_plane_unit(q, st.azimuth)                      # (W, G)
+    qx, qy = _in_plane_unit(q, st.basis_azimuth)                # (W, G)
     qn = _safe_norm(q[..., 0] ** 2 + q[..., 1] ** 2)
     K = qn / k[:, None]
     c = kz / k[:, None]
@@ -327,7 +328,8 @@ def order_content(solution: Solution, z, *, g_max: float | None = None,
         up_p = up_p + coef.r_p[:, None] * (-cc * (ux * Px + uy * Py) - KK * Pz + ux * My
                                            - uy * Mx)
     up = np.concatenate([up0[..., None], np.stack([up_s, up_p], axis=2)], axis=3)
-    return OrderContent(mn, g_norm, q_all, kz_all, k, up, down0, z, st.azimuth, st.n_host)
+    return OrderContent(mn, g_norm, q_all, kz_all, k, up, down0, z, st.basis_azimuth,
+                        st.n_host)
 
 
 def _complete_content(solution: Solution, z) -> OrderContent:
@@ -342,7 +344,8 @@ def _complete_content(solution: Solution, z) -> OrderContent:
     b1, b2 = st.lattice.plain().reciprocal()
     gv = o.mn[:, 0:1] * b1[None, :] + o.mn[:, 1:2] * b2[None, :]
     g_norm = onp.sqrt(onp.sum(gv ** 2, axis=1))
-    return OrderContent(o.mn, g_norm, o.q, o.kz, st.k, up, down0, z, st.azimuth, st.n_host)
+    return OrderContent(o.mn, g_norm, o.q, o.kz, st.k, up, down0, z, st.basis_azimuth,
+                        st.n_host)
 
 
 def order_fields(content: OrderContent):
@@ -457,7 +460,7 @@ def _multipole_content(solution, mn, g_norm, q_all, kz_all, k, down0, z):
     up = solution.up_sp[:, :, :G, :] * np.exp(1j * solution.orders.kz[:, :G] *
                                                (z - st.z_top))[:, None, :, None]
     return OrderContent(mn, g_norm, q_all, kz_all, k, np.transpose(up, (0, 1, 3, 2)), down0, z,
-                        st.azimuth, st.n_host)
+                        st.basis_azimuth, st.n_host)
 
 
 def write_fields_npz(path, solution: Solution, *, z_nm: float, n: int,

@@ -47,7 +47,8 @@ def order_basis(q, kz, k, azimuth):
     q : (..., 2) in-plane wavevectors [1/m]
     kz : (...) normal wavenumbers from :func:`kz_branch` [1/m]
     k : (...) medium wavenumber [1/m] (broadcast against kz)
-    azimuth : scalar — direction [rad] used for ``q_hat`` where ``q = 0``
+    azimuth : number, or array broadcast against ``q.shape[:-1]`` (e.g. (W, 1), one per
+        wavelength row) — direction [rad] used for ``q_hat`` where ``q = 0``
 
     Returns
     -------
@@ -76,9 +77,9 @@ def _basis_parts(q, kz, k, azimuth):
     qq = onp.sum(q ** 2, axis=-1)
     nonzero = qq > 0
     Q = onp.sqrt(onp.where(nonzero, qq, 1.0))
-    az = float(onp.asarray(azimuth))
+    az = onp.asarray(azimuth, dtype=float)
     qhat = onp.where(nonzero[..., None], q / Q[..., None],
-                     onp.array([onp.cos(az), onp.sin(az)]))
+                     onp.stack([onp.cos(az), onp.sin(az)], axis=-1))
     c = onp.broadcast_to(kz, shape) / kb
     return q, kb, nonzero, Q, qhat, c, az
 
@@ -104,7 +105,8 @@ def _basis_vjp(argnums, ans, args, kwargs):
     P = onp.sum(qhat * q, axis=-1)                  # |q| (or q_hat . q = 0 where q = 0)
     inv_k = 1.0 / kb
     radial = nonzero[..., None] / Q[..., None]      # d q_hat / d q = (I - q_hat q_hat^T)/Q
-    turn = onp.where(nonzero, 0.0, 1.0)[..., None] * onp.array([-onp.sin(az), onp.cos(az)])
+    turn = onp.where(nonzero, 0.0, 1.0)[..., None] * onp.stack([-onp.sin(az), onp.cos(az)],
+                                                                axis=-1)
 
     def vjp(g):   # linear in g with autograd operations: reverse mode applied twice works
         gs, gpu, gpd, gku, gkd = g[0], g[1], g[2], g[3], g[4]
@@ -125,7 +127,7 @@ def _basis_vjp(argnums, ans, args, kwargs):
                 v = (-np.sum(q * gk_xy, axis=-1) * inv_k ** 2 - c_bar * c * inv_k
                      + gpz * P * inv_k ** 2)
             else:
-                v = np.sum(qhat_bar * turn)
+                v = np.sum(qhat_bar * turn, axis=-1)
             # back to the argument's shape and type (axes it was broadcast along summed)
             out.append(unbroadcast(v, np.metadata(args[i])))
         return tuple(out)

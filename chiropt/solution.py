@@ -135,7 +135,7 @@ def make_orders(structure: Structure, g_max: float, k_par=None) -> OrderSet:
     # exactly on a Rayleigh anomaly kz = 0: floor |kz| at the round-off level (flagged)
     floor = KZ_FLOOR * kh * np.ones(np.shape(getval(qq)))
     kz = np.where(np.abs(getval(kz)) < getval(floor), 1j * floor, kz)
-    s, pu, pd, ku, kd = order_basis(q, kz, kh, structure.azimuth)
+    s, pu, pd, ku, kd = order_basis(q, kz, kh, structure.basis_azimuth)
     return OrderSet(mn=mn, q=q, qn=np.sqrt(qq + 1e-300), kz=kz, s=s, p_up=pu, p_down=pd,
                     k_up=ku, k_down=kd)
 
@@ -189,7 +189,7 @@ def substrate_basis(structure: Structure, orders: OrderSet):
     """kz, p vectors (up, down) and wavevector/k0 (down) of the orders in the substrate."""
     k2 = np.sqrt(structure.eps_substrate)[:, None] * structure.k0[:, None]
     kz2 = kz_branch(k2, orders.qn ** 2)
-    s, pu, pd, ku, kd = order_basis(orders.q, kz2, k2, structure.azimuth)
+    s, pu, pd, ku, kd = order_basis(orders.q, kz2, k2, structure.basis_azimuth)
     kvec_down = kd * (k2 / structure.k0[:, None])[..., None]
     return kz2, pu, pd, kvec_down
 

@@ -57,7 +57,9 @@ class Structure:
     eps_substrate : (W,) complex or None
     eps_layers : (L, W) complex
     thicknesses : (L,) [m]
-    polar, azimuth : incidence angles [rad] (in the medium of incidence)
+    polar, azimuth : incidence angles [rad] (in the medium of incidence): numbers, or (W,)
+        arrays with one direction per wavelength row (a cone's directions solved together,
+        ``chiropt.robust.average``)
     side : 'host' or 'substrate'
     tolerance : target relative accuracy of lattice sums and order truncation
     """
@@ -109,6 +111,13 @@ class Structure:
     def alpha_m(self):
         """(W, N) magnetic dipole polarizabilities [m^3] (NaN for non-spheres)."""
         return self._alphas[1]
+
+    @property
+    def basis_azimuth(self):
+        """The azimuth that fixes s where an order's q = 0 (``planewaves.order_basis``),
+        broadcast against (W, G) order arrays: the number, or (W, 1) per wavelength row."""
+        az = self.azimuth
+        return az if onp.ndim(getval(az)) == 0 else np.reshape(az, (-1, 1))
 
     @cached_property
     def k_par(self):

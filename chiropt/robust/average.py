@@ -38,6 +38,7 @@ from __future__ import annotations
 from typing import Any
 
 import autograd.numpy as np
+import numpy as onp
 from autograd.tracer import getval
 
 from chiropt.design import Design
@@ -125,39 +126,63 @@ def _combine_capacity(q, w, u, out):
         out["cd_efficiency"] = np.where(ok, out["g_ev"] / np.where(ok, cap, 1.0), 0.0)
 
 
+#: most wavelength rows (wavelengths x cone directions x band nodes) of one solve: a cone's
+#: directions ride on the wavelength axis in groups of whole directions up to this size
+#: (the fixed cost of a solve is spread thin by then; the arrays of a multipole solve with
+#: thousands of stack-reflected orders grow with the rows)
+MAX_ROWS = 24
+
+
 def sample_quantities(design: Design, values: dict[str, Any] | None, plan: SamplePlan
                       ) -> list[dict[str, Any]]:
     """One combined quantity set (name -> (W,)) per fabrication sample of ``plan``.
 
     ``design`` fixes the wavelengths (W,) and everything not in ``values``; ``values``
     holds replacements of named quantities (may be traced; ``illumination.wavelength_nm``
-    shifts the wavelengths). Each sample adds its offsets to the quantities it moves, solves
-    once per cone direction with the band nodes on the wavelength axis, and combines the
-    directions and band nodes incoherently (:func:`combine`). Cost: S x A solves of W x B
-    wavelengths.
+    shifts the wavelengths). Each sample adds its offsets to the quantities it moves and
+    solves its cone directions and band nodes together: every (wavelength, direction, band
+    node) is one row of the wavelength axis, with its own incidence angles
+    (``Structure.polar``, ``azimuth`` per row), in groups of whole directions of at most
+    :data:`MAX_ROWS` rows; then the directions and band nodes are combined incoherently
+    (:func:`combine`). Cost: S x ceil(A / max(1, MAX_ROWS // (W B))) solves of up to
+    MAX_ROWS rows, where one direction a solve took S x A (most of a solve's cost at a few
+    rows is fixed).
+
+    Every row keeps the diffraction orders and lattice-sum terms that the widest row of its
+    solve needs: each direction's numbers are those of its own solve to within the model's
+    ``tolerance`` (terms each below it), not bit for bit.
     """
     values = dict(values or {})
     params = design.parameters()
     wl = values.get(WAVELENGTH_PATH, np.asarray(params[WAVELENGTH_PATH], float))
     W, B = len(design.illumination.wavelength_nm), plan.band_offsets_nm.size
+    A = len(plan.angles_deg)
     wl_all = np.reshape(np.reshape(wl, (W, 1)) + plan.band_offsets_nm[None, :], (W * B,))
-    solved = design.with_wavelengths(getval(wl_all))
     weights = (plan.angle_weights[:, None] * plan.band_weights[None, :]).reshape(-1)
     cos_t = np.repeat(np.cos(np.deg2rad(plan.angles_deg[:, 0])), B)
+    per_solve = max(1, MAX_ROWS // (W * B)) if plan.cone else 1
+    groups = [range(a, min(a + per_solve, A)) for a in range(0, A, per_solve)]
     out = []
     for s in range(plan.n_samples):
         vals = dict(values)
-        vals[WAVELENGTH_PATH] = wl_all
         for j, p in enumerate(plan.paths):
             vals[p] = values.get(p, params[p]) + plan.offsets[s, j]
-        per_angle = []
-        for polar, azimuth in plan.angles_deg:
+        per_group = []
+        for group in groups:
+            n = len(group)
+            # rows (wavelength, direction, band node), the band nodes fastest
+            rows = np.reshape(np.broadcast_to(np.reshape(wl_all, (W, 1, B)), (W, n, B)),
+                              (W * n * B,))
+            vals[WAVELENGTH_PATH] = rows
             if plan.cone:
-                vals[POLAR_PATH], vals[AZIMUTH_PATH] = float(polar), float(azimuth)
-            q = compute_quantities(solved, vals)
-            per_angle.append({k: np.reshape(np.real(v), (W, 1, B)) for k, v in q.items()})
-        stacked = {k: np.reshape(np.concatenate([d[k] for d in per_angle], axis=1),
-                                 (W, -1)) for k in per_angle[0]}
+                angles = plan.angles_deg[list(group)]
+                vals[POLAR_PATH], vals[AZIMUTH_PATH] = (
+                    onp.broadcast_to(angles[None, :, i, None], (W, n, B)).reshape(-1)
+                    for i in (0, 1))
+            q = compute_quantities(design.with_wavelengths(getval(rows)), vals)
+            per_group.append({k: np.reshape(np.real(v), (W, n, B)) for k, v in q.items()})
+        stacked = {k: np.reshape(np.concatenate([d[k] for d in per_group], axis=1),
+                                 (W, -1)) for k in per_group[0]}
         if weights.size == 1:   # no cone, no band: the solve itself (exactly nominal)
             out.append({k: v[:, 0] for k, v in stacked.items()})
         else:
