@@ -171,6 +171,29 @@ def test_reflected_matrix_is_the_order_sum_of_its_channel_vectors(N, lmax):
                                 rtol=1e-13, atol=1e-13 * onp.abs(direct).max())
 
 
+@pytest.mark.parametrize("lmax", [1, 2, 4])
+def test_channel_maps_moved_onto_the_columns_give_the_channel_vectors_products(lmax):
+    # common practice, no source: (channel vectors of P) @ X equals P @ (the channel map
+    # applied to the columns X), for reception (with its m -> -m gather) and emission, up
+    # and down, so the one-particle VJP never makes the channel vectors
+    from chiropt.multipole.reflected import _folded_channels
+    from chiropt.sphericalwaves import channel_modes
+
+    W, G, T = 2, 5, 3
+    K = lmax * (lmax + 2)
+    rng = onp.random.default_rng(lmax)
+    P = rng.normal(size=(W, G, 2, K)) + 1j * rng.normal(size=(W, G, 2, K))
+    X = rng.normal(size=(W, 2 * K, T)) + 1j * rng.normal(size=(W, 2 * K, T))
+    for kind in ("receive", "emit"):
+        for down in (False, True):
+            direct = onp.matmul(onp.reshape(channel_modes(P, kind, lmax, down), (W, 2 * G, 2 * K)),
+                                X).reshape(W, G, 2, T)
+            folded = onp.matmul(P.reshape(W, G, 2 * K),
+                                _folded_channels(X, kind == "receive", lmax, down))
+            onp.testing.assert_allclose(folded.reshape(W, G, 2, T), direct, rtol=1e-13,
+                                        atol=1e-13 * onp.abs(direct).max())
+
+
 @pytest.mark.parametrize("at", ["ordinary", "normal", "grazing"])
 @pytest.mark.parametrize("lmax", [1, 3])
 def test_projection_and_channel_primitives_against_finite_differences(at, lmax):

@@ -132,10 +132,15 @@ def _reflected_cotangents(args, argnums, F):
     wanted = [i for i in argnums if 3 <= i <= 6]
     if not wanted:
         return [], None
-    recv = channel_modes(P, "receive", lmax)
-    emit = channel_modes(P, "emit", lmax, down=True)
     inner = {3: 0, 4: 1, 5: 5, 6: 3}          # positions of low_rank_cotangents (5: P)
-    low = low_rank_cotangents((rc, r, recv, ph, emit), [inner[i] for i in wanted], F, lmax)
+    if onp.shape(rc)[-1] == 1:   # one particle per cell: the channel maps act on columns
+        low = low_rank_cotangents((rc, r, None, ph, None), [inner[i] for i in wanted], F,
+                                  lmax, P=P)
+    else:
+        recv = channel_modes(P, "receive", lmax)
+        emit = channel_modes(P, "emit", lmax, down=True)
+        low = low_rank_cotangents((rc, r, recv, ph, emit), [inner[i] for i in wanted], F,
+                                  lmax)
 
     def contract(u):
         return dict(zip(wanted, low(u), strict=True))

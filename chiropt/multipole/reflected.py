@@ -124,12 +124,39 @@ def _channel_blocks(terms):
     return h, onp.array(coef)
 
 
-def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
+def _folded_channels(X, receive: bool, lmax: int, down: bool):
+    """M (W, 2K, 2T) with channel_modes(P) @ X = P (W, G, 2K) @ M, for mode columns X
+    (W, 2K, T): the channel map (``chiropt.sphericalwaves.channel_tables``) moved onto the
+    columns, so the channel vectors of every order need not be made. Autograd operations
+    on X (linear in it).
+
+    With out[c, k, N] = a_c P[1 - c, perm k] and out[c, k, M] = b_c P[c, perm k]:
+    M[(c', perm k), (c, t)] = a_c X[(k, N), t] where c' = 1 - c, b_c X[(k, M), t] where
+    c' = c.
+    """
+    perm, inv, a0, a1, b = channel_tables(receive, lmax, down)
+    W, K2, T = onp.shape(X)
+    K = K2 // 2
+    X4 = np.reshape(X, (W, K, 2, T))
+    XN, XM = X4[:, :, 0], X4[:, :, 1]                                # (W, K, T)
+    col = lambda f: f[None, :, None]                                 # noqa: E731
+    M = np.stack([np.stack([col(b[0]) * XM, col(a1) * XN], axis=2),  # c' = 0: c = 0, 1
+                  np.stack([col(a0) * XN, col(b[1]) * XM], axis=2)],  # c' = 1
+                 axis=1)                                             # (W, c', K, c, T)
+    if receive:
+        M = M[:, :, inv]
+    return np.reshape(M, (W, K2, 2 * T))
+
+
+def low_rank_cotangents(args, argnums, F, lmax: int | None = None, P=None):
     """Cotangents of (rc, r, recv, ph, emit) for a cotangent u F^T of W (module docstring).
 
     Parameters
     ----------
-    args : (rc (W, G, N), r (W, G, 2), recv (W, G, 2, 2K), ph (W, G, N), emit (W, G, 2, 2K))
+    args : (rc (W, G, N), r (W, G, 2), recv (W, G, 2, 2K), ph (W, G, N), emit (W, G, 2, 2K));
+        with one particle per cell recv and emit may be None when ``P`` is given and
+        positions 2 and 4 are not wanted (the channel maps are then applied to the mode
+        columns: :func:`_folded_channels`)
     argnums : positions (0-4) of the wanted arguments; 5 for the cotangent of the
         projections P (W, G, 2, K) when recv and emit are the reception vectors of the
         upward and the emission vectors of the downward orders made from P
@@ -138,7 +165,8 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
         (channel, N or M) instead of 2K
     F : (W, N 2K, 2) — the right factor (the outgoing coefficients, one column per
         helicity), fixed by the forward pass
-    lmax : the multipole degree (needed for position 5)
+    lmax : the multipole degree (needed for position 5 and with ``P``)
+    P : (W, G, 2, K), optional — the projections recv and emit are made from
 
     Returns
     -------
@@ -147,17 +175,27 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
     """
     rc, r, recv, ph, emit = args
     W, G, N = onp.shape(rc)
-    K2 = onp.shape(recv)[-1]
     wanted = set(argnums)
+    folded = recv is None
+    if folded and (N != 1 or P is None or wanted & {2, 4}):
+        raise ValueError("recv and emit may be left out only with one particle per cell, "
+                         "the projections P given and their cotangents not wanted")
+    K2 = 2 * onp.shape(P)[-1] if folded else onp.shape(recv)[-1]
     # (W, 2K, 2N) columns (j, t) of F; products over the 2K modes as matrix products
     F_cols = onp.reshape(onp.transpose(onp.reshape(F, (W, N, K2, 2)), (0, 2, 1, 3)),
                          (W, K2, 2 * N))
-    Q = onp.reshape(onp.matmul(onp.reshape(emit, (W, 2 * G, K2)), F_cols), (W, G, 2, N, 2))
+    if folded:
+        P2 = onp.reshape(P, (W, G, K2))
+        Q = onp.reshape(onp.matmul(P2, _folded_channels(F_cols, False, lmax, True)),
+                        (W, G, 2, N, 2))
+    else:
+        Q = onp.reshape(onp.matmul(onp.reshape(emit, (W, 2 * G, K2)), F_cols),
+                        (W, G, 2, N, 2))
     RF = onp.sum(ph[:, :, None, :, None] * Q, axis=3)                 # (W, G, 2, 2)
     phF = onp.transpose(onp.reshape(onp.matmul(ph, onp.reshape(F, (W, N, 2 * K2))),
                                     (W, G, K2, 2)), (0, 1, 3, 2))     # (W, G, t, 2K)
     RF_r = RF * r[..., None]
-    recv2 = onp.reshape(recv, (W, 2 * G, K2))
+    recv2 = None if folded else onp.reshape(recv, (W, 2 * G, K2))
     if 5 in wanted:
         # P_bar = the transposed channel maps applied to r (R F) Z (reception, gathered
         # back m -> -m; Z = rc u) and to (L u) (ph F) (emission): per order, a product of
@@ -192,7 +230,11 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None):
     def contract(u):
         u4 = np.reshape(u, (W, N, K2, 2))
         u_cols = np.reshape(np.transpose(u4, (0, 2, 1, 3)), (W, K2, 2 * N))
-        Y = np.reshape(np.matmul(recv2, u_cols), (W, G, 2, N, 2))      # [g, c, n, t]
+        if folded:
+            Y = np.reshape(np.matmul(P2, _folded_channels(u_cols, True, lmax, False)),
+                           (W, G, 2, N, 2))                            # [g, c, n, t]
+        else:
+            Y = np.reshape(np.matmul(recv2, u_cols), (W, G, 2, N, 2))
         S = np.sum(rc[:, :, None, :, None] * Y, axis=3)                # (W, G, 2, 2)
         Lu = r[..., None] * S
         Z = None
