@@ -12,10 +12,12 @@ modules frozen for the garbage collector):
 2. packed value + exact Jacobian of every row, as the gradient algorithms call it (one
    forward pass with the tape, then the reverse walk for the physics rows), and its ratio
    to 1; both again at a new design each call (1e-7 apart), as a search calls them;
-3. the number of primitive operations on the tape of one evaluation (autograd nodes) and
+3. one geometry solved at 1, 5 and 21 wavelengths in one call, fitted as a fixed cost
+   plus a cost per wavelength (goals with a wavelength variable);
+4. the number of primitive operations on the tape of one evaluation (autograd nodes) and
    the number of physics rows (one stacked reverse walk since chiropt.stacked_reverse;
    one reverse pass each before);
-4. with the first goal only (unless ``--no-run``): its first material run in this process
+5. with the first goal only (unless ``--no-run``): its first material run in this process
    on one core into a temporary folder, store and report included: evaluations per hour
    per core, and where that run's CPU time went (the exploration's scans, forward and
    gradient evaluations, the report, the rest).
@@ -76,6 +78,24 @@ class _FreshDesigns:
         return self.x * (1.0 + 1e-7 * self.i)
 
 
+def _fixed_cost(P: GoalProblem, x) -> tuple[float | None, float | None]:
+    """Forward cost of one geometry solved at S = 1, 5, 21 wavelengths in one call, fitted
+    as fixed + per wavelength [s] (the fixed part: per-call work that does not grow with
+    the arithmetic); (None, None) for goals without a wavelength variable."""
+    from chiropt.goals.scan import scan_wavelengths
+
+    if P.shift_index is None:
+        return None, None
+    lo, hi = P.lower[P.shift_index], P.upper[P.shift_index]
+    mid, half = 0.5 * (lo + hi), 0.05 * (hi - lo)
+    sizes = (1, 5, 21)
+    times = [best_cpu_seconds(lambda S=S: scan_wavelengths(
+        P, x, onp.linspace(mid - half, mid + half, S) if S > 1 else onp.array([mid])))
+        for S in sizes]
+    per_wl, fixed = onp.polyfit(sizes, times, 1)
+    return float(fixed), float(per_wl)
+
+
 def per_evaluation(path: Path) -> None:
     goal = load_goal(str(path))[0]
     P = GoalProblem(goal)
@@ -86,6 +106,7 @@ def per_evaluation(path: Path) -> None:
     f_fwd = best_cpu_seconds(lambda: P.evaluate(fresh(), False))
     f_jac = best_cpu_seconds(lambda: P.evaluate(fresh(), True))
     nodes, passes = _tape(P, x)
+    fixed, per_wl = _fixed_cost(P, x)
     print(f"goal {path.name}: {len(P.paths)} variables, {P.n_objectives} objectives, "
           f"{P.n_constraints} constraints, {len(P.wavelengths_nm)} wavelength(s), "
           f"design at the box centre {onp.round(x, 3).tolist()}")
@@ -94,6 +115,9 @@ def per_evaluation(path: Path) -> None:
           f"({t_jac / t_fwd:.1f} x forward)")
     print(f"  at a new design each call:       {1e3 * f_fwd:8.1f} ms forward, "
           f"{1e3 * f_jac:.1f} ms value + Jacobian ({f_jac / f_fwd:.1f} x)")
+    if fixed is not None:
+        print(f"  one geometry over S wavelengths (the goal's model): {1e3 * fixed:.1f} ms "
+              f"fixed + {1e3 * per_wl:.2f} ms per wavelength")
     print(f"  tape: {nodes} primitive operations, {passes} physics rows")
     print(f"  per core, gradient evaluations only: {3600 / t_jac:,.0f} per hour")
 
