@@ -112,17 +112,7 @@ def plot_front(path, problem, records, F, feasible, chosen, picks, confirmed=Non
                     ax.plot([a[0], b[0]], [a[1], b[1]], color=FRONT_COLOR, lw=0.6, ls=":")
                 ax.scatter(Cf[:, 0], Cf[:, 1], s=22, facecolors="none",
                            edgecolors=FRONT_COLOR, lw=1.0, label="confirmed (rigorous model)")
-            span = onp.ptp(F[fe], axis=0) if fe.any() else onp.ones(2)
-            span = onp.where(span > 0, span, 1.0)
-            placed: list = []
-            for j in picks:
-                # label a candidate only where it does not crowd one already labelled
-                pos = Fc[j] / span
-                if any(onp.hypot(*(pos - other)) < 0.06 for other in placed):
-                    continue
-                placed.append(pos)
-                ax.annotate(f"c{j:03d}", Fc[j], textcoords="offset points", xytext=(4, 4),
-                            fontsize=7)
+            _label_uncrowded(ax, Fc, picks, F[fe] if fe.any() else Fc)
         ax.set_xlabel(_axis_label(labels[0]))
         ax.set_ylabel(_axis_label(labels[1]))
         ax.set_title("objective space")
@@ -185,6 +175,24 @@ def plot_front(path, problem, records, F, feasible, chosen, picks, confirmed=Non
     return path
 
 
+def _label_uncrowded(ax, points, picks, cloud) -> None:
+    """Label candidate j at ``points[j]`` (x, y) as ``c<j>``, skipping one that would sit
+    closer than 6% of the cloud's span to a label already placed (crowded labels overlap
+    unreadably; the candidates table names them all)."""
+    span = onp.ptp(onp.asarray(cloud, float), axis=0)
+    span = onp.where(onp.isfinite(span) & (span > 0), span, 1.0)
+    placed: list = []
+    for j in picks:
+        if not 0 <= j < len(points) or not onp.all(onp.isfinite(points[j])):
+            continue
+        pos = onp.asarray(points[j], float) / span
+        if any(onp.hypot(*(pos - other)) < 0.06 for other in placed):
+            continue
+        placed.append(pos)
+        ax.annotate(f"c{j:03d}", tuple(points[j]), textcoords="offset points", xytext=(4, 4),
+                    fontsize=7)
+
+
 def _capacity_panel(ax, problem, records, fe, chosen, picks) -> None:
     """Where the CD comes from: g_ev against cd_capacity (|g_ev| <= cd_capacity, the
     diagonals; docs/theory.md §18), coloured by the evanescent share; front designs ringed.
@@ -206,10 +214,8 @@ def _capacity_panel(ax, problem, records, fe, chosen, picks) -> None:
         cc, gc = values(chosen, "cd_capacity"), values(chosen, "g_ev")
         ax.scatter(cc, gc, c=values(chosen, "ev_share"), s=36, cmap="cividis", vmin=0, vmax=1,
                    edgecolors=FRONT_COLOR, linewidths=1.0, label="front designs")
-        for j in picks:
-            if 0 <= j < len(chosen):
-                ax.annotate(f"c{j:03d}", (cc[j], gc[j]), textcoords="offset points",
-                            xytext=(4, 4), fontsize=7)
+        _label_uncrowded(ax, onp.stack([cc, gc], axis=1), picks,
+                         onp.stack([cap, gev], axis=1) if cap.size else onp.ones((1, 2)))
     cb = ax.figure.colorbar(sc, ax=ax)
     where = axis_where(spec_label(spec, problem))
     cb.set_label(f"evanescent share of intensity at {where} [-]")
