@@ -127,6 +127,9 @@ class _Scatter:
         Z[self.index] += self.G
         return Z
 
+    def dense(self):
+        return self.add_into(onp.zeros(self.shape, self.dtype))
+
 
 def _getitem(G, node, i):
     A, idx = node.args[0], node.args[1]
@@ -276,15 +279,10 @@ def _accumulate(prev, B):
     same order as a new array each time."""
     scatter = type(B) is _Scatter
     if prev is None:
-        if scatter:
-            return B.add_into(onp.zeros(B.shape, B.dtype)), True
-        return B, False
+        return (B.dense(), True) if scatter else (B, False)
     prev, mutable = prev
     if type(prev) is _Rows or type(B) is _Rows:
-        if scatter:
-            B = B.add_into(onp.zeros(B.shape, B.dtype))
-        if type(prev) is not _Rows and type(B) is not _Rows:
-            return prev + B, True
+        B = B.dense() if scatter else B
         return _Rows(vspace(a).add(a, b) for a, b in zip(prev, B, strict=True)), False
     dtype = onp.result_type(prev, B.dtype if scatter else B)
     fits = type(prev) is onp.ndarray and prev.dtype == dtype and \

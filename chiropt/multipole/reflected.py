@@ -130,19 +130,15 @@ def _folded_channels(X, receive: bool, lmax: int, down: bool):
     columns, so the channel vectors of every order need not be made. Autograd operations
     on X (linear in it).
 
-    With out[c, k, N] = a_c P[1 - c, perm k] and out[c, k, M] = b_c P[c, perm k]:
-    M[(c', perm k), (c, t)] = a_c X[(k, N), t] where c' = 1 - c, b_c X[(k, M), t] where
-    c' = c.
+    With the terms of :func:`_channel_terms` as blocks over (vector channel c, projection
+    channel c'): M[(c', perm k), (c, t)] = factor[c, c'][k] X[(k, h[c, c']), t].
     """
     perm, inv, a0, a1, b = channel_tables(receive, lmax, down)
+    h, coef = _channel_blocks(_channel_terms(a0, a1, b))             # [c, c'], [c, c', k]
     W, K2, T = onp.shape(X)
-    K = K2 // 2
-    X4 = np.reshape(X, (W, K, 2, T))
-    XN, XM = X4[:, :, 0], X4[:, :, 1]                                # (W, K, T)
-    col = lambda f: f[None, :, None]                                 # noqa: E731
-    M = np.stack([np.stack([col(b[0]) * XM, col(a1) * XN], axis=2),  # c' = 0: c = 0, 1
-                  np.stack([col(a0) * XN, col(b[1]) * XM], axis=2)],  # c' = 1
-                 axis=1)                                             # (W, c', K, c, T)
+    X4 = np.reshape(X, (W, K2 // 2, 2, T))
+    M = X4[:, :, h] * onp.transpose(coef, (2, 0, 1))[None, :, :, :, None]   # (W, k, c, c', T)
+    M = np.transpose(M, (0, 3, 1, 2, 4))                             # (W, c', k, c, T)
     if receive:
         M = M[:, :, inv]
     return np.reshape(M, (W, K2, 2 * T))

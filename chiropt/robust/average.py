@@ -165,25 +165,29 @@ def sample_quantities(design: Design, values: dict[str, Any] | None, plan: Sampl
     # direction a solve (measured: 190-210 ms per row at 1 to 16 rows, 97 harmonics)
     batched = plan.cone and design.solver != "fourier"
     per_solve = max(1, MAX_ROWS // (W * B)) if batched else 1
-    groups = [range(a, min(a + per_solve, A)) for a in range(0, A, per_solve)]
+    # each solve's rows (wavelength, direction, band node), the band nodes fastest, and
+    # their angles: the same for every sample
+    solves = []
+    for a in range(0, A, per_solve):
+        n = min(per_solve, A - a)
+        rows = np.reshape(np.broadcast_to(np.reshape(wl_all, (W, 1, B)), (W, n, B)),
+                          (W * n * B,))
+        angles = {}
+        if plan.cone:
+            for i, path in enumerate((POLAR_PATH, AZIMUTH_PATH)):
+                angles[path] = onp.broadcast_to(plan.angles_deg[None, a:a + n, i, None],
+                                                (W, n, B)).reshape(-1)
+        solves.append((n, rows, design.with_wavelengths(getval(rows)), angles))
     out = []
     for s in range(plan.n_samples):
         vals = dict(values)
         for j, p in enumerate(plan.paths):
             vals[p] = values.get(p, params[p]) + plan.offsets[s, j]
         per_group = []
-        for group in groups:
-            n = len(group)
-            # rows (wavelength, direction, band node), the band nodes fastest
-            rows = np.reshape(np.broadcast_to(np.reshape(wl_all, (W, 1, B)), (W, n, B)),
-                              (W * n * B,))
+        for n, rows, solved, angles in solves:
             vals[WAVELENGTH_PATH] = rows
-            if plan.cone:
-                angles = plan.angles_deg[list(group)]
-                vals[POLAR_PATH], vals[AZIMUTH_PATH] = (
-                    onp.broadcast_to(angles[None, :, i, None], (W, n, B)).reshape(-1)
-                    for i in (0, 1))
-            q = compute_quantities(design.with_wavelengths(getval(rows)), vals)
+            vals.update(angles)
+            q = compute_quantities(solved, vals)
             per_group.append({k: np.reshape(np.real(v), (W, n, B)) for k, v in q.items()})
         stacked = {k: np.reshape(np.concatenate([d[k] for d in per_group], axis=1),
                                  (W, -1)) for k in per_group[0]}
