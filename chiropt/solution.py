@@ -124,10 +124,12 @@ class Solution:
         return _vectors(self.incident_sp[:, :, None, :], o.s[:, :1], o.p_down[:, :1])[:, :, 0]
 
 
-def make_orders(structure: Structure, g_max: float, k_par=None) -> OrderSet:
+def make_orders(structure: Structure, g_max: float | None, k_par=None, mn=None) -> OrderSet:
     """Orders with |G| <= g_max [1/m] and their host plane-wave data (``k_par``: the
-    structure's Bloch wavevector (W, 2) [1/m], if already computed)."""
-    mn = order_indices(structure.lattice, g_max)
+    structure's Bloch wavevector (W, 2) [1/m], if already computed; ``mn``: the order
+    indices (G, 2) themselves, instead of ``g_max``)."""
+    if mn is None:
+        mn = order_indices(structure.lattice, g_max)
     q = order_wavevectors(structure.lattice, structure.k_par if k_par is None else k_par, mn)
     qq = q[..., 0] ** 2 + q[..., 1] ** 2
     kh = structure.k[:, None]

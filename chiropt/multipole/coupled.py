@@ -36,7 +36,12 @@ import numpy as onp
 from autograd.extend import defvjp_argnums, primitive
 
 from chiropt.autodiff import ForwardStash
-from chiropt.multipole.reflected import low_rank_cotangents, reflected_matrix_from_projections
+from chiropt.multipole.reflected import (
+    fold_classes,
+    low_rank_cotangents,
+    reflected_matrix_from_projections,
+    split_columns,
+)
 from chiropt.sphericalwaves import channel_modes
 
 _STASH = ForwardStash()
@@ -51,10 +56,12 @@ def coupled_solve(Tb, W_lat, b, reflected=None):
     W_lat : (W, M, M) — lattice coupling (translation of the lattice-summed outgoing waves
         into regular waves at every particle) [-]
     b : (W, 2, M) — exciting coefficients of the background field, helicities [+1, -1] [V/m]
-    reflected : tuple (rc, r, P, ph, lmax) or None — the stack-reflected coupling
+    reflected : tuple (rc, r, P, ph, lmax[, fold]) or None — the stack-reflected coupling
         (``chiropt.multipole.reflected``): receiving phases rc (W, G, N), reflection
         coefficients r (W, G, 2), projections P (W, G, 2, K) of the upward orders
-        (``chiropt.sphericalwaves.order_projections``), emitting phases ph (W, G, N), lmax
+        (``chiropt.sphericalwaves.order_projections``), emitting phases ph (W, G, N), lmax,
+        and the rotation order ``fold`` of orders given one per orbit (default 1: every
+        order; ``reflected_matrix_from_projections``)
 
     Returns
     -------
@@ -64,15 +71,16 @@ def coupled_solve(Tb, W_lat, b, reflected=None):
     ----------
     Module docstring; docs/theory.md §9.
     """
-    args = (Tb, W_lat, b) + (tuple(reflected) if reflected is not None else (None,) * 5)
+    refl = tuple(reflected) if reflected is not None else (None,) * 5
+    args = (Tb, W_lat, b) + refl + ((1,) if len(refl) == 5 else ())
     out = _coupled(*args)
     return out[0], out[1]
 
 
-def _forward(Tb, W_lat, b, rc, r, P, ph, lmax):
+def _forward(Tb, W_lat, b, rc, r, P, ph, lmax, fold=1):
     Wmat = onp.asarray(W_lat)
     if rc is not None:
-        Wmat = Wmat + reflected_matrix_from_projections(rc, r, P, ph, lmax)
+        Wmat = Wmat + reflected_matrix_from_projections(rc, r, P, ph, lmax, fold)
     M = Wmat.shape[-1]
     A = onp.eye(M)[None] - onp.matmul(Tb, Wmat)
     bT = onp.transpose(b, (0, 2, 1))                                   # (W, M, 2)
@@ -83,9 +91,9 @@ def _forward(Tb, W_lat, b, rc, r, P, ph, lmax):
 
 
 @primitive
-def _coupled(Tb, W_lat, b, rc, r, P, ph, lmax):
+def _coupled(Tb, W_lat, b, rc, r, P, ph, lmax, fold=1):
     """[f, e] stacked, (2, W, 2, M) (:func:`coupled_solve`)."""
-    out, parts = _forward(Tb, W_lat, b, rc, r, P, ph, lmax)
+    out, parts = _forward(Tb, W_lat, b, rc, r, P, ph, lmax, fold)
     _STASH.put(out, None, parts)
     return out
 
@@ -129,9 +137,15 @@ def _reflected_cotangents(args, argnums, F):
     cotangent of P comes through the transposed channel maps in factored form.
     """
     rc, r, P, ph, lmax = args[3:8]
+    fold = args[8] if len(args) > 8 else 1
     wanted = [i for i in argnums if 3 <= i <= 6]
     if not wanted:
         return [], None
+    # orders one per orbit of a rotation: the cotangent of the unmasked sum is
+    # mask * (u F^T) = split(u) split(F)^T, of rank 2 fold (reflected.split_columns)
+    chi = fold_classes(lmax, onp.shape(rc)[-1], fold) if fold > 1 else None
+    if chi is not None:
+        F = split_columns(F, chi)
     inner = {3: 0, 4: 1, 5: 5, 6: 3}          # positions of low_rank_cotangents (5: P)
     if onp.shape(rc)[-1] == 1:   # one particle per cell: the channel maps act on columns
         low = low_rank_cotangents((rc, r, None, ph, None), [inner[i] for i in wanted], F,
@@ -143,7 +157,8 @@ def _reflected_cotangents(args, argnums, F):
                                   lmax)
 
     def contract(u):
-        return dict(zip(wanted, low(u), strict=True))
+        return dict(zip(wanted, low(u if chi is None else split_columns(u, chi)),
+                        strict=True))
 
     return wanted, contract
 

@@ -51,6 +51,7 @@ from chiropt.lattice import Lattice, order_indices, splitting_parameter
 from chiropt.lattice.bravais import integer_pairs_within
 from chiropt.lattice import tangents as T
 from chiropt.lattice.orders import KZ_FLOOR, kz_branch
+from chiropt.lattice.symmetry import orbit_weights, shape_rotation
 from chiropt.sphericalwaves import harmonics_and_derivatives
 
 _SQRT_PI = math.sqrt(math.pi)
@@ -131,11 +132,12 @@ def _gamma(k, qx, qy):
     return T.Tangent(-1j * kz, -1j * dkz)
 
 
-def _spectral(k, kpar, a1, a2, rho, z, E, mn, pmax):
+def _spectral(k, kpar, a1, a2, rho, z, E, mn, pmax, weights=None):
     """Spectral part: sum over orders of Y_pM(i q_x, i q_y, d/dz) exp(i q.rho) F(z)/gamma.
 
     Arrays or ``Tangent`` values: k (W,), kpar (kx (W,), ky (W,)), a1, a2 (pairs of
-    components), rho (x (P,), y (P,)), z (P,); E (W,) and the order indices mn plain.
+    components), rho (x (P,), y (P,)), z (P,); E (W,) and the order indices mn plain;
+    ``weights`` (G,), plain: each order's term times its weight (:func:`_sum_fold`).
     """
     b1, b2, area = _reciprocal(a1, a2)
     m, n = mn[:, 0].astype(float), mn[:, 1].astype(float)
@@ -173,6 +175,8 @@ def _spectral(k, kpar, a1, a2, rho, z, E, mn, pmax):
     radial = T.matmul(basis, coef.reshape(coef.shape[0], -1).T)       # (W, P, G, J)
     phase = T.exp(1j * (qx[:, None, :] * rho[0][None, :, None]
                         + qy[:, None, :] * rho[1][None, :, None])) / (4.0 * area)
+    if weights is not None:
+        phase = phase * weights
     return T.sum(phase[..., None] * (angular[:, None] * radial), axis=2)
 
 
@@ -191,11 +195,12 @@ def _harmonics(ux, uy, uz, pmax):
     return T.Tangent(Y, t)
 
 
-def _spatial(k, kpar, a1, a2, d, E, nm, pmax, self_tol2):
+def _spatial(k, kpar, a1, a2, d, E, nm, pmax, self_tol2, weights=None):
     """Spatial part (sum over lattice points) and the self-term correction.
 
     Arrays or ``Tangent`` values: k (W,), kpar and a1, a2 as pairs of components, d as
-    three components (each (P,)); E (W,) and the integer pairs nm plain.
+    three components (each (P,)); E (W,) and the integer pairs nm plain; ``weights``
+    (N,), plain: each lattice point's term times its weight (:func:`_sum_fold`).
     """
     n1, n2 = nm[:, 0].astype(float), nm[:, 1].astype(float)
     Rx = n1 * a1[0] + n2 * a2[0]                                       # (N,)
@@ -230,6 +235,8 @@ def _spatial(k, kpar, a1, a2, d, E, nm, pmax, self_tol2):
     radial = per_p[..., ps]                                            # (W, P, N, J)
     phase = T.exp(1j * (kpar[0][:, None] * Rx[None, :] + kpar[1][:, None] * Ry[None, :]))
     keep = (~is_self).astype(float)
+    if weights is not None:
+        keep = keep * weights
     out = T.sum((phase[:, None, :] * keep[None])[..., None] * (radial * Y[None]), axis=2)
     if onp.any(is_self):
         ex = T.exp((k / (2 * E)) ** 2)
@@ -300,6 +307,36 @@ def _sizes(shape):
     return _ARG_SIZES if shape is None else (1, 2, 1, 0, 3)
 
 
+def _sum_fold(shape, wrt, k_par, d, mn, nm, pmax):
+    """Both sums over one order (lattice point) per orbit of the lattice's rotation, where
+    every member's term is the representative's times e^(i M alpha): the Bloch vector
+    and the displacement plain zeros (normal incidence, one particle per cell), so q = G
+    and d - R = -R, whose radial factors depend on |q|, |R| only and whose angular
+    factors (q_x +- i q_y)^|M| and Y_pM(R_hat) turn with e^(i M alpha). Then D_pM is n
+    times the representatives' weighted sum where M = 0 (mod n) and zero elsewhere
+    (docs/theory.md §10; ``chiropt.lattice.symmetry``). A lattice of fixed shape keeps its
+    full rotation under a derivative along its length, any lattice G -> -G under any.
+
+    Returns (mn, weights, nm, weights, mask (J,)) or None (no fold).
+    """
+    if 1 in wrt or 4 in wrt or onp.any(k_par) or onp.any(d):
+        return None
+    n, M, N = shape_rotation(shape)
+    spec, spat = orbit_weights(mn, n, M), orbit_weights(nm, n, N)
+    if spec is None or spat is None:
+        return None
+    return (*spec, *spat, _fold_mask(n, pmax))
+
+
+@cache
+def _fold_mask(n: int, pmax: int) -> onp.ndarray:
+    """(J,) 1.0 where M = 0 (mod n) over the (p, M) index p (p + 1) + M, else 0."""
+    ms = onp.array([m for p in range(pmax + 1) for m in range(-p, p + 1)])
+    out = (onp.mod(ms, n) == 0).astype(float)
+    out.setflags(write=False)
+    return out
+
+
 def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=(), shape=None):
     """D_pM (W, P, J) and, for the arguments ``wrt``, dD along their input directions.
 
@@ -334,6 +371,10 @@ def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=(), shape=None):
     b1, b2 = latp.reciprocal()
     mn = order_indices(latp, q_cut + kpar_max)
     nm = integer_pairs_within(latp.a1, latp.a2, b1, b2, r_cut + rho_max)
+    fold = _sum_fold(shape, wrt, kparv, dv, mn, nm, pmax)
+    w_spec = w_spat = None
+    if fold is not None:
+        mn, w_spec, nm, w_spat, mask = fold
     groups = [[ksv], [kparv[:, 0] * scale, kparv[:, 1] * scale], list(a1v / scale),
               list(a2v / scale), list(dv.T / scale)]
     units = [scale, scale, 1.0 / scale, 1.0 / scale, 1.0 / scale]   # d(scaled)/d(input)
@@ -352,10 +393,14 @@ def _kernel(k, k_par, a1, a2, d, pmax, tol, splitting, wrt=(), shape=None):
             unit += [units[i]] * sizes[i]
         seeded += sizes[i]
     (ks,), (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy, dz) = groups
-    spec = _spectral(ks, (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy), dz, Es, mn, pmax)
-    spat = _spatial(ks, (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy, dz), Es, nm, pmax, 1e-24)
+    spec = _spectral(ks, (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy), dz, Es, mn, pmax,
+                     w_spec)
+    spat = _spatial(ks, (kpx, kpy), (a1x, a1y), (a2x, a2y), (dx, dy, dz), Es, nm, pmax, 1e-24,
+                    w_spat)
     ps = onp.array([p for p in range(pmax + 1) for _ in range(-p, p + 1)])
     pref = (4 * math.pi / 1j) * (-1.0) ** ps * ks[:, None, None] ** (-(ps + 1.0))
+    if fold is not None:
+        pref = pref * mask
     out = (spec + spat) * pref
     if not wrt:
         return out

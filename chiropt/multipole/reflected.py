@@ -39,14 +39,24 @@ per reverse pass instead of elementwise channel sums over every order.
 
 from __future__ import annotations
 
+from functools import cache
+
 import autograd.numpy as np
 import numpy as onp
 
-from chiropt.sphericalwaves import channel_tables
+from chiropt.sphericalwaves import channel_tables, mode_table
 
 
-def reflected_matrix_from_projections(rc, r, P, ph, lmax: int):
+def reflected_matrix_from_projections(rc, r, P, ph, lmax: int, fold: int = 1):
     """W (W, N 2K, N 2K) from the projections P (W, G, 2, K) of the upward orders, plain.
+
+    ``fold`` = n > 1: the orders are one representative per orbit of a rotation by
+    2 pi / n that leaves every order's weight unchanged (normal incidence, one particle
+    per cell; ``chiropt.lattice.symmetry``), each weighted by its orbit's size in ``ph``.
+    The projections of the rotated order are e^(i m alpha) times the representative's
+    (rotation of the spherical harmonics and of s, p), so the orbit sum of the mode pair
+    (a, b) is n [m_a = m_b mod n] times the representative's: the full sum is that of the
+    representatives with the entries m_a != m_b (mod n) set to zero (:func:`fold_classes`).
 
     The sum W = L^T R of the module docstring with recv the reception vectors of P and
     emit the downward emission vectors (``chiropt.sphericalwaves.channel_modes``), without
@@ -79,7 +89,33 @@ def reflected_matrix_from_projections(rc, r, P, ph, lmax: int):
                                 + br[1][:, None, None] * a1e * Gm[:, 1, :, 1, :, :, 0])
     out[:, :, :, 1, :, :, 1] = (br[0][:, None, None] * be[0] * Gm[:, 0, :, 0, :, :, 0]
                                 + br[1][:, None, None] * be[1] * Gm[:, 1, :, 1, :, :, 1])
-    return out.reshape(W, N * 2 * K, N * 2 * K)
+    out = out.reshape(W, N * 2 * K, N * 2 * K)
+    if fold > 1:
+        chi = fold_classes(lmax, N, fold)
+        out *= onp.any(chi[:, :, None] & chi[:, None, :], axis=0)
+    return out
+
+
+@cache
+def fold_classes(lmax: int, N: int, fold: int) -> onp.ndarray:
+    """(fold, N 2K) bool: chi[c, a] = (m_a = c mod fold) over the modes a = (particle, l,
+    m, N/M) of a cell (``chiropt.sphericalwaves.mode_table``); the coupling between modes
+    of different classes vanishes under the rotation (:func:`reflected_matrix_from_
+    projections`), so the mask is sum_c chi[c, a] chi[c, b] = chi^T chi."""
+    _, _, ms = mode_table(lmax)
+    m = onp.tile(ms, N)
+    out = onp.stack([onp.mod(m, fold) == c for c in range(fold)])
+    out.setflags(write=False)
+    return out
+
+
+def split_columns(X, chi):
+    """(W, M, T) -> (W, M, T n): the columns of X restricted to each class of ``chi`` (n, M),
+    class-major; autograd operations (linear in X). With both factors of a product u F^T
+    split, mask * (u F^T) = split(u) split(F)^T for the mask chi^T chi."""
+    W, M, T = onp.shape(X)
+    return np.reshape(np.transpose(X[:, None, :, :] * chi[None, :, :, None], (0, 2, 1, 3)),
+                      (W, M, T * chi.shape[0]))
 
 
 def _one_particle_gram(rc, r, P, ph):
@@ -159,14 +195,15 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None, P=None):
         (``chiropt.sphericalwaves.channel_modes``): the transposed channel maps applied to
         the factored recv_bar = (r R F) Z and emit_bar = (L u) (ph F), K wide per
         (channel, N or M) instead of 2K
-    F : (W, N 2K, 2) — the right factor (the outgoing coefficients, one column per
-        helicity), fixed by the forward pass
+    F : (W, N 2K, T) — the right factor (the outgoing coefficients, one column per
+        helicity; more columns when a symmetry splits them, ``reflected_matrix_from_
+        projections``'s ``fold``), fixed by the forward pass
     lmax : the multipole degree (needed for position 5 and with ``P``)
     P : (W, G, 2, K), optional — the projections recv and emit are made from
 
     Returns
     -------
-    ``contract(u) -> tuple`` over ``argnums``, u (W, N 2K, 2); linear in u with autograd
+    ``contract(u) -> tuple`` over ``argnums``, u (W, N 2K, T); linear in u with autograd
     operations (reverse mode applied twice works).
     """
     rc, r, recv, ph, emit = args
@@ -178,18 +215,19 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None, P=None):
                          "the projections P given and their cotangents not wanted")
     K2 = 2 * onp.shape(P)[-1] if folded else onp.shape(recv)[-1]
     # (W, 2K, 2N) columns (j, t) of F; products over the 2K modes as matrix products
-    F_cols = onp.reshape(onp.transpose(onp.reshape(F, (W, N, K2, 2)), (0, 2, 1, 3)),
-                         (W, K2, 2 * N))
+    T = onp.shape(F)[-1]
+    F_cols = onp.reshape(onp.transpose(onp.reshape(F, (W, N, K2, T)), (0, 2, 1, 3)),
+                         (W, K2, T * N))
     if folded:
         P2 = onp.reshape(P, (W, G, K2))
         Q = onp.reshape(onp.matmul(P2, _folded_channels(F_cols, False, lmax, True)),
-                        (W, G, 2, N, 2))
+                        (W, G, 2, N, T))
     else:
         Q = onp.reshape(onp.matmul(onp.reshape(emit, (W, 2 * G, K2)), F_cols),
-                        (W, G, 2, N, 2))
-    RF = onp.sum(ph[:, :, None, :, None] * Q, axis=3)                 # (W, G, 2, 2)
-    phF = onp.transpose(onp.reshape(onp.matmul(ph, onp.reshape(F, (W, N, 2 * K2))),
-                                    (W, G, K2, 2)), (0, 1, 3, 2))     # (W, G, t, 2K)
+                        (W, G, 2, N, T))
+    RF = onp.sum(ph[:, :, None, :, None] * Q, axis=3)                 # (W, G, 2, T)
+    phF = onp.transpose(onp.reshape(onp.matmul(ph, onp.reshape(F, (W, N, T * K2))),
+                                    (W, G, K2, T)), (0, 1, 3, 2))     # (W, G, t, 2K)
     RF_r = RF * r[..., None]
     recv2 = None if folded else onp.reshape(recv, (W, 2 * G, K2))
     if 5 in wanted:
@@ -203,8 +241,8 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None, P=None):
                       for c_out, c_in, h, coef in _channel_terms(a0r, a1r, br)]
         emit_terms = _channel_terms(a0e, a1e, be)
         if N > 1:
-            phF_hk = onp.reshape(onp.transpose(onp.reshape(phF, (W, G, 2, K, 2)),
-                                               (0, 1, 2, 4, 3)), (W, G, 2, 2 * K))  # [g, t, (h k)]
+            phF_hk = onp.reshape(onp.transpose(onp.reshape(phF, (W, G, T, K, 2)),
+                                               (0, 1, 2, 4, 3)), (W, G, T, 2 * K))  # [g, t, (h k)]
         else:
             # one particle per cell: rc and ph are one number per order, so the channel
             # sums below collapse to P_bar[g] = sum_(c, t) (rc r RF)[g, c, t] Ur[c, t] +
@@ -212,10 +250,10 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None, P=None):
             # depend on the order: two products (G, 4) x (4, 2K) per wavelength
             h_r, coef_r = _channel_blocks(recv_terms)
             h_e, coef_e = _channel_blocks(emit_terms)
-            F_hk = onp.transpose(onp.reshape(F, (W, K, 2, 2)), (0, 3, 2, 1))    # [t, h, k]
+            F_hk = onp.transpose(onp.reshape(F, (W, K, 2, T)), (0, 3, 2, 1))    # [t, h, k]
             Ue = onp.reshape(onp.transpose(F_hk[:, :, h_e, :], (0, 2, 1, 3, 4)) * coef_e[:, None],
-                             (W, 4, 2 * K))                                # [(c t), (c' k)]
-            A_r = onp.reshape(rc[:, :, 0, None, None] * RF_r, (W, G, 4))    # [g, (c t)]
+                             (W, 2 * T, 2 * K))                            # [(c t), (c' k)]
+            A_r = onp.reshape(rc[:, :, 0, None, None] * RF_r, (W, G, 2 * T))    # [g, (c t)]
 
     def channel_sums(terms, X):
         """out[c'] = sum over the terms of c' of factor * X[c, h], X (W, G, 2, 2, K)."""
@@ -224,19 +262,19 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None, P=None):
                          for c in (0, 1)], axis=2)
 
     def contract(u):
-        u4 = np.reshape(u, (W, N, K2, 2))
-        u_cols = np.reshape(np.transpose(u4, (0, 2, 1, 3)), (W, K2, 2 * N))
+        u4 = np.reshape(u, (W, N, K2, T))
+        u_cols = np.reshape(np.transpose(u4, (0, 2, 1, 3)), (W, K2, T * N))
         if folded:
             Y = np.reshape(np.matmul(P2, _folded_channels(u_cols, True, lmax, False)),
-                           (W, G, 2, N, 2))                            # [g, c, n, t]
+                           (W, G, 2, N, T))                            # [g, c, n, t]
         else:
-            Y = np.reshape(np.matmul(recv2, u_cols), (W, G, 2, N, 2))
-        S = np.sum(rc[:, :, None, :, None] * Y, axis=3)                # (W, G, 2, 2)
+            Y = np.reshape(np.matmul(recv2, u_cols), (W, G, 2, N, T))
+        S = np.sum(rc[:, :, None, :, None] * Y, axis=3)                # (W, G, 2, T)
         Lu = r[..., None] * S
         Z = None
         if 2 in wanted:
             Z = np.reshape(np.matmul(rc, np.reshape(np.transpose(u4, (0, 1, 3, 2)),
-                                                    (W, N, 2 * K2))), (W, G, 2, K2))
+                                                    (W, N, T * K2))), (W, G, T, K2))
         out = []
         for i in argnums:
             if i == 0:
@@ -251,17 +289,17 @@ def low_rank_cotangents(args, argnums, F, lmax: int | None = None, P=None):
                 v = np.matmul(Lu, phF)                                 # [c, t] @ [t, b]
             else:
                 # Z with the modes gathered m -> -m and the N/M index ahead of them
-                ug = np.transpose(np.reshape(u4, (W, N, K, 2, 2))[:, :, inv_r], (0, 1, 4, 3, 2))
+                ug = np.transpose(np.reshape(u4, (W, N, K, 2, T))[:, :, inv_r], (0, 1, 4, 3, 2))
                 if N == 1:                                                 # [t, h, k]
                     Ur = np.reshape(np.transpose(ug[:, 0][:, :, h_r, :], (0, 2, 1, 3, 4))
-                                    * coef_r[:, None], (W, 4, 2 * K))      # [(c t), (c' k)]
-                    A_e = np.reshape(ph[:, :, 0, None, None] * Lu, (W, G, 4))
+                                    * coef_r[:, None], (W, 2 * T, 2 * K))  # [(c t), (c' k)]
+                    A_e = np.reshape(ph[:, :, 0, None, None] * Lu, (W, G, 2 * T))
                     v = np.reshape(np.matmul(A_r, Ur) + np.matmul(A_e, Ue), (W, G, 2, K))
                     out.append(v)
                     continue
-                ug = np.reshape(ug, (W, N, 4 * K))
+                ug = np.reshape(ug, (W, N, 2 * T * K))
                 Zg = np.matmul(rc, ug)                                     # [g, (t h k)]
-                X = np.matmul(RF_r, np.reshape(Zg, (W, G, 2, 2 * K)))      # [g, c, (h k)]
+                X = np.matmul(RF_r, np.reshape(Zg, (W, G, T, 2 * K)))      # [g, c, (h k)]
                 Yp = np.matmul(Lu, phF_hk)
                 v = (channel_sums(recv_terms, np.reshape(X, (W, G, 2, 2, K)))
                      + channel_sums(emit_terms, np.reshape(Yp, (W, G, 2, 2, K))))

@@ -27,7 +27,7 @@ from typing import Any
 
 import autograd.numpy as np
 import numpy as onp
-from autograd.tracer import getval
+from autograd.tracer import getval, isbox
 
 from chiropt.errors import InputError
 from chiropt.multipole.coupled import coupled_solve
@@ -53,6 +53,7 @@ from chiropt.solution import (
     orders_radius,
 )
 from chiropt.lattice.orders import order_indices
+from chiropt.lattice.symmetry import order_orbits, rotation_order
 from chiropt.structure import Structure
 
 #: Cap on the number of orders kept for the reflected interaction.
@@ -119,6 +120,35 @@ def _reflected_orders_radius(st: Structure, lmax: int) -> float:
     return max(g, need) * 1.0000001
 
 
+def _fold_reflected_orders(st: Structure, mn, keep: int, N: int):
+    """(mn, fold, gram, mult): the orders the solve uses, the rotation order of the
+    stack-reflected sum, the positions (G',) of the orders that sum runs over and their
+    multiplicities (G',) (gram None: every order, once).
+
+    The first ``keep`` orders are kept whole (their amplitudes leave the solve); the
+    further evanescent ones, which only the stack-reflected coupling reads, are replaced
+    by one representative per orbit of the lattice's rotation (``chiropt.lattice.
+    symmetry``), and that coupling sums one representative per orbit of every order,
+    weighted by the orbit's size. This holds where every order of an orbit has the same
+    weight: one particle per cell (its in-plane phases cancel), a stack, and normal
+    incidence held fixed (a plain zero Bloch vector, so q = G; the stack's coefficients
+    and kz depend on |q| only). The coupling is the same sum
+    (``chiropt.multipole.reflected``) at a fraction 1/n of the orders' cost.
+    """
+    k_par = st.k_par
+    if (N != 1 or not st.has_substrate or isbox(k_par) or onp.any(onp.asarray(k_par))):
+        return mn, 1, None, None
+    fold, M = rotation_order(st.lattice)
+    near = order_orbits(mn[1:keep], fold, M)          # (0, 0) is an orbit of its own
+    far = order_orbits(mn[keep:], fold, M)
+    if near is None or far is None:
+        return mn, 1, None, None
+    used = onp.concatenate([mn[:keep], mn[keep:][far]])
+    gram = onp.concatenate([[0], 1 + near, keep + onp.arange(len(far))])
+    mult = onp.concatenate([[1.0], onp.full(len(gram) - 1, float(fold))])
+    return used, fold, gram, mult
+
+
 def _block_diag(T):
     """(W, N, K2, K2) -> (W, N K2, N K2) block-diagonal."""
     W, N, K2, _ = np.shape(T)
@@ -174,7 +204,11 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     N = len(getval(st.radii))
     K2 = n_modes(lmax)
     k = st.k
-    orders = make_orders(st, max(_reflected_orders_radius(st, lmax), float(g_max or 0.0)))
+    mn = order_indices(st.lattice, max(_reflected_orders_radius(st, lmax), float(g_max or 0.0)))
+    keep = (len(order_indices(st.lattice, max(orders_radius(st), float(g_max or 0.0))))
+            if trim else len(mn))
+    mn, fold, gram, mult = _fold_reflected_orders(st, mn, keep, N)
+    orders = make_orders(st, None, mn=mn)
     centres = st.centres
     h = centres[:, 2] - st.z_top
     rho = centres[:, :2]
@@ -207,7 +241,11 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
         r = np.stack([coef.r_s, coef.r_p], axis=-1)                    # (W, G, 2)
         rc_up = np.exp(1j * qr + 1j * kzh)                             # receive upward wave
         # reception of the upward and emission of the downward orders, from P
-        reflected = (rc_up, r, P, ph_dn, lmax)
+        if gram is None:
+            reflected = (rc_up, r, P, ph_dn, lmax)
+        else:   # one order per orbit, weighted by the orbit's size
+            reflected = (rc_up[:, gram], r[:, gram], P[:, gram],
+                         ph_dn[:, gram] * mult[:, None], lmax, fold)
 
     # -- background field: (0,0)-order components on (s, p) ---------------------------------
     D0, U0, X0 = background_components(st, orders, coef)
@@ -227,7 +265,6 @@ def solve_multipole(structure: Structure, tmatrices, lmax: int, *, warn: bool = 
     # -- outgoing orders, components on (s, p) --------------------------------------------
     n_far, rayleigh = far_orders_and_anomalies(st, orders, warn=warn)
     if trim:
-        keep = len(order_indices(st.lattice, max(orders_radius(st), float(g_max or 0.0))))
         if keep < len(orders.mn):
             orders = _slice_orders(orders, keep)
             P, ph_up, ph_dn = P[:, :keep], ph_up[:, :keep], ph_dn[:, :keep]
