@@ -304,13 +304,15 @@ def validity(design: Design, output: ModelOutput | None = None) -> dict[str, Any
     (e.g. "lmax = 2" / "lmax = 3"), ``change`` {quantity: max over wavelengths of
     |q(finer) - q(used)|}, ``worst`` (largest change) [-].
     """
+    # only the fractions and region metrics are compared: the solves keep only the orders
+    # those need (``trim``, the same numbers)
     if output is None:
-        output = run_model(design)
+        output = run_model(design, trim=True)
     here = quantities_of(output, capacity=False)
     if design.solver == "fourier":
         finer = next((s for s in HARMONIC_STEPS if s > 1.3 * output.harmonics),
                      HARMONIC_STEPS[-1])
-        upper_out = run_model(design, harmonics=finer)
+        upper_out = run_model(design, harmonics=finer, trim=True)
         info = {"lmax": None, "lmax_check": None, "harmonics": output.harmonics,
                 "harmonics_check": upper_out.harmonics,
                 "label": f"{output.harmonics} harmonics",
@@ -320,7 +322,7 @@ def validity(design: Design, output: ModelOutput | None = None) -> dict[str, Any
             from dataclasses import replace
 
             finer = replace(design, slices=2 * design.slices)
-            sliced = quantities_of(run_model(finer, harmonics=output.harmonics),
+            sliced = quantities_of(run_model(finer, harmonics=output.harmonics, trim=True),
                                    capacity=False)
             info["slices"], info["slices_check"] = design.slices, 2 * design.slices
             info["slicing_change"] = max(
@@ -329,7 +331,7 @@ def validity(design: Design, output: ModelOutput | None = None) -> dict[str, Any
             info["label_check"] += f" (and {2 * design.slices} slices)"
     else:
         check = min(output.lmax + 1, LMAX_CAP)
-        upper_out = run_model(design, lmax=check)
+        upper_out = run_model(design, lmax=check, trim=True)
         info = {"lmax": output.lmax, "lmax_check": check, "label": f"lmax = {output.lmax}",
                 "label_check": f"lmax = {check}"}
     upper = quantities_of(upper_out, capacity=False)

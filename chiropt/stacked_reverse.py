@@ -114,9 +114,9 @@ def _replace_zero(x, val):
 
 
 class _Scatter:
-    """The stacked cotangent of a basic slice: zero but for ``G`` at ``index`` of an array
-    (R, *shape); made dense only where it is accumulated (autograd's sparse cotangent of
-    ``getitem``, with the row axis kept)."""
+    """The stacked cotangent of a basic slice (or of a gather of distinct positions): zero
+    but for ``G`` at ``index`` of an array (R, *shape); made dense only where it is
+    accumulated (autograd's sparse cotangent of ``getitem``, with the row axis kept)."""
 
     __slots__ = ("shape", "dtype", "index", "G")
 
@@ -131,9 +131,23 @@ class _Scatter:
         return self.add_into(onp.zeros(self.shape, self.dtype))
 
 
+def _distinct_gather(idx) -> bool:
+    """Whether ``idx`` is one 1-D integer array of distinct entries among slices (a gather
+    whose cotangent is an in-place scatter, no index repeated; with no other advanced
+    index the gathered axis stays in place, also behind the row axis)."""
+    parts = idx if type(idx) is tuple else (idx,)
+    arrays = [p for p in parts if type(p) is onp.ndarray]
+    if len(arrays) != 1 or arrays[0].ndim != 1 or arrays[0].dtype.kind not in "iu":
+        return False
+    if not all(p is Ellipsis or type(p) is slice for p in parts if type(p) is not onp.ndarray):
+        return False
+    a = arrays[0]
+    return onp.unique(a).size == a.size and (a.size == 0 or a.min() >= 0)
+
+
 def _getitem(G, node, i):
     A, idx = node.args[0], node.args[1]
-    if not _autodiff._is_basic(idx):
+    if not _autodiff._is_basic(idx) and not _distinct_gather(idx):
         return NotImplemented                       # advanced: autograd's scatter per row
     return _Scatter((G.shape[0],) + onp.shape(A), complex if _iscomplex(A) else float,
                     (slice(None),) + (idx if type(idx) is tuple else (idx,)), G)

@@ -83,7 +83,8 @@ def _solve(design, lmax):
 
 
 def _unfolded(monkeypatch):
-    monkeypatch.setattr(msolve, "_fold_reflected_orders", lambda st, mn, keep, N: (mn, 1, None, None))
+    monkeypatch.setattr(msolve, "_fold_reflected_orders",
+                        lambda st, mn, keep, N: (mn, 1, None, None))
 
 
 @pytest.mark.parametrize("kind", list(LATTICES))

@@ -35,14 +35,15 @@ ENV = dict(os.environ, PYTHONPATH=str(ROOT), OMP_NUM_THREADS="1", OPENBLAS_NUM_T
 
 BASE = SPHERE_ON_GLASS + DIPOLES
 
-# one objective, derivative-free, long enough to be caught while running (a few seconds)
+# one objective, derivative-free, long enough to be caught while running (16 starts: some
+# 20 s of a run that the tests interrupt after a few evaluations, even on a loaded machine)
 LONG = BASE + """\
 variables:
   particles[0].radius_nm: {min: 50, max: 110}
   lattice.period_nm: {min: 300, max: 520}
 objectives:
   - {maximize: g, at_nm: 700}
-search: {algorithm: COBYLA, starts: 2, max_evals_per_start: 400, xtol_rel: 0, ftol_rel: 0}
+search: {algorithm: COBYLA, starts: 16, max_evals_per_start: 400, xtol_rel: 0, ftol_rel: 0}
 seed: 3
 """
 

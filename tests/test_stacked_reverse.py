@@ -1,10 +1,11 @@
 """One reverse walk with the rows' cotangents stacked gives autograd's Jacobian.
 
 - On a function that uses every operation with a stacked rule (broadcasting in both
-  operands, basic and advanced indexing, where, transpose, sums and means over axes,
-  stacks and array literals, matrix products, real and imaginary parts, powers and
-  quotients in both arguments) and operations without one (einsum, a tuple argument,
-  vector matrix products): the rows equal autograd's ``jacobian`` and central differences.
+  operands, basic and advanced indexing, gathers of distinct and of repeated positions,
+  where, transpose, sums and means over axes, stacks and array literals, matrix products,
+  real and imaginary parts, powers and quotients in both arguments) and operations
+  without one (einsum, a tuple argument, vector matrix products): the rows equal
+  autograd's ``jacobian`` and central differences.
 - On goals of every solver kind (multipole sphere on glass, Fourier disks, a chiral film
   with torque rows): the rows equal autograd's one-pass-per-row reverse mode
   (``chiropt.autodiff.value_and_jacobian``) to 1e-12 (in practice bit for bit).
@@ -34,7 +35,10 @@ def _mixed(x):
     m = anp.matmul(t, w) / (1.0 + x[1] ** 2)                   # (4, 4)
     s = anp.sum(m, axis=0, keepdims=True) + anp.mean(t2, axis=(0, 2))[0]
     picked = m[[0, 2, 2], [1, 1, 3]]                           # advanced, a repeated element
-    stacked = anp.stack([anp.sum(picked), s[0, 1], t2[1, 2, 0]])
+    gathered = m[:, onp.array([3, 0, 2])][1:, :]               # a gather of distinct columns
+    repeated = t[onp.array([1, 1, 0]), :]                      # a gather repeating a row
+    stacked = anp.stack([anp.sum(picked) + 0.5 * anp.sum(gathered) - anp.sum(repeated ** 2),
+                         s[0, 1], t2[1, 2, 0]])
     lit = anp.array([x[0] * x[2], anp.sqrt(x[1] + 3.0)])
     e = anp.einsum("ij,ij->", w, anp.conj(w))
     v = anp.dot(anp.array([1.0, 2.0, 3.0]), x)                 # vector operand
