@@ -497,6 +497,17 @@ def build_parser() -> argparse.ArgumentParser:
 _EVALUATING = {"_cmd_run", "_cmd_robustness"}
 
 
+def _take_sigint() -> None:
+    """SIGINT stops a run cleanly (resume later) whatever this process inherited: a parent
+    may start it with SIGINT ignored (a non-interactive shell's background job) or blocked,
+    and Python then installs no handler; ``kill -INT`` must still reach the run."""
+    import signal
+
+    if hasattr(signal, "pthread_sigmask"):
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})
+    signal.signal(signal.SIGINT, signal.default_int_handler)
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
@@ -506,6 +517,7 @@ def main(argv: list[str] | None = None) -> int:
 
         reuse_freed_memory()
         freeze_loaded_objects()
+        _take_sigint()
     try:
         return args.func(args)
     except InputError as exc:

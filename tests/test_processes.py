@@ -193,6 +193,26 @@ def test_one_sigint_stops_every_material_with_130_and_resume_completes(tmp_path)
     assert (out / "g-compare.png").exists()
 
 
+def _ignore_sigint():   # as a non-interactive shell starts a background job
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+@linux
+def test_sigint_stops_a_run_started_with_sigint_ignored(tmp_path):
+    # common practice, no source: an ignored signal stays ignored across exec (POSIX
+    # execve), so a run started as a background job must take SIGINT back itself
+    out = tmp_path / "runs"
+    proc = subprocess.Popen([sys.executable, "-m", "chiropt.cli", "run",
+                             str(_write(tmp_path, LONG)), "--out", str(out), "--quiet",
+                             "--workers", "0"], env=ENV, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, preexec_fn=_ignore_sigint)
+    _wait_for(lambda: _count(out / "g-Si" / "evaluations.sqlite") >= 3, proc=proc)
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err
+    assert "interrupted" in err
+
+
 def test_outputs_go_to_the_current_folder(tmp_path, monkeypatch, capsys):
     goal_file = _write(tmp_path, SMALL)
     design = tmp_path / "designs" / "d.yaml"
