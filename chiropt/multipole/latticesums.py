@@ -314,7 +314,7 @@ def _sum_fold(shape, wrt, k_par, d, mn, nm, pmax):
     and d - R = -R, whose radial factors depend on |q|, |R| only and whose angular
     factors (q_x +- i q_y)^|M| and Y_pM(R_hat) turn with e^(i M alpha). Then D_pM is n
     times the representatives' weighted sum where M = 0 (mod n) and zero elsewhere
-    (docs/theory.md §10; ``chiropt.lattice.symmetry``). A lattice of fixed shape keeps its
+    (docs/theory.md §6, §10; ``chiropt.lattice.symmetry``). A lattice of fixed shape keeps its
     full rotation under a derivative along its length, any lattice G -> -G under any.
 
     Returns (mn, weights, nm, weights, mask (J,)) or None (no fold).
