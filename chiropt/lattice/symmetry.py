@@ -87,16 +87,7 @@ def orbit_weights(pairs, n: int, M) -> tuple[onp.ndarray, onp.ndarray] | None:
     orbit sizes (1 for (0, 0), n for the others); None when an orbit is incomplete.
     A sum over ``pairs`` of f(pair) with f(R p) = e^(i M_z alpha) f(p) is then
     n [M_z = 0 mod n] sum over pairs' of the weighted terms (:func:`order_orbits`)."""
-    pairs = onp.ascontiguousarray(pairs, dtype=onp.int64)
-    M = onp.ascontiguousarray(M, dtype=onp.int64)
-    # memoised on the exact integers: a search asks for the same sets again and again
-    return _orbit_weights(int(n), M.tobytes(), pairs.shape[0], pairs.tobytes())
-
-
-@lru_cache(maxsize=128)
-def _orbit_weights(n: int, M: bytes, count: int, pairs: bytes):
-    pairs = onp.frombuffer(pairs, dtype=onp.int64).reshape(count, 2)
-    M = onp.frombuffer(M, dtype=onp.int64).reshape(2, 2)
+    pairs = onp.asarray(pairs)
     zero = onp.all(pairs == 0, axis=1)
     rest = pairs[~zero]
     reps = order_orbits(rest, n, M)
@@ -104,8 +95,6 @@ def _orbit_weights(n: int, M: bytes, count: int, pairs: bytes):
         return None
     out = onp.concatenate([pairs[zero], rest[reps]])
     weights = onp.concatenate([onp.ones(int(zero.sum())), onp.full(len(reps), float(n))])
-    out.setflags(write=False)
-    weights.setflags(write=False)
     return out, weights
 
 
@@ -120,20 +109,32 @@ def order_orbits(mn, n: int, M) -> onp.ndarray | None:
     Returns
     -------
     int array of positions into ``mn`` (the first member of each orbit in the order
-    given, so a list sorted by |G| keeps its order), or None when some orbit is not
-    complete in ``mn`` (a set cut across an orbit; the caller then sums every order).
-    Every orbit of a nonzero G has exactly n members (a rotation fixes only G = 0).
+    given, so a list sorted by |G| keeps its order; read-only), or None when some orbit
+    is not complete in ``mn`` (a set cut across an orbit; the caller then sums every
+    order). Every orbit of a nonzero G has exactly n members (a rotation fixes only
+    G = 0). Memoised on the exact integers: a search asks for the same sets at every
+    evaluation of one lattice shape and cut.
     """
-    mn = onp.asarray(mn, dtype=onp.int64)
+    mn = onp.ascontiguousarray(mn, dtype=onp.int64)
+    M = onp.ascontiguousarray(M, dtype=onp.int64)
+    return _orbits(int(n), M.tobytes(), mn.shape[0], mn.tobytes())
+
+
+@lru_cache(maxsize=128)
+def _orbits(n: int, M: bytes, count: int, pairs: bytes) -> onp.ndarray | None:
+    mn = onp.frombuffer(pairs, dtype=onp.int64).reshape(count, 2)
+    M = onp.frombuffer(M, dtype=onp.int64).reshape(2, 2)
     if mn.size == 0:
-        return onp.zeros(0, dtype=int)
+        out = onp.zeros(0, dtype=int)
+        out.setflags(write=False)
+        return out
     if onp.any(onp.all(mn == 0, axis=1)):
         raise ValueError("order_orbits: the (0, 0) order is its own orbit; leave it out")
     span = int(onp.max(onp.abs(mn))) * 2 + 1
     code = (mn[:, 0] + span) * (4 * span) + (mn[:, 1] + span)
     images = [mn]
     for _ in range(n - 1):
-        images.append(images[-1] @ onp.asarray(M, dtype=onp.int64).T)
+        images.append(images[-1] @ M.T)
     codes = onp.stack([(im[:, 0] + span) * (4 * span) + (im[:, 1] + span) for im in images])
     order = onp.argsort(code)
     where = onp.searchsorted(code[order], codes)
@@ -143,4 +144,6 @@ def order_orbits(mn, n: int, M) -> onp.ndarray | None:
         return None
     pos = order[where]                       # (n, G): position of each image in mn
     first = onp.min(pos, axis=0)             # the orbit's earliest member
-    return onp.flatnonzero(first == onp.arange(mn.shape[0]))
+    out = onp.flatnonzero(first == onp.arange(mn.shape[0]))
+    out.setflags(write=False)
+    return out

@@ -91,8 +91,16 @@ def reflected_matrix_from_projections(rc, r, P, ph, lmax: int, fold: int = 1):
                                 + br[1][:, None, None] * be[1] * Gm[:, 1, :, 1, :, :, 1])
     out = out.reshape(W, N * 2 * K, N * 2 * K)
     if fold > 1:
-        chi = fold_classes(lmax, N, fold)
-        out *= onp.any(chi[:, :, None] & chi[:, None, :], axis=0)
+        out *= _fold_pairs(lmax, N, fold)
+    return out
+
+
+@cache
+def _fold_pairs(lmax: int, N: int, fold: int) -> onp.ndarray:
+    """(N 2K, N 2K) bool: the mode pairs of one class of :func:`fold_classes`."""
+    chi = fold_classes(lmax, N, fold)
+    out = onp.any(chi[:, :, None] & chi[:, None, :], axis=0)
+    out.setflags(write=False)
     return out
 
 
